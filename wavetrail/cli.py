@@ -1,0 +1,259 @@
+"""The ``wavetrail`` command: parse, call the library, print. No statistics here.
+
+Exit codes: 0 success, 1 a finding that blocks (or a failed job), 2 bad usage.
+A :class:`~wavetrail.errors.WavetrailError` is printed as one clean message;
+``WAVETRAIL_DEBUG=1`` shows the traceback as well.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+from typing import List, Optional
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from wavetrail import __version__
+from wavetrail.errors import WavetrailError
+
+console = Console(highlight=False)
+err_console = Console(stderr=True, highlight=False)
+
+app = typer.Typer(
+    name="wavetrail",
+    help="Reproducible multi-wave panel analysis, from raw waves to a verifiable reviewer archive.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+data_app = typer.Typer(help="Register raw data files and show their state.", no_args_is_help=True)
+plan_app = typer.Typer(help="Freeze the analysis plan and list later deviations.", no_args_is_help=True)
+app.add_typer(data_app, name="data")
+app.add_typer(plan_app, name="plan")
+
+ProjectArg = typer.Argument(Path("."), help="Project folder (default: the current folder).")
+
+
+def print_table(df, title: str | None = None, max_rows: int = 60) -> None:
+    """Print a DataFrame as a plain rich table."""
+    table = Table(title=title, show_lines=False, header_style="bold")
+    for col in df.columns:
+        table.add_column(str(col), overflow="fold")
+    for _, row in df.head(max_rows).iterrows():
+        table.add_row(*["" if _isna(v) else str(v) for v in row.tolist()])
+    console.print(table)
+    if len(df) > max_rows:
+        console.print(f"... {len(df) - max_rows} more rows")
+
+
+def _isna(v) -> bool:
+    try:
+        return v is None or (v != v)  # NaN
+    except Exception:
+        return False
+
+
+def version_callback(value: bool):
+    if value:
+        console.print(f"wavetrail {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    version: bool = typer.Option(False, "--version", callback=version_callback, is_eager=True,
+                                 help="Show the version and exit."),
+):
+    """wavetrail command line."""
+
+
+@app.command()
+def new(
+    path: Path = typer.Argument(..., help="Folder to create (must not exist or be empty)."),
+    title: Optional[str] = typer.Option(None, "--title", help="Project title."),
+    author: Optional[str] = typer.Option(None, "--author", help="Author for the first commit and the docs."),
+    data: Optional[List[Path]] = typer.Option(None, "--data", help="Raw data file(s) to copy in and draft a codebook from."),
+):
+    """Scaffold a new panel-study project."""
+    from wavetrail.project import new_project
+
+    root = new_project(path, title=title, author=author, data=list(data or []))
+    console.print(f"created project {root}")
+    console.print("next: edit config/codebook.yaml and config/config.yaml, then `wavetrail build`")
+
+
+@app.command()
+def demo(
+    path: Path = typer.Argument(Path("demo-panel"), help="Folder for the demo project."),
+    cores: int = typer.Option(2, "--cores", help="Cores for the build."),
+):
+    """Make the invented demo panel project and build it end to end."""
+    from wavetrail.project import make_demo
+    from wavetrail.build import build_project
+
+    root = make_demo(path)
+    console.print(f"demo project written to {root}; building ...")
+    result = build_project(root, cores=cores)
+    console.print(result.summary)
+
+
+@app.command()
+def check(path: Path = ProjectArg):
+    """Check the raw data against the codebook and print the findings."""
+    from wavetrail.project import check_project
+
+    findings = check_project(path)
+    if len(findings):
+        print_table(findings[["severity", "check", "variable", "wave", "count", "message"]], title="Findings")
+    n_err = int((findings["severity"] == "error").sum()) if len(findings) else 0
+    console.print(f"{len(findings)} findings, {n_err} errors")
+    raise typer.Exit(1 if n_err else 0)
+
+
+@app.command(context_settings={"allow_extra_args": True, "ignore_unknown_options": True})
+def build(
+    ctx: typer.Context,
+    path: Path = ProjectArg,
+    cores: int = typer.Option(1, "--cores", "-c", help="Cores Snakemake may use."),
+    profile: Optional[str] = typer.Option(None, "--profile", help="Profile under workflow/profiles/ (e.g. slurm)."),
+):
+    """Rebuild every out-of-date output with Snakemake (extra arguments after -- go to Snakemake)."""
+    from wavetrail.build import build_project
+
+    result = build_project(path, cores=cores, profile=profile, extra=list(ctx.args))
+    console.print(result.summary)
+
+
+@data_app.command("add")
+def data_add(
+    files: List[Path] = typer.Argument(..., help="Raw data file(s) to register."),
+    project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder."),
+):
+    """Register (or re-register) raw data hashes in data/SHA256SUMS."""
+    from wavetrail.registry import register_files
+
+    for line in register_files(project, files):
+        console.print(line)
+
+
+@data_app.command("status")
+def data_status(project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder.")):
+    """Show registered versus present raw data files."""
+    from wavetrail.registry import registry_status
+
+    status = registry_status(project)
+    print_table(status, title="Raw data")
+    raise typer.Exit(1 if (status["state"] != "ok").any() else 0)
+
+
+@app.command()
+def ledger(
+    path: Path = ProjectArg,
+    drift: bool = typer.Option(False, "--drift", help="List files whose bytes or inputs changed since recorded; exit 1 if any."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON instead of a table."),
+):
+    """List every output with its step, inputs, seed, versions and revision."""
+    from wavetrail import ledger as ledger_mod
+
+    if drift:
+        table = ledger_mod.drift_table(path)
+        if as_json:
+            console.print_json(table.to_json(orient="records"))
+        elif len(table):
+            print_table(table, title="Drift")
+        else:
+            console.print("no drift: every output matches its ledger record")
+        raise typer.Exit(1 if len(table) else 0)
+    table = ledger_mod.ledger_table(path)
+    if as_json:
+        console.print_json(table.to_json(orient="records"))
+    else:
+        print_table(table, title="Ledger")
+
+
+@plan_app.command("freeze")
+def plan_freeze(project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder.")):
+    """Record the hashes of config and codebook as the analysis plan."""
+    from wavetrail.plan import freeze_plan
+
+    console.print(freeze_plan(project))
+
+
+@plan_app.command("diff")
+def plan_diff(project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder.")):
+    """List every change to config and codebook since the plan was frozen."""
+    from wavetrail.plan import plan_changes
+
+    changes = plan_changes(project)
+    if len(changes):
+        print_table(changes, title="Deviations from the frozen plan")
+    else:
+        console.print("no deviations from the frozen plan")
+
+
+@app.command()
+def pack(
+    path: Path = ProjectArg,
+    data: str = typer.Option("exclude", "--data", help="Raw data in the archive: include, exclude or stand-in."),
+    output: Optional[Path] = typer.Option(None, "-o", "--output", help="Archive file (.zip or .tar.gz)."),
+    allow_dirty: bool = typer.Option(False, "--allow-dirty", help="Pack even if the git tree has uncommitted changes."),
+    allow_disclosure: bool = typer.Option(False, "--allow-disclosure", help="Pack even if the disclosure check finds something."),
+):
+    """Write the reviewer archive (BagIt bag with an RO-Crate)."""
+    from wavetrail.archive import pack_project
+
+    if data not in ("include", "exclude", "stand-in"):
+        raise typer.BadParameter("--data must be include, exclude or stand-in")
+    out = pack_project(path, data=data, output=output, allow_dirty=allow_dirty, allow_disclosure=allow_disclosure)
+    console.print(f"archive written: {out}")
+
+
+@app.command()
+def verify(
+    archive: Path = typer.Argument(..., help="Archive made by `wavetrail pack`."),
+    rebuild: bool = typer.Option(False, "--rebuild", help="Also rerun the workflow in a temporary copy (runs the authors' code)."),
+    json_out: Optional[Path] = typer.Option(None, "--json", help="Write the full report as JSON to this file."),
+    rtol: float = typer.Option(1e-6, "--rtol", help="Relative tolerance for numeric tables in --rebuild."),
+):
+    """Verify a reviewer archive: integrity, provenance closure, optionally a rebuild."""
+    from wavetrail.archive import verify_archive
+
+    report = verify_archive(archive, rebuild=rebuild, json_path=json_out, rtol=rtol)
+    print_table(report.table, title="Verification")
+    console.print(report.summary)
+    raise typer.Exit(0 if report.ok else 1)
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Console entry point: run the app, turn WavetrailError into a message and exit code."""
+    try:
+        app(args=argv, standalone_mode=False)
+    except WavetrailError as err:
+        from rich.text import Text
+
+        err_console.print(Text.assemble(("error: ", "bold red"), str(err)), soft_wrap=True)
+        if os.environ.get("WAVETRAIL_DEBUG"):
+            raise
+        return err.exit_code
+    except typer.Exit as ex:
+        return ex.exit_code
+    except typer.Abort:
+        err_console.print("aborted")
+        return 1
+    except Exception as ex:  # click usage errors
+        import click
+
+        if isinstance(ex, click.exceptions.ClickException):
+            ex.show()
+            return 2
+        if isinstance(ex, click.exceptions.Exit):
+            return ex.exit_code
+        raise
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
