@@ -82,6 +82,7 @@ def new(
 
     root = new_project(path, title=title, author=author, data=list(data or []))
     console.print(f"created project {root}")
+    console.print(_first_commit_note(root, author))
     console.print("next: edit config/codebook.yaml and config/config.yaml, then `wavetrail build`")
 
 
@@ -95,8 +96,8 @@ def demo(
     from wavetrail.build import build_project
 
     root = make_demo(path)
-    console.print(f"demo project written to {root}; building ...")
-    result = build_project(root, cores=cores)
+    console.print(f"demo project written to {root} (the planted truth: docs/demo-truth.md); building ...")
+    result = build_project(root, cores=cores, progress=_progress)
     console.print(result.summary)
 
 
@@ -123,8 +124,30 @@ def build(
     """Rebuild every out-of-date output with Snakemake (extra arguments after -- go to Snakemake)."""
     from wavetrail.build import build_project
 
-    result = build_project(path, cores=cores, profile=profile, extra=list(ctx.args))
+    result = build_project(path, cores=cores, profile=profile, extra=list(ctx.args), progress=_progress)
     console.print(result.summary)
+
+
+def _progress(line: str) -> None:
+    """Print one progress line of a build."""
+    console.print(line)
+
+
+def _first_commit_note(root: Path, author: Optional[str]) -> str:
+    """Say who the first commit of a new project was made as."""
+    import git
+
+    with git.Repo(root) as repo:
+        head = repo.head.commit
+        who = f"{head.author.name} <{head.author.email}>"
+    if author:
+        return f"first commit {head.hexsha[:10]} by {who} (from --author)"
+    from wavetrail.project import DEFAULT_AUTHOR
+
+    if (head.author.name, head.author.email) == DEFAULT_AUTHOR:
+        return (f"first commit {head.hexsha[:10]} by {who}: no --author was given and git has no "
+                "user.name/user.email; set them (git config user.name ...) for later commits")
+    return f"first commit {head.hexsha[:10]} by {who} (git's configured identity)"
 
 
 @data_app.command("add")
@@ -171,15 +194,23 @@ def ledger(
     if as_json:
         console.print_json(table.to_json(orient="records"))
     else:
-        print_table(table, title="Ledger")
+        shown = table.copy()
+        wild = shown["wildcards"].fillna("").astype(str)
+        shown["step"] = shown["step"].astype(str) + wild.map(lambda w: f" [{w}]" if w else "")
+        shown["inputs"] = shown["inputs"].fillna("").astype(str).str.replace("; ", "\n", regex=False)
+        shown["finished"] = shown["finished"].astype(str).str.replace("T", " ", regex=False).str.slice(0, 16)
+        print_table(shown.drop(columns=["wildcards"]), title="Ledger", max_rows=500)
 
 
 @plan_app.command("freeze")
-def plan_freeze(project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder.")):
+def plan_freeze(
+    project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder."),
+    replace: bool = typer.Option(False, "--replace", help="Freeze again over an existing plan (the old one stays in git history)."),
+):
     """Record the hashes of config and codebook as the analysis plan."""
     from wavetrail.plan import freeze_plan
 
-    console.print(freeze_plan(project))
+    console.print(freeze_plan(project, replace=replace))
 
 
 @plan_app.command("diff")
@@ -230,7 +261,7 @@ def verify(
 def main(argv: list[str] | None = None) -> int:
     """Console entry point: run the app, turn WavetrailError into a message and exit code."""
     try:
-        app(args=argv, standalone_mode=False)
+        code = app(args=argv, standalone_mode=False)
     except WavetrailError as err:
         from rich.text import Text
 
@@ -243,16 +274,15 @@ def main(argv: list[str] | None = None) -> int:
     except typer.Abort:
         err_console.print("aborted")
         return 1
-    except Exception as ex:  # click usage errors
-        import click
-
-        if isinstance(ex, click.exceptions.ClickException):
+    except Exception as ex:  # click usage errors (typer may ship its own copy of click)
+        kinds = {c.__name__ for c in type(ex).__mro__}
+        if "ClickException" in kinds and hasattr(ex, "show"):
             ex.show()
             return 2
-        if isinstance(ex, click.exceptions.Exit):
+        if "Exit" in kinds and hasattr(ex, "exit_code"):
             return ex.exit_code
         raise
-    return 0
+    return code if isinstance(code, int) else 0
 
 
 if __name__ == "__main__":

@@ -1,0 +1,86 @@
+# Helpers shared by every stage module (file lists, settings from the validated config).
+# Only functions and constants live here; the Snakefile includes this module first.
+import hashlib
+from importlib import metadata
+from pathlib import Path
+
+
+# Default cluster resources of every job (config key `resources`).
+RUNTIME = config["resources"]["runtime"]
+MEM_MB = config["resources"]["mem_mb"]
+
+
+def data_files():
+    """Raw data files listed under `data` in config/config.yaml."""
+    return list(config["data"])
+
+
+def codebook_file():
+    return config["codebook"]
+
+
+def forest_enabled():
+    return bool(config["forest"]["enabled"])
+
+
+def shard_numbers():
+    """1..K for K = forest.shards."""
+    return list(range(1, int(config["forest"]["shards"]) + 1))
+
+
+def shard_files(wildcards=None):
+    return expand("results/forest/shards/shard-{shard}.json", shard=shard_numbers())
+
+
+def environment_fingerprint():
+    """sha256 of the sorted name==version list of installed distributions.
+
+    Given to lock_environment as a parameter, so Snakemake reruns it (and everything
+    recorded against the lock) when a package is added, removed or upgraded.
+    """
+    names = set()
+    for dist in metadata.distributions():
+        name = dist.metadata["Name"]
+        if name:
+            names.add(f"{name.lower().replace('_', '-')}=={dist.version}")
+    return hashlib.sha256("\n".join(sorted(names)).encode("utf-8")).hexdigest()
+
+
+def report_inputs(wildcards=None):
+    """Named inputs of render_report: every result table, figure and the environment lock."""
+    inputs = {
+        "registry": "results/checks/data_registry.csv",
+        "findings": "results/checks/findings.csv",
+        "descriptives": "results/checks/descriptives.csv",
+        "attrition": "results/checks/attrition.csv",
+        "scores": "results/scores/scores.csv",
+        "reliability": "results/scores/reliability.csv",
+        "invariance": "results/scores/invariance.csv",
+        "growth_fit": "results/growth/fit.csv",
+        "growth_estimates": "results/growth/estimates.csv",
+        "growth_comparison": "results/growth/comparison.csv",
+        "growth_figure": "results/growth/trajectories.png",
+        "codebook": codebook_file(),
+        "lock": "environment/requirements.lock",
+    }
+    if forest_enabled():
+        inputs.update(
+            forest="results/forest/forest.json",
+            importance="results/forest/importance.csv",
+            dependence="results/forest/dependence.csv",
+            interactions="results/forest/interactions.csv",
+            importance_figure="results/forest/importance_plot.png",
+            trajectories_figure="results/forest/trajectories.png",
+        )
+    notebook = Path("workflow/notebooks/report.ipynb")
+    if notebook.is_file():
+        inputs["notebook_source"] = str(notebook)
+    return inputs
+
+
+def final_outputs():
+    """Everything `rule all` asks for."""
+    outputs = ["results/reports/report.html", "results/reports/report.ipynb"]
+    if forest_enabled():
+        outputs.append("results/forest/importance.csv")
+    return outputs

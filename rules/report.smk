@@ -1,0 +1,18 @@
+# The executed report notebook and its self-contained HTML.
+
+
+rule render_report:
+    input:
+        unpack(report_inputs),
+    output:
+        notebook="results/reports/report.ipynb",
+        html="results/reports/report.html",
+    params:
+        settings=config["report"],
+    log:
+        "logs/report/render_report.log",
+    resources:
+        runtime=RUNTIME,
+        mem_mb=MEM_MB,
+    script:
+        "scripts/run_step.py"

@@ -1,0 +1,51 @@
+# Scale scores per wave, their reliability and their invariance over the waves.
+
+
+rule score_scales:
+    input:
+        data=data_files(),
+        codebook=codebook_file(),
+        findings="results/checks/findings.csv",
+    output:
+        scores="results/scores/scores.csv",
+    log:
+        "logs/scores/score_scales.log",
+    resources:
+        runtime=RUNTIME,
+        mem_mb=MEM_MB,
+    script:
+        "scripts/run_step.py"
+
+
+rule assess_reliability:
+    input:
+        data=data_files(),
+        codebook=codebook_file(),
+        findings="results/checks/findings.csv",
+    output:
+        reliability="results/scores/reliability.csv",
+    log:
+        "logs/scores/assess_reliability.log",
+    resources:
+        runtime=RUNTIME,
+        mem_mb=MEM_MB,
+    script:
+        "scripts/run_step.py"
+
+
+rule test_invariance:
+    input:
+        data=data_files(),
+        codebook=codebook_file(),
+        findings="results/checks/findings.csv",
+    output:
+        invariance="results/scores/invariance.csv",
+    params:
+        settings=config["invariance"],
+    log:
+        "logs/scores/test_invariance.log",
+    resources:
+        runtime=RUNTIME,
+        mem_mb=MEM_MB,
+    script:
+        "scripts/run_step.py"

@@ -1,0 +1,143 @@
+"""Scaffolding: `new_project`, `find_project`, the template, the first commit."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import git
+import pytest
+import yaml
+
+from wavetrail.errors import DataError, ProjectError
+from wavetrail.project import DEFAULT_AUTHOR, find_project, is_project, new_project
+from wavetrail.resources import rules_dir, template_dir
+
+
+@pytest.fixture
+def bare_home(tmp_path, monkeypatch):
+    """A new user's machine: empty home, no git identity anywhere."""
+    home = tmp_path / "home"
+    home.mkdir()
+    monkeypatch.setenv("HOME", str(home))
+    monkeypatch.setenv("GIT_CONFIG_GLOBAL", str(home / "no-gitconfig"))
+    monkeypatch.setenv("GIT_CONFIG_NOSYSTEM", "1")
+    for var in ("GIT_AUTHOR_NAME", "GIT_AUTHOR_EMAIL", "GIT_COMMITTER_NAME", "GIT_COMMITTER_EMAIL", "EMAIL"):
+        monkeypatch.delenv(var, raising=False)
+    return home
+
+
+def test_new_makes_a_project_with_one_commit_without_git_identity(tmp_path, bare_home):
+    root = new_project(tmp_path / "my-panel", title="Sleep over adolescence")
+    assert root == (tmp_path / "my-panel").resolve()
+    assert is_project(root)
+    with git.Repo(root) as repo:
+        commits = list(repo.iter_commits())
+        assert len(commits) == 1
+        assert (commits[0].author.name, commits[0].author.email) == DEFAULT_AUTHOR
+        assert (commits[0].committer.name, commits[0].committer.email) == DEFAULT_AUTHOR
+        assert not repo.is_dirty(untracked_files=True)
+        tracked = set(repo.git.ls_files().splitlines())
+    # every rule module was copied in and committed
+    modules = sorted(p.name for p in rules_dir().glob("*.smk"))
+    assert modules == ["checks.smk", "common.smk", "forest.smk", "growth.smk", "provenance.smk",
+                       "report.smk", "scores.smk"]
+    for name in modules:
+        assert f"workflow/rules/{name}" in tracked
+    assert "workflow/rules/scripts/run_step.py" in tracked
+    for path in ("workflow/Snakefile", "config/config.yaml", "config/codebook.yaml", "data/SHA256SUMS",
+                 "workflow/profiles/default/config.yaml", "workflow/profiles/slurm/config.yaml", ".gitignore"):
+        assert path in tracked, path
+    assert "Sleep over adolescence" in (root / "README.md").read_text()
+    # cookiecutter left nothing in the user's home (no replay file)
+    assert list(bare_home.iterdir()) == []
+
+
+def test_new_uses_author_for_the_commit(tmp_path, bare_home):
+    root = new_project(tmp_path / "p", author="Ada Example <ada@example.org>")
+    with git.Repo(root) as repo:
+        head = repo.head.commit
+        assert (head.author.name, head.author.email) == ("Ada Example", "ada@example.org")
+        assert (head.committer.name, head.committer.email) == ("Ada Example", "ada@example.org")
+
+
+def test_new_refuses_a_non_empty_folder_and_leaves_it_alone(tmp_path, bare_home):
+    target = tmp_path / "busy"
+    target.mkdir()
+    (target / "notes.txt").write_text("keep me")
+    with pytest.raises(ProjectError, match="not empty"):
+        new_project(target)
+    assert [p.name for p in target.iterdir()] == ["notes.txt"]
+    assert (target / "notes.txt").read_text() == "keep me"
+
+
+def test_new_accepts_an_empty_existing_folder(tmp_path, bare_home):
+    target = tmp_path / "empty"
+    target.mkdir()
+    assert is_project(new_project(target))
+
+
+def test_new_with_data_copies_registers_and_drafts(tmp_path, bare_home):
+    src = tmp_path / "waves.csv"
+    src.write_text("pid,wave,slp1\n1,1,3\n1,2,4\n2,1,-99\n2,2,2\n", encoding="utf-8")
+    root = new_project(tmp_path / "p", data=[src])
+    copied = root / "data" / "raw" / "waves.csv"
+    assert copied.read_bytes() == src.read_bytes()
+    digest = hashlib.sha256(src.read_bytes()).hexdigest()
+    assert (root / "data" / "SHA256SUMS").read_text() == f"{digest}  raw/waves.csv\n"
+    config = yaml.safe_load((root / "config" / "config.yaml").read_text())
+    assert config["data"] == ["data/raw/waves.csv"]
+    codebook = yaml.safe_load((root / "config" / "codebook.yaml").read_text())
+    assert [v["name"] for v in codebook["variables"]][:1] == ["pid"]
+    assert codebook["study"]["waves"] == [1, 2]
+    with git.Repo(root) as repo:
+        tracked = set(repo.git.ls_files().splitlines())
+    # closed data by default: the hash is tracked, the raw file is not
+    assert "data/SHA256SUMS" in tracked and "data/raw/waves.csv" not in tracked
+
+
+def test_new_with_a_missing_data_file_writes_nothing(tmp_path, bare_home):
+    with pytest.raises(DataError, match="does not exist"):
+        new_project(tmp_path / "p", data=[tmp_path / "nope.csv"])
+    assert not (tmp_path / "p").exists()
+
+
+def test_gitignore_keeps_closed_raw_data_out_and_says_how_to_track_it(tmp_path, bare_home):
+    root = new_project(tmp_path / "p")
+    text = (root / ".gitignore").read_text()
+    assert "data/raw/" in text.splitlines()
+    assert "open" in text and "!data/raw/" in text
+    assert ".snakemake/" in text.splitlines()
+
+
+def test_find_project_walks_up_and_refuses_other_folders(tmp_path, bare_home):
+    root = new_project(tmp_path / "p")
+    assert find_project(root / "workflow" / "rules") == root
+    assert find_project(root / "config" / "config.yaml") == root
+    with pytest.raises(ProjectError, match="is not a wavetrail project"):
+        find_project(tmp_path)
+    with pytest.raises(ProjectError, match="does not exist"):
+        find_project(tmp_path / "missing")
+
+
+def test_template_does_not_render_notebooks_and_has_the_documented_keys():
+    spec = json.loads((template_dir() / "cookiecutter.json").read_text())
+    for key in ("project_slug", "title", "author", "year", "seed"):
+        assert key in spec
+    skip = spec["_copy_without_render"]
+    assert "workflow/notebooks/*" in skip
+    project = template_dir() / "{{cookiecutter.project_slug}}"
+    assert (project / "workflow" / "Snakefile").is_file()
+    assert (project / "workflow" / "profiles" / "default" / "config.yaml").is_file()
+    assert (project / "workflow" / "profiles" / "slurm" / "config.yaml").is_file()
+
+
+def test_rendered_settings_are_valid(tmp_path, bare_home):
+    from wavetrail.config import load_config
+
+    root = new_project(tmp_path / "p", seed=7)
+    config = load_config(root)
+    assert config["seed"] == 7
+    assert config["data"] == ["data/raw/panel.csv"]
+    assert config["forest"]["trees"] == 500 and config["forest"]["shards"] == 1

@@ -1,0 +1,480 @@
+"""Report notebooks: formatting conventions, normalisation, execution, failure, absent stages.
+
+The fake project below holds result tables written here (columns as in DEVELOPERS.md,
+"Result files"), so the report is tested on known numbers before the demo exists.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import re
+import shutil
+from pathlib import Path
+
+import nbformat
+import numpy as np
+import pandas as pd
+import pytest
+
+from wavetrail._io import write_table
+from wavetrail.errors import BuildError
+from wavetrail.report import formatting as F
+from wavetrail.resources import template_dir
+
+SOURCE = template_dir() / "{{cookiecutter.project_slug}}" / "workflow" / "notebooks" / "report.ipynb"
+
+CODEBOOK = """\
+study:
+  id: pid
+  wave: wave
+  waves: [1, 2, 3, 4, 5]
+  time_scores: [0, 1, 2, 3, 4]
+variables:
+  - {name: pid, label: Study number, type: integer}
+  - {name: slp1, label: Trouble falling asleep, type: integer, range: [1, 5], scale: sleep_difficulty}
+  - {name: slp2, label: Wakes at night, type: integer, range: [1, 5], scale: sleep_difficulty}
+  - {name: screen, label: Evening screen time, type: number, range: [0, 8], waves: [1]}
+  - {name: chrono, label: Chronotype, type: number, range: [1, 5], waves: [1]}
+  - {name: rules, label: House rules on bedtime, type: category, levels: {1: none, 2: some, 3: strict}, waves: [1]}
+scales:
+  sleep_difficulty: {label: Sleep difficulty, min_share: 0.8}
+"""
+
+#: the true mean trajectory of the simulated scores (intercept, slope, quadratic)
+TRUE_MEANS = (2.40, 0.15, -0.02)
+
+
+def _scores(n: int = 120, seed: int = 7) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    rows = []
+    for pid in range(1, n + 1):
+        i = TRUE_MEANS[0] + rng.normal(0, 0.5)
+        s = TRUE_MEANS[1] + rng.normal(0, 0.1)
+        last = 5 if pid <= n * 0.8 else 3  # attrition: a fifth leave after wave 3
+        for t, wave in enumerate(range(1, last + 1)):
+            score = i + s * t + TRUE_MEANS[2] * t * t + rng.normal(0, 0.3)
+            rows.append({"id": pid, "wave": wave, "scale": "sleep_difficulty", "score": score, "n_items": 2})
+    return pd.DataFrame(rows)
+
+
+#: the commit the fake jobs are recorded at
+COMMIT = "0123456789abcdef0123456789abcdef01234567"
+
+
+def _ledger(root: Path) -> None:
+    """Ledger records of a few jobs (one of the report step itself, which the report leaves out)."""
+    from wavetrail import ledger
+    from wavetrail._io import write_json
+    from wavetrail.stages.runner import Job, job_seed
+
+    facts = {"python": "CPython 3.11.7", "platform": "linux-x86_64", "packages": {"numpy": "2.4.0", "pandas": "3.1.0"},
+             "lock_sha256": "cd" * 32}
+    for step, wildcards in (("check_data", {}), ("fit_growth", {}), ("grow_forest_shard", {"shard": "1"}),
+                            ("render_report", {})):
+        job = Job(step=step, project=root, input={}, output={}, wildcards=wildcards,
+                  seed=job_seed(20261202, step, wildcards), started="2026-12-02T07:00:00+00:00")
+        record = ledger.build_record(job, finished="2026-12-02T07:00:01+00:00", facts=facts)
+        record["git"] = {"commit": COMMIT, "dirty": step == "render_report"}
+        write_json(root / ledger.LEDGER_DIR / ledger.record_name(step, wildcards), record)
+
+
+def make_project(root: Path, *, forest: str = "found") -> Path:
+    """A project folder with every result table; ``forest`` is "found", "nothing" or "absent"."""
+    root.mkdir(parents=True, exist_ok=True)
+    (root / "config").mkdir(exist_ok=True)
+    forest_block = "forest: {enabled: false}\n" if forest == "absent" else (
+        "forest: {enabled: true, outcome: sleep_difficulty, shape: quadratic, trees: 200, alpha: 0.05}\n")
+    (root / "config" / "config.yaml").write_text(
+        "data: [data/raw/panel.csv]\ncodebook: config/codebook.yaml\nseed: 20261202\n" + forest_block
+        + "report: {min_cell: 5, title: Sleep panel (test)}\n", encoding="utf-8")
+    (root / "config" / "codebook.yaml").write_text(CODEBOOK, encoding="utf-8")
+    (root / "data").mkdir(exist_ok=True)
+    (root / "data" / "SHA256SUMS").write_text("ab" * 32 + "  raw/panel.csv\n", encoding="utf-8")
+    (root / "environment").mkdir(exist_ok=True)
+    (root / "environment" / "requirements.lock").write_text(
+        "# locked\nnumpy==2.4.0\npandas==3.1.0\nscipy==1.17.0\nwavetrail==0.1.0\n", encoding="utf-8")
+    nbdir = root / "workflow" / "notebooks"
+    nbdir.mkdir(parents=True, exist_ok=True)
+    shutil.copy(SOURCE, nbdir / "report.ipynb")
+
+    _ledger(root)
+    scores = _scores()
+    r = root / "results"
+    write_table(r / "checks" / "findings.csv", pd.DataFrame([
+        {"variable": "slp2", "wave": 3, "check": "out_of_range", "severity": "error", "count": 2, "rows": "17;88",
+         "message": "2 values outside [1, 5]"},
+        {"variable": "pid", "wave": np.nan, "check": "duplicate_id", "severity": "warning", "count": 1, "rows": "40",
+         "message": "1 id appears twice in wave 2"},
+    ]))
+    present = scores.groupby("wave")["id"].nunique()
+    write_table(r / "checks" / "attrition.csv", pd.DataFrame({
+        "wave": present.index, "n_present": present.values, "n_missing": 120 - present.values,
+        "n_retained": present.values, "retention": present.values / 120, "n_new": [120, 0, 0, 0, 0],
+        "n_dropped": [0, 0, 0, 24, 0]}))
+    write_table(r / "checks" / "descriptives.csv", pd.DataFrame([
+        {"variable": "screen", "wave": 1, "n": 118, "missing": 2, "mean": 3.214, "sd": 1.456, "min": 0, "max": 8,
+         "levels": ""},
+        {"variable": "rules", "wave": 1, "n": 3, "missing": 117, "mean": np.nan, "sd": np.nan, "min": np.nan,
+         "max": np.nan, "levels": "1:2; 3:1"},
+        {"variable": "chrono", "wave": 1, "n": 119, "missing": 1, "mean": 2.9, "sd": 0.8, "min": 1, "max": 5,
+         "levels": ""},
+    ]))
+    write_table(r / "scores" / "scores.csv", scores)
+    write_table(r / "scores" / "reliability.csv", pd.DataFrame([
+        {"scale": "sleep_difficulty", "wave": w, "n": 100, "alpha": 0.8123 + w / 1000, "alpha_lo": 0.77,
+         "alpha_hi": 0.85, "omega": 0.8211, "ci_method": "Feldt", "note": ""} for w in range(1, 6)]))
+    write_table(r / "scores" / "invariance.csv", pd.DataFrame([
+        {"scale": "sleep_difficulty", "step": "configural", "chisq": 40.12, "df": 30, "cfi": 0.991, "rmsea": 0.031,
+         "srmr": 0.030, "delta_chisq": np.nan, "delta_df": np.nan, "delta_p": np.nan, "delta_cfi": np.nan,
+         "decision": "baseline", "freed": ""},
+        {"scale": "sleep_difficulty", "step": "metric", "chisq": 44.5, "df": 34, "cfi": 0.989, "rmsea": 0.029,
+         "srmr": 0.034, "delta_chisq": 4.38, "delta_df": 4, "delta_p": 0.357, "delta_cfi": -0.002,
+         "decision": "holds", "freed": ""},
+        {"scale": "sleep_difficulty", "step": "scalar", "chisq": 70.1, "df": 38, "cfi": 0.962, "rmsea": 0.061,
+         "srmr": 0.041, "delta_chisq": 25.6, "delta_df": 4, "delta_p": 0.00004, "delta_cfi": -0.027,
+         "decision": "fails", "freed": ""},
+    ]))
+    write_table(r / "growth" / "fit.csv", pd.DataFrame([
+        {"outcome": "sleep_difficulty", "model": "linear", "n": 120, "loglik": -612.3, "chisq": 35.71, "df": 10,
+         "p": 0.00009, "cfi": 0.93417, "tli": 0.9342, "rmsea": 0.1466, "rmsea_lo": 0.0955, "rmsea_hi": 0.2011,
+         "srmr": 0.0712, "aic": 1244.6, "bic": 1269.7, "sabic": 1241.2, "converged": True, "admissible": True,
+         "note": ""},
+        {"outcome": "sleep_difficulty", "model": "quadratic", "n": 120, "loglik": -601.0, "chisq": 9.87, "df": 6,
+         "p": 0.1301, "cfi": 0.99236, "tli": 0.9873, "rmsea": 0.0733, "rmsea_lo": 0.0, "rmsea_hi": 0.1502,
+         "srmr": 0.0301, "aic": 1230.0, "bic": 1266.2, "sabic": 1225.1, "converged": True, "admissible": True,
+         "note": ""},
+    ]))
+    est = []
+    for model, means in (("linear", (2.43, 0.081, None)), ("quadratic", TRUE_MEANS)):
+        for name, value in zip(("mean(intercept)", "mean(slope)", "mean(quadratic)"), means):
+            if value is not None:
+                est.append({"outcome": "sleep_difficulty", "model": model, "parameter": name, "estimate": value,
+                            "se": 0.031, "z": value / 0.031, "p": 0.0001, "std": np.nan})
+        est.append({"outcome": "sleep_difficulty", "model": model, "parameter": "var(intercept)",
+                    "estimate": 0.2489, "se": 0.041, "z": 6.07, "p": 0.0000001, "std": 1.0})
+    write_table(r / "growth" / "estimates.csv", pd.DataFrame(est))
+    write_table(r / "growth" / "comparison.csv", pd.DataFrame([
+        {"outcome": "sleep_difficulty", "model_a": "linear", "model_b": "quadratic", "delta_chisq": 25.84,
+         "delta_df": 4, "p": 0.00003, "delta_aic": -14.6, "delta_bic": -3.5, "preferred": "quadratic"}]))
+    if forest == "absent":
+        return root
+    if forest == "nothing":
+        imp = pd.DataFrame({"predictor": ["chrono", "rules", "screen"], "importance": [0.0, 0.0, 0.0],
+                            "se": [0.0, 0.0, 0.0], "rank": [1, 1, 1]})
+        write_table(r / "forest" / "importance.csv", imp)
+        write_table(r / "forest" / "dependence.csv", pd.DataFrame(columns=["predictor", "level", "value", "time", "expected"]))
+        write_table(r / "forest" / "interactions.csv", pd.DataFrame(columns=["predictor_a", "predictor_b", "h"]))
+        return root
+    write_table(r / "forest" / "importance.csv", pd.DataFrame({
+        "predictor": ["screen", "chrono", "rules"], "importance": [4.5678, 1.2345, -0.0123],
+        "se": [0.61, 0.33, 0.05], "rank": [1, 2, 3]}))
+    dep = []
+    for pred, levels in (("screen", [("low", 1.0), ("average", 3.2), ("high", 5.5)]),
+                         ("chrono", [("low", 2.0), ("average", 3.0), ("high", 4.0)])):
+        for k, (level, value) in enumerate(levels):
+            for t in range(5):
+                dep.append({"predictor": pred, "level": level, "value": value, "time": t,
+                            "expected": 2.2 + 0.1 * k + (0.05 + 0.06 * k) * t})
+    write_table(r / "forest" / "dependence.csv", pd.DataFrame(dep))
+    write_table(r / "forest" / "interactions.csv", pd.DataFrame({
+        "predictor_a": ["screen", "chrono"], "predictor_b": ["chrono", "rules"], "h": [0.3141, 0.0271]}))
+    return root
+
+
+def render_project(root: Path, **settings):
+    from wavetrail.report import render
+
+    base = {"title": "Sleep panel (test)", "seed": 20261202, "codebook": "config/codebook.yaml", "min_cell": 5,
+            "forest": {"trees": 200, "outcome": "sleep_difficulty", "alpha": 0.05}}
+    base.update(settings)
+    return render(root, "workflow/notebooks/report.ipynb", "results/reports/report.ipynb",
+                  "results/reports/report.html", settings=base, failed_copy="logs/report/render_report.failed.ipynb")
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory):
+    root = make_project(tmp_path_factory.mktemp("report") / "panel")
+    nb_path, html_path = render_project(root)
+    return root, nb_path, html_path, html_path.read_text(encoding="utf-8")
+
+
+def _cells(page: str, table_id: str) -> list[list[str]]:
+    """Rows of cell texts of the table with ``id`` in the HTML page."""
+    m = re.search(rf'<figure class="wt-table" id="{table_id}">(.*?)</figure>', page, re.DOTALL)
+    assert m, f"table {table_id} not in the report"
+    body = re.search(r"<tbody>(.*?)</tbody>", m.group(1), re.DOTALL).group(1)
+    return [[html.unescape(re.sub(r"<[^>]+>", "", c)) for c in re.findall(r"<td[^>]*>(.*?)</td>", row, re.DOTALL)]
+            for row in re.findall(r"<tr>(.*?)</tr>", body, re.DOTALL)]
+
+
+# ---------------------------------------------------------------- journal conventions
+def test_formatting_follows_journal_conventions():
+    # Common practice (APA Publication Manual, 7th ed., 2020, sections 6.36 and 7.21):
+    # no leading zero for statistics bounded by 1, p to three decimals with "< .001",
+    # estimates with two decimals, a true minus sign.
+    assert [F.fmt_p(p) for p in (0.0004, 0.001, 0.04999, 0.5, 0.99996)] == ["< .001", ".001", ".050", ".500", "> .999"]
+    assert F.fmt_unit(0.95234) == ".952" and F.fmt_unit(-0.0021) == "\u2212.002"
+    assert F.fmt_number(-1.235) == "\u22121.24" or F.fmt_number(-1.235) == "\u22121.23"  # binary rounding of 1.235
+    assert F.fmt_number(-0.001) == "0.00"
+    assert F.fmt_number(1244.6) == "1,244.60"
+    assert F.fmt_chisq(85.3055, 24) == "\u03c7\u00b2(24) = 85.31"
+    assert F.fmt_interval(0.0714, 0.1137, unit=True) == "[.071, .114]"
+    assert [F.fmt_small(n, 5) for n in (0, 3, 5, 1204)] == ["0", "< 5", "5", "1,204"]
+    assert F.fmt_number(float("nan")) == F.MISSING and F.fmt_p(None) == F.MISSING
+
+
+def test_table_right_aligns_number_columns_only():
+    t = F.Table("x", ["Model", "N", "Decision", "CFI"], [["linear", "120", "holds", ".952"], ["quad", "< 5", "fails", "\u2014"]])
+    assert t.numeric == {1, 3}
+    html = t.to_html(3)
+    assert "Table 3. " in html and '<td class="wt-num">.952</td>' in html and "<td>holds</td>" in html
+
+
+def test_normalise_strips_run_metadata_and_fixes_ids():
+    from wavetrail.report.normalise import normalise_notebook, notebook_bytes
+
+    nb = nbformat.v4.new_notebook(cells=[nbformat.v4.new_code_cell("1"), nbformat.v4.new_markdown_cell("x")])
+    nb.metadata["papermill"] = {"start_time": "2026-12-02T07:00:00", "input_path": "/home/me/x.ipynb"}
+    nb.cells[0].metadata["papermill"] = {"duration": 0.5}
+    nb.cells[0].metadata["execution"] = {"iopub.status.busy": "2026-12-02T07:00:01"}
+    clean = normalise_notebook(nb)
+    assert "papermill" not in clean.metadata
+    assert [c.id for c in clean.cells] == ["cell-01", "cell-02"]
+    assert clean.cells[0].metadata == {}
+    nb.cells[0]["id"] = "another-random-id"
+    nb.metadata["papermill"]["start_time"] = "2027-01-01T00:00:00"
+    assert notebook_bytes(normalise_notebook(nb)) == notebook_bytes(clean)
+    nbformat.validate(clean)
+
+
+# ---------------------------------------------------------------- the built report
+@pytest.mark.slow
+def test_report_shows_the_numbers_of_the_result_tables(built):
+    root, nb_path, html_path, page = built
+    fit = pd.read_csv(root / "results/growth/fit.csv")
+    rows = _cells(page, "growth-fit")
+    by_model = {r[1]: r for r in rows}
+    # CFI of fit.csv (0.99236, 0.93417) printed with three decimals and no leading zero
+    assert by_model["quadratic"][5] == ".992" and by_model["linear"][5] == ".934"
+    assert by_model["linear"][4] == "< .001" and by_model["quadratic"][4] == ".130"
+    assert by_model["quadratic"][3] == "\u03c7\u00b2(6) = 9.87"
+    assert by_model["quadratic"][8] == "[.000, .150]"
+    assert len(rows) == len(fit)
+    # the top predictor of importance.csv, first in the importance table, and named in the overview
+    imp = _cells(page, "importance")
+    assert imp[0][:4] == ["1", "Evening screen time", "screen", "4.57"]
+    assert imp[2][3] == "\u22120.01"
+    assert "Top moderator (exploratory)</dt><dd>Evening screen time" in page
+    # interactions sorted by H; H printed without leading zero
+    assert _cells(page, "interactions")[0] == ["Evening screen time", "Chronotype", ".31"]
+    # small cells suppressed: 3 valid answers for house rules, min_cell 5
+    desc = {r[0]: r for r in _cells(page, "descriptives")}
+    assert desc["House rules on bedtime"][2] == "< 5" and desc["Evening screen time"][2] == "118"
+    assert desc["House rules on bedtime"][8] == "none < 5; strict < 5"  # codebook labels, small counts hidden
+    # reliability per wave, invariance decision, registered hash, lock hash
+    assert [r[3] for r in _cells(page, "reliability")] == [".81", ".81", ".82", ".82", ".82"]
+    inv = _cells(page, "invariance")
+    assert [r[-1] for r in inv] == ["baseline", "holds", "fails"]
+    assert inv[1][6:8] == ["\u0394\u03c7\u00b2(4) = 4.38", ".357"] and inv[2][8] == "\u2212.027"
+    assert "Sleep difficulty: metric invariance holds." in page
+    assert [r[1:4] for r in _cells(page, "attrition")][3] == ["96", "24", "80.0%"]
+    assert "ab" * 32 in page
+    from wavetrail._io import sha256_file
+
+    assert sha256_file(root / "environment/requirements.lock") in page
+    # seeds of the recorded jobs, derived from the master seed; the report's own record left out
+    from wavetrail.stages.runner import job_seed
+
+    seeds = _cells(page, "seeds")
+    assert seeds == [["check_data", "\u2014", str(job_seed(20261202, "check_data", {}))],
+                     ["fit_growth", "\u2014", str(job_seed(20261202, "fit_growth", {}))],
+                     ["grow_forest_shard", "shard=1", str(job_seed(20261202, "grow_forest_shard", {"shard": "1"}))]]
+    assert f"{COMMIT}</code> (clean)" in page and "uncommitted" not in page
+    env = dict(map(tuple, _cells(page, "environment")))
+    assert env["Python"] == "CPython 3.11.7" and env["numpy"] == "2.4.0" and env["scipy"] == "1.17.0"
+
+
+@pytest.mark.slow
+def test_report_states_limits_and_data_sharing(built):
+    page = built[3]
+    assert "exploratory associations" in page and "not causal effects" in page
+    assert "not a basis for diagnosing" in page
+    assert "consent, its ethics approval and the applicable data-protection rules" in page
+    for heading in ("At a glance", "Data and checks", "Scales", "Growth", "Moderators", "Provenance"):
+        assert re.search(rf'<h2 id="[^"]+"><span class="wt-secno">\d</span>{heading}</h2>', page), heading
+    assert "wavetrail verify" in page and "Master seed" in page
+
+
+@pytest.mark.slow
+def test_figures_are_saved_beside_their_data_and_embedded(built):
+    root, _, _, page = built
+    figs = root / "results/reports/figures"
+    for stem in ("attrition", "trajectories-sleep_difficulty", "importance", "dependence"):
+        for ext in ("png", "svg", "csv"):
+            assert (figs / f"{stem}.{ext}").stat().st_size > 0, (stem, ext)
+    import base64
+
+    embedded = re.findall(r'<img alt="([^"]+)" src="data:image/png;base64,([^"]+)"', page)
+    assert len(embedded) == 4 and all(alt for alt, _ in embedded)
+    assert base64.b64decode(embedded[0][1]) == (figs / "attrition.png").read_bytes()
+    # the trajectory figure's data: observed wave means recomputed here, implied means of the
+    # quadratic model from its factor means (TRUE_MEANS written to estimates.csv)
+    data = pd.read_csv(figs / "trajectories-sleep_difficulty.csv")
+    scores = pd.read_csv(root / "results/scores/scores.csv")
+    observed = data[data["series"] == "observed"].set_index("time")["value"]
+    expect = scores.groupby("wave")["score"].mean()
+    # rtol 1e-9: the figure CSV is written with 10 significant digits (wavetrail._io.FLOAT_FORMAT)
+    np.testing.assert_allclose(observed.to_numpy(), expect.to_numpy(), rtol=1e-9)
+    quad = data[data["series"] == "quadratic"]
+    t = quad["time"].to_numpy()
+    np.testing.assert_allclose(quad["value"], TRUE_MEANS[0] + TRUE_MEANS[1] * t + TRUE_MEANS[2] * t**2, rtol=1e-9)
+
+
+@pytest.mark.slow
+def test_report_is_self_contained_and_free_of_machine_paths(built):
+    from wavetrail.report.html import remote_references
+
+    root, nb_path, _, page = built
+    assert remote_references(page) == []
+    assert "<script" not in page.lower()
+    assert "Content-Security-Policy" in page
+    text = nb_path.read_text(encoding="utf-8")
+    assert str(root) not in text and str(root) not in page
+    nb = nbformat.read(nb_path, as_version=4)
+    nbformat.validate(nb)
+    assert "papermill" not in nb.metadata
+    assert all(c.id == f"cell-{i:02d}" for i, c in enumerate(nb.cells, start=1))
+    assert not any(o.get("output_type") == "error" for c in nb.cells for o in c.get("outputs", []))
+
+
+def test_remote_references_are_found():
+    from wavetrail.report.html import remote_references
+
+    page = ('<img src="https://x.example/a.png"><link href="http://cdn/x.css"><style>@import "a.css";'
+            'b{background:url(https://f/x.woff)}</style><img src="data:image/png;base64,AAA"><a href="#s">s</a>')
+    assert len(remote_references(page)) == 4
+
+
+@pytest.mark.slow
+def test_same_inputs_give_the_same_bytes_in_another_folder(built, tmp_path):
+    root, nb_path, html_path, page = built
+    copy = make_project(tmp_path / "elsewhere" / "panel-copy")
+    nb2, html2 = render_project(copy)
+    assert nb2.read_bytes() == nb_path.read_bytes()
+    assert html2.read_text(encoding="utf-8") == page
+    for f in sorted((root / "results/reports/figures").iterdir()):
+        assert (copy / "results/reports/figures" / f.name).read_bytes() == f.read_bytes(), f.name
+
+
+# ---------------------------------------------------------------- absent or empty stages, failures
+@pytest.mark.slow
+def test_project_without_a_moderator_stage_reads_sensibly(tmp_path):
+    from wavetrail.plan import freeze_plan
+
+    root = make_project(tmp_path / "p", forest="absent")
+    freeze_plan(root, commit=False)
+    config = root / "config" / "config.yaml"
+    config.write_text(config.read_text().replace("min_cell: 5", "min_cell: 10"))
+    _, html_path = render_project(root, forest={"enabled": False}, min_cell=10)
+    page = html_path.read_text(encoding="utf-8")
+    assert "No moderator forest is configured for this project" in page
+    assert "Moderator forest</dt><dd>not configured" in page
+    assert "Traceback" not in page and 'id="importance"' not in page
+    assert ".992" in page  # the growth section is still there
+    # the deviation from the frozen plan is listed, with the frozen and the current value
+    plan = _cells(page, "plan")
+    assert [r[:3] for r in plan] == [["config/config.yaml", "report.min_cell", "changed"]]
+    assert plan[0][3:] == ["5", "10"]
+    assert "already existed" in page  # results were on disk before the plan was frozen
+    assert _cells(page, "descriptives")[1][2] == "< 10"  # the 3 answers on house rules, under min_cell 10
+
+
+@pytest.mark.slow
+def test_forest_without_a_split_reads_sensibly(tmp_path):
+    root = make_project(tmp_path / "p", forest="nothing")
+    _, html_path = render_project(root)
+    page = html_path.read_text(encoding="utf-8")
+    assert "The forest of 200 trees found no split" in page
+    assert "at \u03b1 = .05" in page
+    assert "This is a result, not an error" in page
+    assert "Traceback" not in page and 'id="figure-importance"' not in page
+
+
+@pytest.mark.slow
+def test_a_failing_cell_fails_the_build_and_names_the_cell(tmp_path):
+    root = make_project(tmp_path / "p")
+    est = pd.read_csv(root / "results/growth/estimates.csv").rename(columns={"parameter": "param"})
+    write_table(root / "results/growth/estimates.csv", est)
+    with pytest.raises(BuildError) as info:
+        render_project(root)
+    message = str(info.value)
+    assert "section-growth" in message and "report.growth()" in message
+    assert "KeyError" in message and "'parameter'" in message
+    assert not (root / "results/reports/report.html").exists()
+    assert not (root / "results/reports/report.ipynb").exists()
+    failed = nbformat.read(root / "logs/report/render_report.failed.ipynb", as_version=4)
+    assert any(o.get("output_type") == "error" for c in failed.cells for o in c.get("outputs", []))
+
+
+def test_a_given_table_that_is_missing_is_an_error(tmp_path):
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p")
+    with pytest.raises(BuildError, match="growth_fit is missing: results/growth/nope.csv"):
+        open_report(root, {"growth_fit": "results/growth/nope.csv"})
+
+
+@pytest.mark.slow
+def test_kernel_runs_on_this_interpreter(tmp_path):
+    import sys
+
+    from wavetrail.report.execute import execute_notebook
+
+    nb = nbformat.v4.new_notebook(cells=[
+        nbformat.v4.new_code_cell("answer = 0", metadata={"tags": ["parameters"]}),
+        nbformat.v4.new_code_cell("import sys\nprint(sys.executable, answer)")])
+    nb.metadata["kernelspec"] = {"name": "python3", "language": "python", "display_name": "any"}
+    src = tmp_path / "probe.ipynb"
+    nbformat.write(nb, src)
+    out = execute_notebook(src, {"answer": 42}, cwd=tmp_path)
+    assert out.cells[-1].outputs[0]["text"].strip() == f"{sys.executable} 42"
+
+
+@pytest.mark.slow
+def test_notebook_runs_on_its_own_from_its_folder(tmp_path):
+    # as a user running it in Jupyter: no parameters, working folder workflow/notebooks
+    from wavetrail.report.execute import execute_notebook
+
+    root = make_project(tmp_path / "p")
+    nb = execute_notebook(root / "workflow/notebooks/report.ipynb", {}, cwd=root / "workflow/notebooks")
+    shown = "".join(o["data"]["text/html"] for c in nb.cells if c.cell_type == "code" for o in c.outputs
+                    if "data" in o)
+    assert "Top moderator (exploratory)</dt><dd>Evening screen time" in shown
+    assert "Master seed</dt><dd>20261202" in shown  # read from config/config.yaml
+    assert "Mean of slope" in shown and "Covariance" not in shown
+    assert (root / "results/reports/figures/importance.png").is_file()
+
+
+# ---------------------------------------------------------------- the workflow step
+@pytest.mark.slow
+def test_render_report_step_writes_its_outputs(tmp_path):
+    from wavetrail.report.inputs import TABLE_PATHS
+    from wavetrail.stages.report import render_report
+    from wavetrail.stages.runner import Job
+
+    root = make_project(tmp_path / "p")
+    inputs = dict(TABLE_PATHS)
+    # names the rule also passes and the report does not read as tables
+    inputs.update(lock="environment/requirements.lock", codebook="config/codebook.yaml",
+                  registry="results/checks/data_registry.csv", notebook_source="workflow/notebooks/report.ipynb",
+                  growth_figure="results/growth/trajectories.png")
+    config = {"seed": 20261202, "codebook": "config/codebook.yaml", "report": {"min_cell": 5, "title": "Step test"},
+              "forest": {"enabled": True, "trees": 200, "outcome": "sleep_difficulty"}}
+    job = Job(step="render_report", project=root, input=inputs,
+              output={"notebook": "results/reports/report.ipynb", "html": "results/reports/report.html"},
+              config=config, log=Path("logs/report/render_report.log"))
+    render_report(job)
+    page = (root / "results/reports/report.html").read_text(encoding="utf-8")
+    assert "<title>Step test</title>" in page and ".992" in page
+    assert json.loads((root / "results/reports/report.ipynb").read_text())["metadata"]["kernelspec"]["name"] == "wavetrail-python"

@@ -1,0 +1,195 @@
+"""The report's HTML in a real browser: headless Chromium, driven over the DevTools protocol.
+
+Chromium runs with ``--remote-debugging-pipe``: commands and events are JSON
+messages separated by NUL bytes on file descriptors 3 (to the browser) and 4
+(from it), so no port is opened and no extra package is needed. The test checks
+that every figure loaded (``naturalWidth > 0``), that the page asked for nothing
+but ``file:`` and ``data:`` URLs, that the browser reported no blocked resource,
+and keeps a screenshot of the first screen in tests/artifacts/.
+
+A control page with one remote image proves that the check sees a request when
+there is one; a closed proxy and a resolver that resolves nothing keep even that
+request on the machine.
+"""
+
+from __future__ import annotations
+
+import base64
+import fcntl
+import json
+import os
+import queue
+import shutil
+import subprocess
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import pytest
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+ARTIFACTS = Path(__file__).resolve().parent / "artifacts"
+
+pytestmark = [
+    pytest.mark.slow,
+    pytest.mark.skipif(CHROMIUM is None, reason="chromium is not installed (apt-get install -y chromium; .ci/run does it)"),
+]
+
+FLAGS = [
+    "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+    "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-extensions",
+    "--disable-default-apps", "--mute-audio", "--hide-scrollbars",
+    # nothing may leave the machine, whatever the page asks for
+    "--proxy-server=http://127.0.0.1:9", "--host-resolver-rules=MAP * ~NOTFOUND",
+    "--window-size=1280,1000",
+]
+
+
+class Browser:
+    """A headless Chromium and one page, spoken to over the DevTools pipe."""
+
+    def __init__(self, profile: Path):
+        to_browser_r, self._to_browser = os.pipe()
+        self._from_browser, from_browser_w = os.pipe()
+
+        def child_fds():  # the pipe ends become fds 3 and 4 (via high copies, so none is overwritten)
+            high_r = fcntl.fcntl(to_browser_r, fcntl.F_DUPFD, 10)
+            high_w = fcntl.fcntl(from_browser_w, fcntl.F_DUPFD, 10)
+            os.dup2(high_r, 3)
+            os.dup2(high_w, 4)
+
+        self.proc = subprocess.Popen(
+            [CHROMIUM, *FLAGS, f"--user-data-dir={profile}", "--remote-debugging-pipe", "about:blank"],
+            pass_fds=(3, 4), preexec_fn=child_fds,  # 3, 4: the dup2 targets, kept open at exec
+            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        os.close(to_browser_r)
+        os.close(from_browser_w)
+        self._next = 0
+        self._replies: dict[int, dict] = {}
+        self.events: list[dict] = []
+        self._inbox: queue.Queue = queue.Queue()
+        threading.Thread(target=self._read, daemon=True).start()
+        target = self.call("Target.createTarget", url="about:blank")["targetId"]
+        self.session = self.call("Target.attachToTarget", targetId=target, flatten=True)["sessionId"]
+        for domain in ("Page", "Network", "Runtime", "Log"):
+            self.call(f"{domain}.enable", session=True)
+
+    def _read(self):
+        buf = b""
+        while True:
+            chunk = os.read(self._from_browser, 1 << 16)
+            if not chunk:
+                self._inbox.put(None)
+                return
+            buf += chunk
+            *messages, buf = buf.split(b"\0")
+            for m in messages:
+                self._inbox.put(json.loads(m))
+
+    def _pump(self, until, timeout: float):
+        end = time.monotonic() + timeout
+        while not until():
+            left = end - time.monotonic()
+            if left <= 0:
+                raise TimeoutError("chromium did not answer in time")
+            msg = self._inbox.get(timeout=left)
+            if msg is None:
+                raise RuntimeError("chromium closed the DevTools pipe")
+            if "id" in msg:
+                self._replies[msg["id"]] = msg
+            else:
+                self.events.append(msg)
+
+    def call(self, method: str, session: bool = False, timeout: float = 30, **params):
+        self._next += 1
+        ident = self._next
+        msg = {"id": ident, "method": method, "params": params}
+        if session:
+            msg["sessionId"] = self.session
+        os.write(self._to_browser, json.dumps(msg).encode() + b"\0")
+        self._pump(lambda: ident in self._replies, timeout)
+        reply = self._replies.pop(ident)
+        if "error" in reply:
+            raise RuntimeError(f"{method}: {reply['error']}")
+        return reply.get("result", {})
+
+    def open(self, url: str, timeout: float = 30):
+        seen = len(self.events)
+        self.call("Page.navigate", session=True, url=url)
+        self._pump(lambda: any(e.get("method") == "Page.loadEventFired" for e in self.events[seen:]), timeout)
+
+    def evaluate(self, expression: str):
+        result = self.call("Runtime.evaluate", session=True, expression=expression, returnByValue=True)
+        return result["result"]["value"]
+
+    def requested(self) -> list[str]:
+        return [e["params"]["request"]["url"] for e in self.events if e.get("method") == "Network.requestWillBeSent"]
+
+    def problems(self) -> list[str]:
+        out = [e["params"]["errorText"] + " " + e["params"].get("blockedReason", "")
+               for e in self.events if e.get("method") == "Network.loadingFailed"]
+        out += [e["params"]["entry"]["text"] for e in self.events
+                if e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error"]
+        return out
+
+    def close(self):
+        try:
+            self.call("Browser.close", timeout=10)
+        except (RuntimeError, TimeoutError):
+            pass
+        try:
+            self.proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            self.proc.kill()
+        os.close(self._to_browser)
+
+
+@pytest.fixture
+def browser():
+    profile = Path(tempfile.mkdtemp(prefix="wavetrail-chromium-"))
+    b = Browser(profile)
+    try:
+        yield b
+    finally:
+        b.close()
+        shutil.rmtree(profile, ignore_errors=True)
+
+
+IMAGES = "Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])"
+
+
+def test_report_renders_offline_with_every_figure(browser, tmp_path):
+    from test_report import make_project, render_project
+
+    root = make_project(tmp_path / "panel")
+    _, html_path = render_project(root)
+    browser.open(html_path.as_uri())
+    images = browser.evaluate(IMAGES)
+    assert len(images) == 4
+    assert all(done and w > 0 and h > 0 for done, w, h in images), images
+    # every figure is shown at a readable size, not squeezed
+    widths = browser.evaluate("Array.from(document.images).map(i => i.getBoundingClientRect().width)")
+    assert min(widths) > 300
+    urls = browser.requested()
+    assert urls and urls[0] == html_path.as_uri()
+    assert all(u.startswith(("file:", "data:")) for u in urls), urls
+    assert browser.problems() == []
+    title = browser.evaluate("document.title")
+    assert title == "Sleep panel (test)"
+    headings = browser.evaluate("Array.from(document.querySelectorAll('h2')).map(h => h.textContent)")
+    assert headings == ["1At a glance", "2Data and checks", "3Scales", "4Growth", "5Moderators", "6Provenance"]
+    shot = browser.call("Page.captureScreenshot", session=True, format="png")["data"]
+    ARTIFACTS.mkdir(exist_ok=True)
+    png = base64.b64decode(shot)
+    assert png[:8] == b"\x89PNG\r\n\x1a\n"
+    (ARTIFACTS / "report-first-page.png").write_bytes(png)
+
+
+def test_the_check_sees_a_remote_request(browser, tmp_path):
+    # control: without our page's policy, a remote image is requested (and fails on the closed proxy)
+    page = tmp_path / "control.html"
+    page.write_text('<!DOCTYPE html><html><body><img src="http://remote.invalid/x.png"></body></html>')
+    browser.open(page.as_uri())
+    assert "http://remote.invalid/x.png" in browser.requested()
+    assert browser.evaluate(IMAGES) == [[True, 0, 0]]

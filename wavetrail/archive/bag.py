@@ -1,0 +1,189 @@
+"""The BagIt side of an archive: make the bag, write it as one file, validate it.
+
+A bag (RFC 8493) is made in a staging folder that holds nothing but the
+payload we copied there: ``bagit.make_bag`` converts a folder in place and
+changes the working folder, so it never touches the project itself, and the
+working folder is restored afterwards. ``Bagging-Date`` and
+``Bag-Software-Agent`` are passed explicitly and the archive file is written
+with sorted members, fixed times and permissions, so the same project packs
+into the same bytes.
+
+Validation never trusts ``Payload-Oxum`` alone: every file's sha256 is
+recomputed, the manifests are compared with the files that are really there
+(naming each missing or unlisted file) and a bag with ``fetch.txt`` is refused.
+"""
+
+from __future__ import annotations
+
+import gzip
+import io
+import os
+import tarfile
+import zipfile
+from pathlib import Path
+
+import bagit
+
+from wavetrail.errors import ArchiveError
+
+ALGORITHM = "sha256"
+
+
+def make_bag(staging: Path, bag_info: dict, date: str, agent: str) -> None:
+    """Turn ``staging`` (holding only the payload) into a bag, in place.
+
+    Raises
+    ------
+    ArchiveError
+        When the staging folder holds a link, or bagit refuses it.
+    """
+    staging = Path(staging)
+    for path in staging.rglob("*"):
+        if path.is_symlink():
+            raise ArchiveError(f"{path.relative_to(staging).as_posix()}: a link cannot go into an archive",
+                               hint="replace the link by the file it points to")
+    info = dict(bag_info)
+    info["Bagging-Date"] = date
+    info["Bag-Software-Agent"] = agent
+    cwd = os.getcwd()
+    try:
+        bagit.make_bag(str(staging), bag_info=info, checksums=[ALGORITHM], processes=1)
+    except (bagit.BagError, OSError) as err:
+        raise ArchiveError(f"the bag could not be made: {err}") from None
+    finally:
+        os.chdir(cwd)
+
+
+def _files(folder: Path) -> list[tuple[str, Path]]:
+    return sorted((p.relative_to(folder).as_posix(), p) for p in folder.rglob("*") if p.is_file())
+
+
+def write_archive(bag_dir: Path, output: Path, top: str, mtime: int) -> Path:
+    """Write the bag as ``output`` (.zip or .tar.gz) under the folder name ``top``.
+
+    Members are sorted, dated ``mtime`` (seconds since 1970, UTC), with mode
+    0644 and no owner names, so the file is byte-stable.
+    """
+    from wavetrail._io import atomic_write_bytes
+
+    name = output.name.lower()
+    buf = io.BytesIO()
+    members = _files(bag_dir)
+    if name.endswith(".zip"):
+        import time
+
+        stamp = time.gmtime(max(mtime, 315532800))[:6]  # zip cannot date before 1980
+        with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_DEFLATED) as zf:
+            for rel, path in members:
+                info = zipfile.ZipInfo(f"{top}/{rel}", date_time=stamp)
+                info.compress_type = zipfile.ZIP_DEFLATED
+                info.external_attr = (0o100644 & 0xFFFF) << 16
+                info.create_system = 3
+                zf.writestr(info, path.read_bytes())
+    elif name.endswith(".tar.gz") or name.endswith(".tgz"):
+        raw = io.BytesIO()
+        with tarfile.open(fileobj=raw, mode="w", format=tarfile.PAX_FORMAT) as tf:
+            for rel, path in members:
+                data = path.read_bytes()
+                info = tarfile.TarInfo(f"{top}/{rel}")
+                info.size = len(data)
+                info.mtime = mtime
+                info.mode = 0o644
+                info.uid = info.gid = 0
+                info.uname = info.gname = ""
+                tf.addfile(info, io.BytesIO(data))
+        with gzip.GzipFile(fileobj=buf, mode="wb", mtime=0, filename="") as gz:
+            gz.write(raw.getvalue())
+    else:
+        raise ArchiveError(f"{output}: the archive must end in .zip or .tar.gz",
+                           hint="pass -o NAME.zip or -o NAME.tar.gz")
+    return atomic_write_bytes(output, buf.getvalue())
+
+
+def find_bag(folder: Path) -> Path:
+    """The bag inside an extraction folder: the folder itself or its single top folder."""
+    folder = Path(folder)
+    if (folder / "bagit.txt").is_file():
+        return folder
+    subs = [p for p in folder.iterdir()]
+    if len(subs) == 1 and subs[0].is_dir() and (subs[0] / "bagit.txt").is_file():
+        return subs[0]
+    raise ArchiveError("the archive holds no BagIt bag (no bagit.txt at its top)",
+                       hint="give an archive written by `wavetrail pack`")
+
+
+def _read_manifest(path: Path, top: str) -> dict[str, str]:
+    entries: dict[str, str] = {}
+    for number, line in enumerate(path.read_text(encoding="utf-8").splitlines(), start=1):
+        if not line.strip():
+            continue
+        digest, sep, rel = line.partition(" ")
+        rel = rel.lstrip(" *")
+        if not sep or not rel:
+            raise ArchiveError(f"{top}/{path.name}, line {number}: not '<hash> <path>'")
+        entries[rel] = digest.lower()
+    return entries
+
+
+def validate_bag(bag_dir: Path, top: str) -> list[dict]:
+    """Every problem with the bag: ``[{"target": member, "detail": text}]`` (empty when valid).
+
+    Checks, in order: no ``fetch.txt``; a sha256 manifest exists; every
+    payload file is listed and every listed file exists (names each one);
+    then ``bagit``'s full validation (every checksum recomputed, tag
+    manifests included; never the fast Payload-Oxum check alone).
+    """
+    bag_dir = Path(bag_dir)
+    problems: list[dict] = []
+    if (bag_dir / "fetch.txt").exists():
+        return [{"target": f"{top}/fetch.txt",
+                 "detail": "the bag lists files to fetch from elsewhere (fetch.txt); a reviewer archive "
+                           "must hold every file itself"}]
+    manifest = bag_dir / f"manifest-{ALGORITHM}.txt"
+    if not manifest.is_file():
+        return [{"target": f"{top}/manifest-{ALGORITHM}.txt", "detail": "no sha256 payload manifest"}]
+    try:
+        listed = _read_manifest(manifest, top)
+    except (ArchiveError, UnicodeDecodeError) as err:
+        return [{"target": f"{top}/{manifest.name}", "detail": str(err)}]
+    present = {rel for rel, _ in _files(bag_dir / "data")} if (bag_dir / "data").is_dir() else set()
+    present = {f"data/{rel}" for rel in present}
+    for rel in sorted(set(listed) - present):
+        problems.append({"target": f"{top}/{rel}", "detail": "listed in the manifest but missing from the archive"})
+    for rel in sorted(present - set(listed)):
+        problems.append({"target": f"{top}/{rel}", "detail": "in the archive but not listed in the manifest "
+                                                             "(added after packing?)"})
+    try:
+        bag = bagit.Bag(str(bag_dir))
+        bag.validate(processes=1, fast=False)
+    except bagit.BagValidationError as err:
+        details = getattr(err, "details", None) or []
+        for d in details:
+            path = getattr(d, "path", None)
+            target = f"{top}/{path}" if path else top
+            if any(p["target"] == target for p in problems):
+                continue
+            problems.append({"target": target, "detail": str(d)})
+        if not details and not problems:
+            problems.append({"target": top, "detail": f"bag validation failed: {err.message}"})
+    except bagit.BagError as err:
+        problems.append({"target": top, "detail": f"not a valid bag: {err}"})
+    return problems
+
+
+def read_bag_info(bag_dir: Path) -> dict[str, str]:
+    """``bag-info.txt`` as a dict (first value of each key)."""
+    path = Path(bag_dir) / "bag-info.txt"
+    info: dict[str, str] = {}
+    if not path.is_file():
+        return info
+    key = None
+    for line in path.read_text(encoding="utf-8").splitlines():
+        if line[:1] in (" ", "\t") and key:
+            info[key] += " " + line.strip()
+            continue
+        k, sep, v = line.partition(":")
+        if sep:
+            key = k.strip()
+            info.setdefault(key, v.strip())
+    return info

@@ -1,0 +1,272 @@
+"""``wavetrail build``: run the project's Snakemake workflow and report what happened.
+
+Snakemake is started as a subprocess of the same interpreter
+(``sys.executable -m snakemake``), because only its command line reads profiles
+(``workflow/profiles/default`` automatically, another one with ``--profile NAME``).
+The settings are validated and the data files looked for before Snakemake starts,
+so a user mistake gives one clean message. A failed job is reported by rule name
+with the end of its log.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import subprocess
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Sequence
+
+from wavetrail.errors import BuildError, DataError, UsageError
+
+__all__ = ["BuildResult", "build_project", "snakemake_command", "BUILD_LOG"]
+
+#: the full Snakemake output of the last build, relative to the project
+BUILD_LOG = "logs/wavetrail-build.log"
+
+_RULE = re.compile(r"^\s*(?:local)?rule (\w+):\s*$")
+_PROGRESS = re.compile(r"(\d+) of (\d+) steps \((\d+(?:\.\d+)?)%\) done")
+_ERROR_RULE = re.compile(r"Error in rule (\w+):")
+_LOG_LINE = re.compile(r"^\s*log:\s*(\S+)")
+_TOTAL = re.compile(r"^total\s+(\d+)\s*$")
+_FINISHED = re.compile(r"Finished jobid: \d+ \(Rule: (\w+)\)")
+_STEP_FAILED = re.compile(r"wavetrail step (\w+) failed: (.*)")
+
+
+@dataclass
+class BuildResult:
+    """What one build did.
+
+    Attributes
+    ----------
+    project : Path
+        The project root.
+    jobs : list of str
+        The rule of every job that ran, in the order they started (empty when the
+        project was up to date).
+    seconds : float
+        Wall-clock time of the Snakemake run.
+    returncode : int
+        Snakemake's exit status (0 here; a failure raises :class:`BuildError`).
+    log : Path
+        The full Snakemake output (``logs/wavetrail-build.log``).
+    """
+
+    project: Path
+    jobs: list = field(default_factory=list)
+    seconds: float = 0.0
+    returncode: int = 0
+    log: Path | None = None
+
+    @property
+    def up_to_date(self) -> bool:
+        return not self.jobs
+
+    @property
+    def report(self) -> Path | None:
+        path = self.project / "results" / "reports" / "report.html"
+        return path if path.is_file() else None
+
+    @property
+    def summary(self) -> str:
+        """A few lines for the terminal."""
+        if self.up_to_date:
+            head = f"nothing to do: every output of {self.project} is up to date ({self.seconds:.1f} s)"
+        else:
+            counts: dict[str, int] = {}
+            for rule in self.jobs:
+                counts[rule] = counts.get(rule, 0) + 1
+            ran = ", ".join(f"{r}" + (f" x{c}" if c > 1 else "") for r, c in counts.items())
+            head = f"built {len(self.jobs)} job{'s' if len(self.jobs) != 1 else ''} in {self.seconds:.1f} s: {ran}"
+        lines = [head]
+        if self.report is not None:
+            lines.append(f"report: {self.report}")
+        return "\n".join(lines)
+
+
+def snakemake_command(root: Path, cores: int = 1, profile: str | None = None,
+                      extra: Sequence[str] = ()) -> list[str]:
+    """The Snakemake command line of a build (run with the project as working folder)."""
+    cmd = [sys.executable, "-m", "snakemake", "--snakefile", "workflow/Snakefile", "--cores", str(int(cores))]
+    if profile:
+        cmd += ["--workflow-profile", str(_profile_dir(root, profile))]
+    cmd += list(extra)
+    return cmd
+
+
+def _profile_dir(root: Path, profile: str) -> Path:
+    candidate = Path(profile).expanduser()
+    if not candidate.is_absolute():
+        named = root / "workflow" / "profiles" / profile
+        candidate = named if named.is_dir() else (Path.cwd() / candidate)
+    if not (candidate / "config.yaml").is_file():
+        known = sorted(p.name for p in (root / "workflow" / "profiles").glob("*") if (p / "config.yaml").is_file())
+        raise UsageError(f"no profile {profile!r}: {candidate / 'config.yaml'} does not exist",
+                         hint=f"profiles of this project: {', '.join(known) or 'none'} (folders under workflow/profiles/)")
+    return candidate.resolve()
+
+
+def _check_inputs(root: Path) -> dict:
+    """Validate the settings and look for the data files before Snakemake starts."""
+    from wavetrail.config import CONFIG_FILE, load_config, read_yaml
+
+    config = load_config(root)
+    _, lines = read_yaml(root / CONFIG_FILE)
+    for i, name in enumerate(config["data"]):
+        if not (root / name).is_file():
+            line = lines.get(("data", i)) or lines.get(("data",))
+            where = f"{CONFIG_FILE}, line {line}" if line else CONFIG_FILE
+            raise DataError(f"data file {name} does not exist (listed under `data` in {where})",
+                            hint="copy the raw file there and register it with `wavetrail data add`, "
+                                 "or correct the path in config/config.yaml")
+    if not (root / config["codebook"]).is_file():
+        raise DataError(f"codebook {config['codebook']} does not exist (key `codebook` in {CONFIG_FILE})",
+                        hint="write one, or draft it with `wavetrail new --data FILE` in a fresh folder")
+    return config
+
+
+def build_project(
+    path: str | Path = ".",
+    cores: int = 1,
+    profile: str | None = None,
+    extra: Sequence[str] = (),
+    *,
+    progress: Callable[[str], None] | None = None,
+    check: bool = True,
+) -> BuildResult:
+    """Bring every output of a project up to date with Snakemake.
+
+    Parameters
+    ----------
+    path
+        The project folder (or a folder inside it).
+    cores
+        Cores Snakemake may use at once.
+    profile
+        A profile folder under ``workflow/profiles/`` (e.g. ``slurm``) or a path to one;
+        ``None`` uses ``workflow/profiles/default``.
+    extra
+        More arguments for Snakemake (``wavetrail build -- ARGS``).
+    progress
+        Called with a short line ("[3/14] fit_growth") whenever a job starts or a step
+        completes; the CLI prints them.
+    check
+        Validate the settings and look for the data files first.
+
+    Returns
+    -------
+    BuildResult
+
+    Raises
+    ------
+    ProjectError, ConfigError, DataError, UsageError
+        Before Snakemake starts: not a project, bad settings, a missing file, no such profile.
+    BuildError
+        A job failed: the message names the rule and ends with the end of its log.
+    """
+    from wavetrail.project import find_project
+
+    root = find_project(path)
+    if cores < 1:
+        raise UsageError(f"--cores must be at least 1, not {cores}")
+    if check:
+        _check_inputs(root)
+    cmd = snakemake_command(root, cores=cores, profile=profile, extra=extra)
+    env = dict(os.environ)
+    bindir = str(Path(sys.executable).parent)
+    env["PATH"] = bindir + os.pathsep + env.get("PATH", "")  # `python` in any shell command = this one
+    env.setdefault("MPLBACKEND", "Agg")
+    env["PYTHONUNBUFFERED"] = "1"
+    log_path = root / BUILD_LOG
+    log_path.parent.mkdir(parents=True, exist_ok=True)
+
+    jobs: list[str] = []
+    output: list[str] = []
+    total = None
+    started = time.monotonic()
+    with open(log_path, "w", encoding="utf-8") as log:
+        proc = subprocess.Popen(cmd, cwd=root, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+                                text=True, encoding="utf-8", errors="replace", bufsize=1)
+        assert proc.stdout is not None
+        finished_rule = None
+        for line in proc.stdout:
+            log.write(line)
+            output.append(line.rstrip("\n"))
+            m = _RULE.match(line)
+            if m:
+                if m.group(1) != "all":
+                    jobs.append(m.group(1))
+                    if progress:
+                        progress(f"[{_done_count(output)}/{total or '?'}] started  {m.group(1)}")
+                continue
+            m = _TOTAL.match(line)
+            if m and total is None:
+                total = int(m.group(1))
+                continue
+            m = _FINISHED.search(line)
+            if m:
+                finished_rule = m.group(1)
+                continue
+            m = _PROGRESS.search(line)
+            if m:
+                total = int(m.group(2))
+                if progress and finished_rule != "all":
+                    progress(f"[{m.group(1)}/{m.group(2)}] finished {finished_rule or ''}".rstrip())
+        returncode = proc.wait()
+    seconds = time.monotonic() - started
+    if returncode != 0:
+        raise BuildError(_failure_message(root, output, returncode))
+    return BuildResult(project=root, jobs=jobs, seconds=seconds, returncode=0, log=log_path)
+
+
+def _done_count(output: list[str]) -> int:
+    for line in reversed(output):
+        m = _PROGRESS.search(line)
+        if m:
+            return int(m.group(1))
+    return 0
+
+
+def _tail(path: Path, n: int = 25) -> str:
+    try:
+        lines = path.read_text(encoding="utf-8", errors="replace").splitlines()
+    except OSError:
+        return ""
+    return "\n".join(lines[-n:])
+
+
+def _failure_message(root: Path, output: list[str], returncode: int) -> str:
+    text = "\n".join(output)
+    failed_rule = None
+    log_file = None
+    for i, line in enumerate(output):
+        m = _ERROR_RULE.search(line)
+        if m and failed_rule is None:
+            failed_rule = m.group(1)
+            for follow in output[i + 1 : i + 15]:
+                lm = _LOG_LINE.match(follow)
+                if lm:
+                    log_file = lm.group(1)
+                    break
+    step_errors = [m.group(2) for m in map(_STEP_FAILED.search, output) if m]
+    if failed_rule:
+        parts = [f"the workflow stopped: rule {failed_rule} failed"]
+        if step_errors:
+            parts.append(step_errors[0])
+        if log_file:
+            tail = _tail(root / log_file)
+            if tail:
+                parts.append(f"end of {log_file}:\n" + _indent(tail))
+        parts.append(f"full Snakemake output: {BUILD_LOG}")
+        return "\n".join(parts)
+    if "LockException" in text or "Directory cannot be locked" in text:
+        return ("the project folder is locked by another Snakemake run (or one that was killed)\n"
+                "  -> if no other build is running, unlock it with `wavetrail build -- --unlock`")
+    tail = "\n".join(line for line in output[-25:])
+    return f"Snakemake stopped with exit status {returncode} before running a job:\n{_indent(tail)}\nfull output: {BUILD_LOG}"
+
+
+def _indent(text: str) -> str:
+    return "\n".join("    " + line for line in text.splitlines())

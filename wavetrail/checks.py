@@ -1,0 +1,421 @@
+"""The check suite: raw panel data against its codebook.
+
+:func:`run_checks` returns the findings table (variable, wave, check,
+severity, count, rows, message); :func:`describe` and :func:`attrition`
+give the descriptives and attrition tables. Severities: ``error`` stops the
+build, ``warning`` asks for a look, ``info`` reports what was done.
+
+Checks (the ``check`` column):
+
+=========================  ========  =============================================
+check                      severity  what it finds
+=========================  ========  =============================================
+unknown_column             warning   a file column the codebook does not list
+missing_column             error     a codebook variable a file lacks at a wave
+type_mismatch              error     a value that is not of the declared type
+out_of_range               error     a number outside the declared range
+unknown_level              error     a category code not among the levels
+suspected_missing_code     error     -9, 99, 999, ... outside the range and not
+                                     declared under ``missing`` (warning when the
+                                     variable has no range)
+missing_code               info      declared missing codes turned into NaN
+unexpected_wave            warning   values at a wave the variable is not listed for
+missing_id                 error     a record without a person id
+unknown_wave               error     a wave value not in ``study.waves``
+duplicate_id               error     the same (id, wave) more than once
+late_entry                 warning   ids first seen after the first wave
+wave_coverage              info      people per wave (warning for an empty wave)
+attrition                  info      share of first-wave people still present
+straight_lining            warning   the same answer to every item of a scale
+identifier                 info      a direct identifier: never written out
+=========================  ========  =============================================
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from wavetrail.codebook import Codebook, Variable, load_codebook
+from wavetrail.panel import FILE, ROW, WAVE_RAW, Panel, load_panel, match_missing, wave_key, level_of
+
+__all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
+           "looks_like_missing_code"]
+
+FINDING_COLUMNS = ["variable", "wave", "check", "severity", "count", "rows", "message"]
+SEVERITIES = ("error", "warning", "info")
+#: example rows given per finding
+MAX_ROWS = 5
+#: least number of items for the straight-lining check (common practice: not for 2-item scales)
+MIN_STRAIGHT_ITEMS = 3
+
+
+def looks_like_missing_code(values) -> np.ndarray:
+    """True for numbers written the way missing codes are (common practice, no source).
+
+    Negative numbers -1 ... -9 and repeated digits of 7, 8 or 9 (77, 88, 99,
+    97, 98, 777, 999, 9999, ... with either sign).
+    """
+    v = np.asarray(values, dtype=float)
+    out = np.zeros(v.shape, dtype=bool)
+    ok = np.isfinite(v) & (v == np.round(v))
+    a = np.abs(np.where(ok, v, 0)).astype(np.int64)
+    for i in np.flatnonzero(ok):
+        s = str(a[i])
+        if v[i] < 0 and a[i] <= 9 and a[i] >= 1:
+            out[i] = True
+        elif len(s) >= 2 and (set(s) <= {"9"} or set(s) <= {"8"} or set(s) <= {"7"}
+                              or (set(s[:-1]) <= {"9"} and s[-1] in "78")):
+            out[i] = True
+    return out
+
+
+def has_errors(findings: pd.DataFrame) -> bool:
+    """True when any finding has severity ``error``."""
+    return bool(len(findings)) and bool((findings["severity"] == "error").any())
+
+
+class _Collector:
+    def __init__(self):
+        self.rows: list[dict] = []
+
+    def add(self, check, severity, message, variable="", wave=None, count=1, rows=""):
+        self.rows.append({"variable": variable, "wave": wave, "check": check, "severity": severity,
+                          "count": int(count), "rows": rows, "message": message})
+
+    def frame(self) -> pd.DataFrame:
+        df = pd.DataFrame(self.rows, columns=FINDING_COLUMNS)
+        df["wave"] = pd.Series([None if w is None or (isinstance(w, float) and np.isnan(w)) else w
+                                for w in df["wave"]], dtype=object)
+        if not len(df):
+            return df.astype({"count": "int64"})
+        rank = df["severity"].map({s: i for i, s in enumerate(SEVERITIES)})
+        wave_sort = df["wave"].map(lambda w: "" if w is None or (isinstance(w, float) and np.isnan(w))
+                                   else str(w).zfill(8))
+        order = pd.DataFrame({"r": rank, "c": df["check"], "v": df["variable"].astype(str),
+                              "w": wave_sort, "m": df["message"]})
+        idx = order.sort_values(["r", "c", "v", "w", "m"], kind="mergesort").index
+        return df.loc[idx].reset_index(drop=True)
+
+
+def _where(rec: pd.DataFrame, mask) -> str:
+    sub = rec.loc[np.asarray(mask, dtype=bool), [FILE, ROW]].head(MAX_ROWS)
+    return "; ".join(f"{f}:{int(r)}" for f, r in zip(sub[FILE], sub[ROW]))
+
+
+def _examples(values, n=3) -> str:
+    seen = []
+    for v in values:
+        t = _show(v)
+        if t not in seen:
+            seen.append(t)
+        if len(seen) == n:
+            break
+    return ", ".join(seen)
+
+
+def _show(v) -> str:
+    if isinstance(v, (float, np.floating)) and float(v).is_integer():
+        return str(int(v))
+    return repr(v) if isinstance(v, str) else str(v)
+
+
+def run_checks(panel_or_paths, codebook: Codebook | str | None = None) -> pd.DataFrame:
+    """Check panel data against the codebook.
+
+    Parameters
+    ----------
+    panel_or_paths : Panel, or path(s) / DataFrame(s) for :func:`load_panel`
+    codebook : Codebook or path, optional
+        Needed when ``panel_or_paths`` is not a Panel.
+
+    Returns
+    -------
+    DataFrame
+        Findings: variable, wave, check, severity, count, rows (up to five
+        ``file:row`` examples), message; sorted errors first.
+    """
+    if isinstance(panel_or_paths, Panel):
+        panel = panel_or_paths
+    else:
+        if codebook is None:
+            raise TypeError("run_checks needs a codebook when given data files")
+        if not isinstance(codebook, Codebook):
+            codebook = load_codebook(codebook)
+        panel = load_panel(panel_or_paths, codebook)
+    cb = panel.codebook
+    out = _Collector()
+    rec = panel.records.reset_index(drop=True)
+    lookup = {wave_key(w): w for w in cb.study.waves}
+    wave = rec[WAVE_RAW].map(lambda v: lookup.get(wave_key(v)))
+    rec = rec.assign(__wave=wave)
+
+    _structure(panel, out)
+    _ids_and_waves(panel, rec, out)
+    for var in cb.data_variables():
+        if var.name in rec.columns and var.name != panel.wave:
+            _values(var, rec, out, cb)
+    _coverage(panel, out)
+    _straight_lining(panel, out)
+    for name in cb.identifiers:
+        out.add("identifier", "info", f"{name} is marked identifier: it is read for the checks "
+                "but never written to an output or an archive", variable=name)
+    return out.frame()
+
+
+def _structure(panel: Panel, out: _Collector) -> None:
+    import difflib
+
+    cb = panel.codebook
+    known = list(cb.variables)
+    for src in panel.sources:
+        single = src.waves[0] if len(src.waves) == 1 else None
+        for col in src.unknown:
+            close = difflib.get_close_matches(col, known, n=1)
+            hint = f"; renamed {close[0]}?" if close else ""
+            out.add("unknown_column", "warning",
+                    f"column {col!r} in {src.name} is not in the codebook{hint} "
+                    "(add it to the codebook or drop it)", variable=col, wave=single,
+                    count=int(src.table.frame[col].notna().sum()) if col in src.table.frame else 1,
+                    rows=src.name)
+        by_var: dict[str, list] = {}
+        for name, w in src.absent:
+            by_var.setdefault(name, []).append(w)
+        for name, ws in by_var.items():
+            measured = [w for w in src.waves if cb.variables[name].measured_at(w)]
+            if src.layout == "wide" or len(ws) < len(measured) or len(src.waves) == 1:
+                for w in ws:
+                    col = cb.study.wide_column(name, w) if src.layout == "wide" else name
+                    out.add("missing_column", "error",
+                            f"{src.name} has no column {col!r} for wave {w} (codebook {cb.where(name)})",
+                            variable=name, wave=w, rows=src.name)
+            else:
+                out.add("missing_column", "error",
+                        f"{src.name} has no column {name!r} (codebook {cb.where(name)})",
+                        variable=name, rows=src.name)
+
+
+def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
+    sid, cb = panel.id, panel.codebook
+    no_id = rec[sid].isna().to_numpy()
+    if no_id.any():
+        out.add("missing_id", "error", f"{int(no_id.sum())} record(s) have no {sid}",
+                variable=sid, count=int(no_id.sum()), rows=_where(rec, no_id))
+    bad_wave = rec["__wave"].isna().to_numpy() & ~no_id
+    if bad_wave.any():
+        vals = _examples(rec.loc[bad_wave, WAVE_RAW])
+        out.add("unknown_wave", "error",
+                f"{int(bad_wave.sum())} record(s) have a wave not in study.waves {list(cb.study.waves)} "
+                f"(e.g. {vals})", variable=panel.wave, count=int(bad_wave.sum()), rows=_where(rec, bad_wave))
+    ok = ~no_id & ~bad_wave
+    sub = rec[ok]
+    keys = sub[sid].astype(str) + "\x1f" + sub["__wave"].map(wave_key)
+    dup_all = keys.duplicated(keep=False).to_numpy()
+    if dup_all.any():
+        extra = keys.duplicated(keep="first").to_numpy()
+        for w in cb.study.waves:
+            in_w = (sub["__wave"] == w).to_numpy()
+            n = int((extra & in_w).sum())
+            if n:
+                ids = _examples(sub.loc[dup_all & in_w, sid], n=3)
+                out.add("duplicate_id", "error",
+                        f"{n} extra record(s) repeat an ({sid}, wave) pair at wave {w} (e.g. {sid} {ids}); "
+                        "only the first is used", variable=sid, wave=w, count=n,
+                        rows=_where(sub, dup_all & in_w))
+    first_wave = cb.study.waves[0]
+    order = {w: i for i, w in enumerate(cb.study.waves)}
+    first_seen = sub.assign(__o=sub["__wave"].map(order)).groupby(sid)["__o"].min()
+    late = first_seen[first_seen > 0]
+    if len(late):
+        for o, grp in late.groupby(late):
+            w = cb.study.waves[int(o)]
+            mask = sub[sid].isin(grp.index).to_numpy() & (sub["__wave"] == w).to_numpy()
+            out.add("late_entry", "warning",
+                    f"{len(grp)} id(s) first appear at wave {w}, not at wave {first_wave} "
+                    f"(e.g. {sid} {_examples(grp.index)})", variable=sid, wave=w, count=len(grp),
+                    rows=_where(sub, mask))
+
+
+def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> None:
+    raw = rec[var.name]
+    wave = rec["__wave"]
+    empty = raw.isna().to_numpy()
+    code = match_missing(raw, var).notna().to_numpy()
+    filled = ~empty & ~code
+
+    def emit(check, severity, mask, message):
+        for w in list(cb.study.waves) + [None]:
+            in_w = wave.isna().to_numpy() if w is None else (wave == w).to_numpy()
+            m = mask & in_w
+            n = int(m.sum())
+            if n:
+                vals = _examples(raw[m])
+                out.add(check, severity, message(n, vals), variable=var.name, wave=w, count=n,
+                        rows=_where(rec, m))
+
+    if code.any():
+        hits = match_missing(raw, var)
+        for w in cb.study.waves:
+            in_w = (wave == w).to_numpy()
+            m = code & in_w
+            if m.any():
+                counts = hits[m].value_counts(sort=False)
+                parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in counts.items()]
+                out.add("missing_code", "info", f"{int(m.sum())} value(s) set to missing: " + ", ".join(parts),
+                        variable=var.name, wave=w, count=int(m.sum()), rows=_where(rec, m))
+
+    if var.waves is not None:
+        off = filled & wave.notna().to_numpy() & ~wave.isin(list(var.waves)).to_numpy()
+        emit("unexpected_wave", "warning", off,
+             lambda n, v: f"{n} value(s) at a wave the codebook does not list for {var.name} "
+                          f"(waves {list(var.waves)})")
+
+    if var.type in ("integer", "number"):
+        num = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+        bad = filled & np.isnan(num)
+        if var.type == "integer":
+            bad = bad | (filled & np.isfinite(num) & (num != np.round(num)))
+        emit("type_mismatch", "error", bad,
+             lambda n, v: f"{n} value(s) are not {'whole numbers' if var.type == 'integer' else 'numbers'} "
+                          f"(e.g. {v})")
+        ok = filled & np.isfinite(num)
+        codelike = looks_like_missing_code(num)
+        if var.range is not None:
+            lo, hi = var.range
+            if hi < 9:  # a lone 9 on a short item is a classic "no answer" code
+                codelike = codelike | (num == 9)
+            outside = ok & ((num < lo) | (num > hi))
+            emit("suspected_missing_code", "error", outside & codelike,
+                 lambda n, v: f"{n} value(s) look like missing codes not declared under `missing` "
+                              f"(e.g. {v} on a {lo}-{hi} item); declare them or correct the data")
+            emit("out_of_range", "error", outside & ~codelike,
+                 lambda n, v: f"{n} value(s) outside the range [{lo}, {hi}] (e.g. {v})")
+        else:
+            neg = ok & (num < 0) & codelike
+            if neg.any() and (ok & (num >= 0)).sum() > 0 and not (ok & (num < 0) & ~codelike).any():
+                emit("suspected_missing_code", "warning", neg,
+                     lambda n, v: f"{n} negative value(s) that look like missing codes (e.g. {v}) among "
+                                  "otherwise non-negative values; declare them under `missing` or give a range")
+    elif var.type == "category":
+        codes = list(var.levels)
+        level = raw.map(lambda v: level_of(v, codes))
+        unknown = filled & level.isna().to_numpy()
+        num = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+        codelike = looks_like_missing_code(num) & unknown
+        emit("suspected_missing_code", "error", codelike,
+             lambda n, v: f"{n} value(s) look like missing codes not declared under `missing` (e.g. {v}); "
+                          "declare them or correct the data")
+        emit("unknown_level", "error", unknown & ~codelike,
+             lambda n, v: f"{n} value(s) are not among the levels {', '.join(map(_show, codes))} (e.g. {v})")
+    elif var.type == "date":
+        text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
+        parsed = pd.to_datetime(text, errors="coerce", format="ISO8601")
+        bad = filled & parsed.isna().to_numpy()
+        emit("type_mismatch", "error", bad,
+             lambda n, v: f"{n} value(s) are not dates (YYYY-MM-DD) (e.g. {v})")
+
+
+def _coverage(panel: Panel, out: _Collector) -> None:
+    table = attrition(panel)
+    for row in table.itertuples(index=False):
+        if row.n_present == 0:
+            out.add("wave_coverage", "warning", f"no one has a record at wave {row.wave}",
+                    variable=panel.wave, wave=row.wave, count=0)
+        else:
+            out.add("wave_coverage", "info", f"{row.n_present} people at wave {row.wave}",
+                    variable=panel.wave, wave=row.wave, count=int(row.n_present))
+    first = panel.waves[0]
+    n_first = int(table["n_present"].iloc[0])
+    for row in table.itertuples(index=False):
+        if row.wave == first or n_first == 0:
+            continue
+        out.add("attrition", "info",
+                f"{row.n_retained} of {n_first} wave-{first} people present at wave "
+                f"{row.wave} (retention {row.retention:.1%})", variable=panel.wave, wave=row.wave,
+                count=n_first - int(row.n_retained))
+
+
+def _straight_lining(panel: Panel, out: _Collector) -> None:
+    long = panel.long
+    for name, scale in panel.codebook.scales.items():
+        if len(scale.items) < MIN_STRAIGHT_ITEMS:
+            continue
+        x = long[list(scale.items)].to_numpy(dtype=float)
+        complete = np.isfinite(x).all(axis=1)
+        same = complete & (np.nanmax(np.where(complete[:, None], x, 0), axis=1)
+                           == np.nanmin(np.where(complete[:, None], x, 0), axis=1))
+        for w in panel.waves:
+            m = same & (long[panel.wave] == w).to_numpy()
+            n = int(m.sum())
+            if n:
+                ids = _examples(long.loc[m, panel.id])
+                out.add("straight_lining", "warning",
+                        f"{n} people gave the same answer to all {len(scale.items)} items of {name} "
+                        f"(e.g. {panel.id} {ids})", variable=name, wave=w, count=n,
+                        rows=f"{panel.id} " + ", ".join(map(_show, long.loc[m, panel.id].head(MAX_ROWS))))
+
+
+# --------------------------------------------------------------------------- tables
+
+
+def attrition(panel: Panel) -> pd.DataFrame:
+    """People per wave.
+
+    Returns
+    -------
+    DataFrame
+        wave, n_present, n_missing (seen at some wave but not this one),
+        n_retained (first-wave people present), retention (n_retained over
+        the first-wave count), n_new (first seen at this wave), n_dropped
+        (present at the previous wave, absent now).
+    """
+    long = panel.long
+    all_ids = set(long[panel.id])
+    present = {w: set(long.loc[long[panel.wave] == w, panel.id]) for w in panel.waves}
+    first = present[panel.waves[0]]
+    seen: set = set()
+    rows = []
+    prev = None
+    for w in panel.waves:
+        ids = present[w]
+        rows.append({"wave": w, "n_present": len(ids), "n_missing": len(all_ids - ids),
+                     "n_retained": len(ids & first),
+                     "retention": (len(ids & first) / len(first)) if first else float("nan"),
+                     "n_new": len(ids - seen), "n_dropped": len(prev - ids) if prev is not None else 0})
+        seen |= ids
+        prev = ids
+    return pd.DataFrame(rows)
+
+
+def describe(panel: Panel) -> pd.DataFrame:
+    """Descriptives per variable and wave (identifier and text columns left out).
+
+    Returns
+    -------
+    DataFrame
+        variable, wave, n, missing, mean, sd, min, max, levels (``code:count``
+        for categories).
+    """
+    long = panel.long
+    rows = []
+    for var in panel.codebook.data_variables():
+        if var.identifier or var.type in ("text",) or var.name not in long.columns:
+            continue
+        for w in panel.waves:
+            if not var.measured_at(w):
+                continue
+            col = long.loc[long[panel.wave] == w, var.name]
+            row = {"variable": var.name, "wave": w, "n": int(col.notna().sum()),
+                   "missing": int(col.isna().sum()), "mean": np.nan, "sd": np.nan,
+                   "min": np.nan, "max": np.nan, "levels": ""}
+            if var.type in ("integer", "number"):
+                x = col.to_numpy(dtype=float)
+                x = x[np.isfinite(x)]
+                if len(x):
+                    row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
+                               sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
+            elif var.type == "category":
+                counts = col.value_counts(sort=False)
+                row["levels"] = "; ".join(f"{_show(k)}:{int(v)}" for k, v in counts.items())
+            rows.append(row)
+    return pd.DataFrame(rows, columns=["variable", "wave", "n", "missing", "mean", "sd", "min", "max", "levels"])

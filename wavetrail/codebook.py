@@ -1,0 +1,648 @@
+"""The codebook: what every variable of a panel study is, loaded from YAML.
+
+:func:`load_codebook` reads ``config/codebook.yaml``, validates it against
+``wavetrail/schemas/codebook.schema.json`` and returns a :class:`Codebook`.
+Every error names the file and the line of the offending key.
+:func:`draft_codebook` writes a first codebook from data files for a human to
+review.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from dataclasses import dataclass, field
+from functools import lru_cache
+from pathlib import Path
+from typing import Any, Iterable
+
+import yaml
+
+from wavetrail.errors import CodebookError
+
+__all__ = [
+    "Study",
+    "Variable",
+    "Scale",
+    "Codebook",
+    "load_codebook",
+    "parse_codebook",
+    "codebook_schema",
+    "draft_codebook",
+    "TYPES",
+    "DEFAULT_MIN_SHARE",
+]
+
+#: value types a variable may declare
+TYPES = ("integer", "number", "category", "text", "date")
+#: least share of a scale's items that must be answered for a score (common practice)
+DEFAULT_MIN_SHARE = 0.8
+
+
+@dataclass(frozen=True)
+class Study:
+    """The study block: id column, how waves are told apart, wave time scores."""
+
+    id: str
+    waves: tuple
+    wave: str | None = None
+    wide: str | None = None
+    time_scores: tuple | None = None
+    title: str | None = None
+
+    def wide_column(self, name: str, wave) -> str:
+        """The wide-file column of variable ``name`` at ``wave``."""
+        if not self.wide:
+            raise CodebookError("the study block names no wide pattern (study.wide)")
+        return self.wide.format(name=name, wave=wave)
+
+
+@dataclass(frozen=True)
+class Variable:
+    """One codebook entry."""
+
+    name: str
+    label: str = ""
+    type: str = "integer"
+    range: tuple | None = None
+    levels: dict | None = None
+    ordered: bool = False
+    missing: dict = field(default_factory=dict)
+    waves: tuple | None = None
+    scale: str | None = None
+    reverse: bool = False
+    identifier: bool = False
+    line: int | None = None
+
+    @property
+    def numeric(self) -> bool:
+        """True for integer and number variables."""
+        return self.type in ("integer", "number")
+
+    def measured_at(self, wave) -> bool:
+        """True when the variable is measured at ``wave`` (all waves when ``waves`` is unset)."""
+        return self.waves is None or wave in self.waves
+
+
+@dataclass(frozen=True)
+class Scale:
+    """A questionnaire scale: its items in codebook order."""
+
+    name: str
+    label: str = ""
+    min_share: float = DEFAULT_MIN_SHARE
+    items: tuple = ()
+    reverse: tuple = ()
+
+    def bounds(self, codebook: "Codebook") -> tuple | None:
+        """The common (low, high) range of the items, or None when they differ or lack one."""
+        ranges = {codebook.variables[i].range for i in self.items}
+        if len(ranges) == 1:
+            (r,) = ranges
+            return r
+        return None
+
+
+@dataclass(frozen=True)
+class Codebook:
+    """A loaded codebook: study block, variables (name -> Variable), scales (name -> Scale)."""
+
+    study: Study
+    variables: dict
+    scales: dict
+    path: Path | None = None
+
+    @property
+    def layout(self) -> str:
+        """``"long"`` (a wave column) or ``"wide"`` (a naming pattern)."""
+        return "wide" if self.study.wide and not self.study.wave else "long"
+
+    @property
+    def identifiers(self) -> list[str]:
+        """Names of the columns marked ``identifier: true``."""
+        return [v.name for v in self.variables.values() if v.identifier]
+
+    def data_variables(self) -> list[Variable]:
+        """Every variable except the id and wave columns, in codebook order."""
+        skip = {self.study.id, self.study.wave}
+        return [v for v in self.variables.values() if v.name not in skip]
+
+    def where(self, name: str) -> str:
+        """``file:line`` of a variable's entry, for messages."""
+        var = self.variables.get(name)
+        place = str(self.path) if self.path else "codebook"
+        if var is not None and var.line:
+            return f"{place}:{var.line}"
+        return place
+
+
+# --------------------------------------------------------------------------- loading
+
+
+@lru_cache(maxsize=1)
+def codebook_schema() -> dict:
+    """The JSON Schema (2020-12) of a codebook."""
+    with open(Path(__file__).parent / "schemas" / "codebook.schema.json", encoding="utf-8") as fh:
+        return json.load(fh)
+
+
+def load_codebook(path: str | os.PathLike) -> Codebook:
+    """Load and validate a codebook YAML file.
+
+    Parameters
+    ----------
+    path : path-like
+        The codebook file (usually ``config/codebook.yaml``).
+
+    Returns
+    -------
+    Codebook
+
+    Raises
+    ------
+    CodebookError
+        The file is missing, is not YAML, breaks the schema, or is inconsistent
+        (a variable named twice, a reverse item without a range, ...); the
+        message names the file and line.
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise CodebookError(f"codebook {path} does not exist",
+                            hint="create it, or draft one with `wavetrail new --data FILE`") from None
+    except OSError as exc:
+        raise CodebookError(f"codebook {path} cannot be read: {exc.strerror}") from None
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        raise CodebookError(f"{path}:{line}: the codebook is not UTF-8 text",
+                            hint="save it as UTF-8") from None
+    return parse_codebook(text, source=path)
+
+
+def parse_codebook(text: str, source: str | os.PathLike | None = None) -> Codebook:
+    """Parse codebook YAML text (see :func:`load_codebook`)."""
+    where = str(source) if source is not None else "codebook"
+    try:
+        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        data = yaml.safe_load(text)
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        line = mark.line + 1 if mark is not None else "?"
+        raise CodebookError(f"{where}:{line}: not valid YAML: {exc.problem or exc}",
+                            hint="fix the indentation or quoting on that line") from None
+    except yaml.YAMLError as exc:
+        raise CodebookError(f"{where}: not valid YAML: {exc}") from None
+    if node is None or data is None:
+        raise CodebookError(f"{where}: the codebook is empty",
+                            hint="it needs a study block and a variables list")
+    _refuse_duplicate_keys(node, where)
+    lines = _LineIndex(node)
+    _validate_schema(data, lines, where)
+    return _build(data, lines, Path(source) if source is not None else None, where)
+
+
+class _LineIndex:
+    """Line numbers of YAML nodes by their key path."""
+
+    def __init__(self, root):
+        self.root = root
+
+    def line(self, path: Iterable) -> int:
+        node = self.root
+        line = node.start_mark.line + 1
+        for key in path:
+            child = None
+            if isinstance(node, yaml.MappingNode):
+                for k, v in node.value:
+                    if str(k.value) == str(key) or _scalar_equal(k, key):
+                        child = (k, v)
+                        break
+                if child is None:
+                    return line
+                line = child[0].start_mark.line + 1
+                node = child[1]
+            elif isinstance(node, yaml.SequenceNode):
+                if not isinstance(key, int) or key >= len(node.value):
+                    return line
+                node = node.value[key]
+                line = node.start_mark.line + 1
+            else:
+                return line
+        return line
+
+
+def _scalar_equal(k, key) -> bool:
+    try:
+        return yaml.safe_load(k.value) == key
+    except yaml.YAMLError:
+        return False
+
+
+def _refuse_duplicate_keys(node, where: str) -> None:
+    if isinstance(node, yaml.MappingNode):
+        seen: dict[str, int] = {}
+        for k, v in node.value:
+            key = str(k.value)
+            if key in seen:
+                raise CodebookError(
+                    f"{where}:{k.start_mark.line + 1}: key {key!r} appears twice "
+                    f"(first on line {seen[key]})",
+                    hint="keep one of them")
+            seen[key] = k.start_mark.line + 1
+            _refuse_duplicate_keys(v, where)
+    elif isinstance(node, yaml.SequenceNode):
+        for item in node.value:
+            _refuse_duplicate_keys(item, where)
+
+
+def _jsonable(obj):
+    """YAML data -> JSON data for schema validation (mapping keys as strings)."""
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, float) and math.isnan(obj):
+        return None
+    if hasattr(obj, "isoformat"):
+        return obj.isoformat()
+    return obj
+
+
+def _validate_schema(data, lines: _LineIndex, where: str) -> None:
+    import jsonschema
+
+    validator = jsonschema.Draft202012Validator(codebook_schema())
+    errors = sorted(validator.iter_errors(_jsonable(data)),
+                    key=lambda e: (lines.line(list(e.absolute_path)), list(map(str, e.absolute_path))))
+    if not errors:
+        return
+    messages = []
+    for err in errors[:5]:
+        path = list(err.absolute_path)
+        key = _key_text(path, data)
+        messages.append(f"{where}:{lines.line(path)}: {key}: {_schema_message(err)}")
+    more = f"\n  ({len(errors) - 5} more problems)" if len(errors) > 5 else ""
+    raise CodebookError("the codebook does not follow the codebook format:\n  " + "\n  ".join(messages) + more,
+                        hint="see docs/codebook.md for every key")
+
+
+def _key_text(path: list, data) -> str:
+    """A readable name of a key path: ``variable slp1 / range``, ``study / waves``."""
+    parts = []
+    node = data
+    for depth, key in enumerate(path):
+        if depth == 0 and key == "variables":
+            node = node.get("variables") if isinstance(node, dict) else None
+            continue
+        if isinstance(node, list) and isinstance(key, int):
+            item = node[key] if key < len(node) else None
+            name = item.get("name") if isinstance(item, dict) else None
+            parts.append(f"variable {name}" if isinstance(name, str) else f"variables[{key}]")
+            node = item
+            continue
+        parts.append(str(key))
+        if isinstance(node, dict):
+            node = node.get(key, node.get(_maybe_number(key)))
+        else:
+            node = None
+    return " / ".join(parts) if parts else "top level"
+
+
+def _maybe_number(key):
+    try:
+        return int(key)
+    except (TypeError, ValueError):
+        return key
+
+
+def _schema_message(err) -> str:
+    if err.validator == "additionalProperties":
+        extra = sorted(set(err.instance) - set(err.schema.get("properties", {})))
+        return f"unknown key(s) {', '.join(map(repr, extra))}"
+    if err.validator == "required":
+        return err.message.replace("is a required property", "is required")
+    if err.validator == "enum":
+        return f"{err.instance!r} is not one of {', '.join(map(str, err.validator_value))}"
+    if err.validator == "type":
+        return f"{err.instance!r} should be of type {err.validator_value}"
+    if err.validator == "pattern" and err.absolute_path and err.absolute_path[-1] == "wide":
+        return f"{err.instance!r} must contain both {{name}} and {{wave}}"
+    return err.message
+
+
+def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Codebook:
+    s = data["study"]
+    if not s.get("wave") and not s.get("wide"):
+        raise CodebookError(f"{where}:{lines.line(['study'])}: the study block needs `wave` "
+                            "(long data: the wave column) or `wide` (a naming pattern such as "
+                            "\"{name}_w{wave}\")")
+    waves = tuple(s["waves"])
+    time_scores = s.get("time_scores")
+    if time_scores is not None and len(time_scores) != len(waves):
+        raise CodebookError(f"{where}:{lines.line(['study', 'time_scores'])}: study.time_scores has "
+                            f"{len(time_scores)} values but study.waves has {len(waves)}",
+                            hint="give one time score per wave")
+    study = Study(id=str(s["id"]), waves=waves, wave=s.get("wave"), wide=s.get("wide"),
+                  time_scores=tuple(float(t) for t in time_scores) if time_scores is not None else None,
+                  title=s.get("title"))
+
+    variables: dict[str, Variable] = {}
+    for i, v in enumerate(data["variables"]):
+        line = lines.line(["variables", i])
+        name = v["name"]
+        if name in variables:
+            raise CodebookError(f"{where}:{line}: variable {name!r} is named twice "
+                                f"(first on line {variables[name].line})",
+                                hint="give each column one entry")
+        vtype = v.get("type", "integer")
+        rng = v.get("range")
+        if rng is not None:
+            lo, hi = rng
+            if lo > hi:
+                raise CodebookError(f"{where}:{lines.line(['variables', i, 'range'])}: variable {name}: "
+                                    f"range [{lo}, {hi}] has its low end above its high end")
+            if vtype not in ("integer", "number"):
+                raise CodebookError(f"{where}:{lines.line(['variables', i, 'range'])}: variable {name}: "
+                                    f"a range needs type integer or number, not {vtype}")
+            rng = (_num(lo), _num(hi))
+        levels = v.get("levels")
+        if levels is not None and vtype != "category":
+            raise CodebookError(f"{where}:{lines.line(['variables', i, 'levels'])}: variable {name}: "
+                                f"levels need type category, not {vtype}")
+        if vtype == "category" and not levels:
+            raise CodebookError(f"{where}:{line}: variable {name}: a category needs `levels` "
+                                "(code: label)")
+        vwaves = v.get("waves")
+        if vwaves is not None:
+            unknown = [w for w in vwaves if w not in waves]
+            if unknown:
+                raise CodebookError(f"{where}:{lines.line(['variables', i, 'waves'])}: variable {name}: "
+                                    f"wave(s) {unknown} are not in study.waves {list(waves)}")
+            vwaves = tuple(vwaves)
+        if v.get("reverse") and rng is None:
+            raise CodebookError(f"{where}:{line}: variable {name} is reverse-keyed but has no range",
+                                hint="add `range: [low, high]` so it can be keyed as low + high - x")
+        if v.get("scale") and vtype not in ("integer", "number"):
+            raise CodebookError(f"{where}:{line}: variable {name}: scale items must be integer or number")
+        missing = {}
+        for code, reason in (v.get("missing") or {}).items():
+            missing[code] = str(reason)
+        if v.get("identifier") and v.get("scale"):
+            raise CodebookError(f"{where}:{line}: variable {name} is an identifier and a scale item")
+        variables[name] = Variable(
+            name=name, label=str(v.get("label", "")), type=vtype, range=rng,
+            levels=dict(levels) if levels else None, ordered=bool(v.get("ordered", False)),
+            missing=missing, waves=vwaves, scale=v.get("scale"), reverse=bool(v.get("reverse", False)),
+            identifier=bool(v.get("identifier", False)), line=line)
+
+    if study.wave and study.wave == study.id:
+        raise CodebookError(f"{where}:{lines.line(['study'])}: study.id and study.wave name the same column")
+
+    declared = data.get("scales") or {}
+    scales: dict[str, Scale] = {}
+    members: dict[str, list[str]] = {}
+    for var in variables.values():
+        if var.scale:
+            if var.scale not in declared:
+                raise CodebookError(f"{where}:{var.line}: variable {var.name} names scale "
+                                    f"{var.scale!r}, which the scales block does not declare",
+                                    hint=f"add `{var.scale}: {{label: ...}}` under `scales:`")
+            members.setdefault(var.scale, []).append(var.name)
+    for sname, settings in declared.items():
+        items = members.get(sname, [])
+        if len(items) < 2:
+            raise CodebookError(f"{where}:{lines.line(['scales', sname])}: scale {sname!r} has "
+                                f"{len(items)} item(s); a scale needs at least two",
+                                hint="set `scale:` on its items or remove the scale")
+        settings = settings or {}
+        scales[sname] = Scale(name=sname, label=str(settings.get("label", sname)),
+                              min_share=float(settings.get("min_share", DEFAULT_MIN_SHARE)),
+                              items=tuple(items),
+                              reverse=tuple(i for i in items if variables[i].reverse))
+    return Codebook(study=study, variables=variables, scales=scales, path=path)
+
+
+def _num(x):
+    f = float(x)
+    return int(f) if f.is_integer() else f
+
+
+# --------------------------------------------------------------------------- drafting
+
+
+def draft_codebook(frames_or_paths, *, id: str | None = None, wave: str | None = None,
+                   waves: list | None = None) -> str:
+    """Draft a codebook from data, as YAML text for a human to review.
+
+    Parameters
+    ----------
+    frames_or_paths : path, DataFrame, or a list of them
+        Data files (any format :func:`wavetrail.readers.read_table` reads) or
+        DataFrames. Several files are taken as one file per wave, in order.
+    id, wave : str, optional
+        The id and wave columns; guessed from the names when not given.
+    waves : list, optional
+        The wave labels; taken from the wave column, else from the file count.
+
+    Returns
+    -------
+    str
+        YAML text: the study block, one entry per column with type, observed
+        range or levels, and guessed missing codes marked for review with a
+        ``# review`` comment. Labelled SPSS / Stata files give their variable
+        labels, value labels (as levels) and user-defined missing values.
+    """
+    return _draft_text(frames_or_paths, id=id, wave=wave, waves=waves)
+
+
+_ID_NAMES = ("id", "pid", "person", "person_id", "participant", "subject", "case", "caseid", "respondent")
+_WAVE_NAMES = ("wave", "occasion", "round", "visit", "time", "w")
+_WIDE_PATTERNS = ("{name}_w{wave}", "{name}_t{wave}", "{name}_wave{wave}", "{name}.{wave}", "{name}_{wave}",
+                  "{name}w{wave}")
+_IDENTIFYING = ("email", "e_mail", "mail", "name", "phone", "address", "street", "postcode", "zip",
+                "birth", "dob", "ssn")
+#: most distinct text values for a text column to be drafted as a category
+_MAX_TEXT_LEVELS = 12
+
+
+def _y(value) -> str:
+    """One YAML flow scalar or collection."""
+    text = yaml.safe_dump(value, default_flow_style=True, allow_unicode=True, width=10_000).strip()
+    if text.endswith("\n..."):
+        text = text[:-4].strip()
+    if text.endswith("..."):
+        text = text[:-3].strip()
+    return text
+
+
+def _draft_text(frames_or_paths, *, id=None, wave=None, waves=None) -> str:
+    import re
+
+    import numpy as np
+    import pandas as pd
+
+    from wavetrail.readers import read_table, table_from_frame
+
+    items = list(frames_or_paths) if isinstance(frames_or_paths, (list, tuple)) else [frames_or_paths]
+    if not items:
+        raise CodebookError("draft_codebook needs at least one data file or table")
+    tables = [table_from_frame(x) if isinstance(x, pd.DataFrame) else read_table(x) for x in items]
+    first = tables[0].frame
+    columns = list(dict.fromkeys(c for t in tables for c in t.frame.columns))
+    lower = {c.lower(): c for c in columns}
+    if id is None:
+        id = next((lower[n] for n in _ID_NAMES if n in lower), None)
+        if id is None:
+            id = next((c for c in columns if c.lower().endswith("_id") or c.lower().endswith("id")), columns[0])
+    if wave is None:
+        wave = next((lower[n] for n in _WAVE_NAMES if n in lower and lower[n] != id), None)
+
+    # layout: long (a wave column), wide (a naming pattern) or one file per wave
+    pattern, wide_map = None, {}
+    if wave is None:
+        best = (0, None, {})
+        for pat in _WIDE_PATTERNS:
+            rx = re.compile("^" + re.escape(pat).replace(re.escape("{name}"), "(?P<name>.+?)")
+                            .replace(re.escape("{wave}"), "(?P<wave>[0-9]+)") + "$")
+            found = {}
+            for c in columns:
+                m = rx.match(c)
+                if m and c != id:
+                    found[c] = (m.group("name"), int(m.group("wave")))
+            n_waves = len({w for _, w in found.values()})
+            if n_waves >= 2 and len(found) > best[0]:
+                best = (len(found), pat, found)
+        pattern, wide_map = best[1], best[2]
+    comments = []
+    if wave is not None:
+        observed = pd.concat([t.frame[wave] for t in tables if wave in t.frame.columns], ignore_index=True)
+        found_waves = sorted({_num(v) if not isinstance(v, str) else v for v in observed.dropna()},
+                             key=lambda v: (isinstance(v, str), v))
+        layout = "long"
+    elif pattern is not None:
+        found_waves = sorted({w for _, w in wide_map.values()})
+        layout = "wide"
+    else:
+        found_waves = list(range(1, len(tables) + 1))
+        wave = "wave"
+        layout = "per-wave"
+        comments.append("one file per wave, in wave order; no file holds a wave column")
+    if waves is None:
+        waves = found_waves
+
+    # values of each variable over every file and wave
+    values: dict[str, list] = {}
+    for t in tables:
+        for c in t.frame.columns:
+            if c in (id, wave):
+                continue
+            base = wide_map[c][0] if c in wide_map else c
+            values.setdefault(base, []).append(t.frame[c])
+    labels, value_labels, user_missing = {}, {}, {}
+    for t in tables:
+        for c, lab in t.labels.items():
+            base = wide_map[c][0] if c in wide_map else c
+            labels.setdefault(base, lab)
+        for c, vl in t.value_labels.items():
+            base = wide_map[c][0] if c in wide_map else c
+            value_labels.setdefault(base, {}).update(vl)
+        for c, um in t.user_missing.items():
+            base = wide_map[c][0] if c in wide_map else c
+            user_missing.setdefault(base, {}).update(um)
+    var_waves = {}
+    for c, (base, w) in wide_map.items():
+        var_waves.setdefault(base, set()).add(w)
+
+    out = ["# Draft codebook written by wavetrail from: "
+           + ", ".join(t.name for t in tables),
+           "# Review every line marked `review` before the first build (docs/codebook.md).", "study:",
+           f"  id: {_y(id)}"]
+    if layout == "wide":
+        out.append(f"  wide: {_y(pattern)}")
+    else:
+        out.append(f"  wave: {_y(wave)}" + (f"  # {comments[0]}" if comments else ""))
+    out.append(f"  waves: {_y(list(waves))}")
+    out.append(f"  time_scores: {_y(list(range(len(waves))))}  # review: one per wave, in the growth model's time unit")
+    out.append("variables:")
+    id_values = pd.concat([t.frame[id] for t in tables if id in t.frame.columns], ignore_index=True)
+    out += _draft_variable(id, id_values, labels.get(id, ""), {}, {}, None, is_id=True)
+    for name, cols in values.items():
+        series = pd.concat(cols, ignore_index=True)
+        vw = sorted(var_waves[name]) if name in var_waves and len(var_waves[name]) < len(waves) else None
+        out += _draft_variable(name, series, labels.get(name, ""), value_labels.get(name, {}),
+                               user_missing.get(name, {}), vw)
+    out.append("# scales:  (name each scale here and set `scale:` on its items)")
+    out.append("#   my_scale: {label: My scale, min_share: 0.8}")
+    return "\n".join(out) + "\n"
+
+
+def _draft_variable(name, series, label, value_labels, user_missing, var_waves, is_id=False) -> list[str]:
+    import numpy as np
+    import pandas as pd
+
+    from wavetrail.checks import looks_like_missing_code
+
+    lines = [f"  - name: {_y(name)}", f"    label: {_y(str(label or ''))}"]
+    filled = series.dropna()
+    numeric = pd.api.types.is_numeric_dtype(series)
+    missing = {k: (v or "missing (user-defined in the file)") for k, v in user_missing.items()}
+    guessed = {}
+    if numeric and len(filled):
+        x = filled.to_numpy(dtype=float)
+        declared = np.isin(x, [float(k) for k in missing if isinstance(k, (int, float))])
+        codelike = looks_like_missing_code(x) & ~declared
+        rest = x[~declared & ~codelike]
+        if len(rest) and not is_id:
+            lo, hi = rest.min(), rest.max()
+            span = max(hi - lo, 1.0)
+            for v in np.unique(x[codelike]):
+                if (v < 0 and lo >= 0) or v > hi + span:
+                    guessed[_num(v)] = "unknown"
+        keep = ~declared & ~np.isin(x, [float(g) for g in guessed])
+        x = x[keep]
+    if is_id:
+        lines.append(f"    type: {'integer' if numeric else 'text'}")
+        return lines
+    levels = {k: v for k, v in (value_labels or {}).items() if k not in missing}
+    if levels:
+        lines.append("    type: category  # review: from value labels; integer if it is a scale item")
+        lines.append(f"    levels: {_y(levels)}")
+    elif numeric:
+        if len(filled) == 0:
+            lines.append("    type: number  # review: no values seen")
+        else:
+            integral = bool(np.all(x == np.round(x))) if len(x) else True
+            lines.append(f"    type: {'integer' if integral else 'number'}")
+            if len(x):
+                lines.append(f"    range: {_y([_num(x.min()), _num(x.max())])}  # review: observed range")
+    else:
+        text = filled.astype(str)
+        uniq = sorted(set(text))
+        if len(uniq) and all(_is_date(v) for v in uniq[:50]):
+            lines.append("    type: date")
+        elif 0 < len(uniq) <= _MAX_TEXT_LEVELS and len(text) >= 2 * len(uniq):
+            lines.append("    type: category  # review: guessed from few distinct values")
+            lines.append(f"    levels: {_y({u: u for u in uniq})}")
+        else:
+            lines.append("    type: text")
+    if missing or guessed:
+        lines.append("    missing:")
+        for code, reason in missing.items():
+            lines.append(f"      {_y(_num(code) if isinstance(code, float) else code)}: {_y(str(reason))}")
+        for code, reason in guessed.items():
+            lines.append(f"      {_y(code)}: {_y(reason)}  # review: guessed missing code, not declared in the file")
+    if var_waves:
+        lines.append(f"    waves: {_y(var_waves)}")
+    if any(part in name.lower() for part in _IDENTIFYING) and not numeric:
+        lines.append("    identifier: true  # review: looks like a direct identifier")
+    return lines
+
+
+def _is_date(text: str) -> bool:
+    import re
+
+    return bool(re.fullmatch(r"\d{4}-\d{2}-\d{2}", text))

@@ -1,0 +1,60 @@
+"""Out-of-bag permutation importance of each predictor.
+
+For tree ``b`` with out-of-bag people ``O_b`` (not in its subsample), each person
+is scored by the log-likelihood of their waves under the model of the leaf they
+fall into. Permuting predictor ``j`` among ``O_b`` re-routes people; the
+importance of ``j`` in tree ``b`` is the mean drop in that log-likelihood per
+out-of-bag person,
+
+    D_bj = (1 / |O_b|) * sum_{i in O_b} [ l_i(leaf_b(x_i)) - l_i(leaf_b(x_i with x_j permuted)) ].
+
+A tree that never splits on ``j`` has ``D_bj = 0`` exactly. The forest
+importance is the mean of ``D_bj`` over trees and its standard error the
+standard deviation over trees divided by the square root of the number of trees.
+
+References
+----------
+.. [1] Brandmaier, A. M., Prindle, J. J., McArdle, J. J., & Lindenberger, U.
+   (2016). Theory-guided exploration with structural equation model forests.
+   Psychological Methods, 21(4), 566-582.
+.. [2] Strobl, C., Boulesteix, A.-L., Zeileis, A., & Hothorn, T. (2007). Bias in
+   random forest variable importance measures. BMC Bioinformatics, 8, 25.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+
+def oob_drop(tree, model, Y_oob: np.ndarray, X_oob: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Per-predictor mean drop in out-of-bag log-likelihood for one tree, shape (m,)."""
+    m = X_oob.shape[1]
+    drop = np.zeros(m)
+    n = X_oob.shape[0]
+    used = tree.used_features
+    if n == 0 or len(used) == 0:
+        return drop
+    leaves = tree.leaves
+    L = np.column_stack([model.loglik(tree.theta_[leaf], Y_oob) for leaf in leaves])
+    pos = np.full(len(tree.nodes), -1, dtype=np.int64)
+    pos[leaves] = np.arange(len(leaves))
+    ar = np.arange(n)
+    base = L[ar, pos[tree.apply(X_oob)]]
+    for j in used:
+        Xp = X_oob.copy()
+        Xp[:, j] = X_oob[rng.permutation(n), j]
+        drop[j] = float(np.mean(base - L[ar, pos[tree.apply(Xp)]]))
+    return drop
+
+
+def importance_table(names: list[str], drops: np.ndarray) -> pd.DataFrame:
+    """Tidy importance table (predictor, importance, se, rank) from a (trees, m) drop matrix."""
+    T = drops.shape[0]
+    imp = drops.mean(axis=0) if T else np.zeros(len(names))
+    se = drops.std(axis=0, ddof=1) / np.sqrt(T) if T > 1 else np.full(len(names), np.nan)
+    df = pd.DataFrame({"predictor": names, "importance": imp, "se": se})
+    order = sorted(range(len(names)), key=lambda j: (-imp[j], names[j]))
+    df = df.iloc[order].reset_index(drop=True)
+    df["rank"] = np.arange(1, len(df) + 1)
+    return df

@@ -1,0 +1,200 @@
+"""Score-based instability tests: does a predictor order the node's casewise scores?
+
+At a node fitted by maximum likelihood the casewise scores (each person's
+gradient of the log-likelihood at the node estimate) sum to zero. Ordered by a
+predictor that moderates the model, their cumulative sum drifts away from zero;
+under no moderation it behaves like a Brownian bridge. Three statistics:
+
+* numeric predictors: supLM, the largest Lagrange-multiplier statistic over
+  all cut points between distinct values in the central ``1 - 2 * trim`` of the
+  observed people (trim 10 %);
+* ordered categories: maxLM, the largest LM statistic over the boundaries
+  between adjacent levels;
+* unordered categories: the LM statistic summed over levels, chi-square with
+  ``k (C - 1)`` degrees of freedom.
+
+Notes
+-----
+With ``S`` the scores whitened by the outer-product information
+``J = S'S / n`` (``S J^{-1/2}``; directions with no information are dropped,
+which lowers ``k``) and ``c_i`` the cumulative whitened score of the first
+``i`` of ``n`` people in predictor order, the bridge is
+``b_i = c_i - (i / n) c_n`` and ``LM_i = ||b_i||^2 / (n t (1 - t))`` with
+``t = i / n``. People whose predictor is missing are left out of that
+predictor's test (the bridge is tied down over the observed people; the
+information is the node's).
+
+p-values. supLM: the simulated null table of
+:mod:`wavetrail.forest._supLM_table` (interpolated on the log-probability
+scale, extrapolated beyond its last quantile with a chi-square-like tail),
+and, when fewer cut points were evaluated, the Bonferroni bound
+``m * P(chi2_k > x)`` over the ``m`` evaluated points; both bound the same
+tail probability, so the smaller is kept. maxLM over level boundaries: the
+Bonferroni bound over boundaries (conservative; exact for two levels).
+
+References
+----------
+.. [1] Zeileis, A., Hothorn, T., & Hornik, K. (2008). Model-based recursive
+   partitioning. Journal of Computational and Graphical Statistics, 17(2), 492-514.
+.. [2] Arnold, M., Voelkle, M. C., & Brandmaier, A. M. (2021). Score-guided
+   structural equation model trees. Frontiers in Psychology, 11, 564403.
+.. [3] Andrews, D. W. K. (1993). Tests for parameter instability and structural
+   change with unknown change point. Econometrica, 61(4), 821-856.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy.stats import chi2
+
+from wavetrail.forest import _supLM_table as _table
+
+TRIM = _table.TRIM
+_LOG_TAIL = np.log(np.asarray(_table.TAIL))
+_QUANT = np.asarray(_table.QUANTILES)
+
+
+def whiten(scores: np.ndarray, tol: float = 1e-9) -> np.ndarray:
+    """Scores times ``J^{-1/2}`` (``J = S'S/n``); columns without information dropped."""
+    S = np.asarray(scores, dtype=float)
+    n = S.shape[0]
+    if n == 0:
+        return S[:, :0]
+    J = S.T @ S / n
+    w, V = np.linalg.eigh(J)
+    keep = w > tol * max(w.max(initial=0.0), 1e-300)
+    if not keep.any():
+        return S[:, :0]
+    return S @ (V[:, keep] / np.sqrt(w[keep]))
+
+
+def suplm_pvalue(stat: float, k: int, n_points: int | None = None) -> float:
+    """p-value of a trimmed (10 %) supLM statistic with ``k`` parameters.
+
+    ``n_points`` is the number of cut points actually evaluated; when given, the
+    Bonferroni bound over them is also computed and the smaller value returned.
+    """
+    if k < 1 or not np.isfinite(stat) or stat <= 0:
+        return 1.0
+    p = _table_p(float(stat), int(k))
+    if n_points is not None and n_points > 0:
+        p = min(p, n_points * float(chi2.sf(stat, k)))
+    return float(min(max(p, 0.0), 1.0))
+
+
+def _table_p(x: float, k: int) -> float:
+    if k > _QUANT.shape[0]:
+        # beyond the table: the asymptotic sup of k independent blocks is not
+        # tabulated; fall back on a conservative bound of chi2_k at 1/(trim^2) points
+        return min(1.0, float(chi2.sf(x, k)) * 4.0 * math.log((1 - TRIM) / TRIM) ** 2 * (k + 1))
+    q = _QUANT[k - 1]
+    if x <= q[0]:
+        # between 0 and the 99 % point: interpolate towards p = 1 at x = 0
+        return float(1.0 - (1.0 - _table.TAIL[0]) * x / q[0])
+    if x <= q[-1]:
+        return float(np.exp(np.interp(x, q, _LOG_TAIL)))
+    # beyond the last tabulated point: tail like x^(k/2) exp(-x/2)
+    xl = q[-1]
+    logp = _LOG_TAIL[-1] - (x - xl) / 2.0 + (k / 2.0) * math.log(x / xl)
+    return float(math.exp(min(logp, _LOG_TAIL[-1])))
+
+
+def _bridge_lm(Sw: np.ndarray, Z: np.ndarray):
+    """Cumulative LM statistics of whitened scores ordered by each column of Z.
+
+    Returns ``(lm, zs, n_obs)``: ``lm[i, j]`` is the LM statistic of predictor
+    ``j`` with the first ``i + 1`` observed people on the left, ``zs`` the sorted
+    values (NaN last) and ``n_obs`` the number observed per predictor.
+    """
+    n, m = Z.shape
+    order = np.argsort(Z, axis=0, kind="stable")  # NaN sorts last
+    zs = np.take_along_axis(Z, order, axis=0)
+    obs = ~np.isnan(zs)
+    n_obs = obs.sum(axis=0)
+    ordered = Sw[order] * obs[:, :, None]  # (n, m, k)
+    c = np.cumsum(ordered, axis=0)
+    total = c[-1]  # (m, k)
+    i = np.arange(1, n + 1, dtype=float)[:, None]
+    nobs = np.maximum(n_obs, 1).astype(float)[None, :]
+    t = i / nobs
+    b = c - t[:, :, None] * total[None, :, :]
+    num = np.einsum("imk,imk->im", b, b)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lm = num / (nobs * t * (1.0 - t))
+    return lm, zs, n_obs
+
+
+def _admissible(zs: np.ndarray, n_obs: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Mask of left counts i+1 in [lo, hi] where the sorted value changes after row i."""
+    n = zs.shape[0]
+    change = np.zeros_like(zs, dtype=bool)
+    if n > 1:
+        change[:-1] = zs[1:] > zs[:-1]  # NaN comparisons are False
+    i = np.arange(1, n + 1)[:, None]
+    return change & (i >= lo[None, :]) & (i <= hi[None, :])
+
+
+def ordered_tests(Sw: np.ndarray, Z: np.ndarray, kinds: list[str], min_size: int = 1):
+    """supLM (numeric) and maxLM (ordered) statistics and p-values for columns of Z.
+
+    Parameters
+    ----------
+    Sw : (n, k) whitened casewise scores at the node fit.
+    Z : (n, m) predictor values (numbers or level codes, NaN = missing).
+    kinds : per column, ``"numeric"`` or ``"ordered"``.
+    min_size : smallest allowed child; cut points leaving fewer are not evaluated.
+
+    Returns
+    -------
+    stat, p, n_points : arrays of length m.
+    """
+    n, m = Z.shape
+    k = Sw.shape[1]
+    if m == 0:
+        return np.zeros(0), np.ones(0), np.zeros(0, dtype=int)
+    lm, zs, n_obs = _bridge_lm(Sw, Z)
+    numeric = np.array([kd == "numeric" for kd in kinds])
+    lo = np.where(numeric, np.maximum(np.ceil(TRIM * n_obs), min_size), min_size).astype(int)
+    hi = np.where(numeric, np.minimum(np.floor((1 - TRIM) * n_obs), n_obs - min_size),
+                  n_obs - min_size).astype(int)
+    ok = _admissible(zs, n_obs, np.maximum(lo, 1), hi)
+    vals = np.where(ok, lm, -np.inf)
+    stat = vals.max(axis=0)
+    npts = ok.sum(axis=0)
+    p = np.ones(m)
+    for j in range(m):
+        if npts[j] == 0 or k == 0:
+            stat[j] = 0.0
+            continue
+        if numeric[j]:
+            p[j] = suplm_pvalue(stat[j], k, int(npts[j]))
+        else:
+            p[j] = min(1.0, int(npts[j]) * float(chi2.sf(stat[j], k)))
+    return stat, p, npts
+
+
+def unordered_test(Sw: np.ndarray, codes: np.ndarray, min_size: int = 1):
+    """LM statistic over the levels of an unordered category; returns (stat, p, df).
+
+    Levels with no observed person are ignored; the test is skipped (p = 1) when
+    fewer than two levels remain or no two-group split could give both children
+    ``min_size`` people.
+    """
+    obs = ~np.isnan(codes)
+    k = Sw.shape[1]
+    if obs.sum() < 2 * max(min_size, 1) or k == 0:
+        return 0.0, 1.0, 0
+    S = Sw[obs]
+    c = codes[obs].astype(np.int64)
+    n = S.shape[0]
+    levels, inv, counts = np.unique(c, return_inverse=True, return_counts=True)
+    if len(levels) < 2:
+        return 0.0, 1.0, 0
+    sums = np.zeros((len(levels), k))
+    np.add.at(sums, inv, S)
+    sums -= counts[:, None] * (S.sum(axis=0) / n)[None, :]
+    stat = float(np.sum(np.einsum("ck,ck->c", sums, sums) / counts))
+    df = k * (len(levels) - 1)
+    return stat, float(chi2.sf(stat, df)), df

@@ -1,0 +1,97 @@
+"""Latent growth curve models on top of :mod:`wavetrail.sem`.
+
+A growth model for ``T`` waves with time scores ``t_1..t_T`` writes the outcome
+at wave ``j`` as ``y_j = eta_0 + t_j eta_1 (+ t_j^2 eta_2) + e_j``: the growth
+factors (intercept, slope, curvature) have free means and a free covariance
+matrix, the outcome intercepts are fixed at zero, and the residual variances are
+free per wave or equal over waves (Meredith & Tisak 1990, Psychometrika 55(1);
+Bollen & Curran 2006, *Latent Curve Models*, Wiley).
+
+``shape="basis"`` (latent basis) fixes the first and the last loading on the
+shape factor at their time scores and frees the others, so that the shape of
+change is estimated. Time-invariant covariates enter as exogenous variables that
+predict every growth factor.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from wavetrail.errors import ModelError
+from wavetrail.sem.spec import ModelSpec
+
+SHAPES = ("linear", "quadratic", "basis")
+RESIDUALS = ("free", "equal")
+FACTORS = {"linear": ["intercept", "slope"], "quadratic": ["intercept", "slope", "quadratic"],
+           "basis": ["intercept", "shape"]}
+
+
+def wave_names(n_waves: int) -> list[str]:
+    """Default observed names ``y1 .. yT`` for growth specs built without names."""
+    return [f"y{j + 1}" for j in range(n_waves)]
+
+
+def growth_spec(time_scores, shape="linear", residuals="free", covariates=None, observed=None) -> ModelSpec:
+    """Build the growth model as a :class:`~wavetrail.sem.ModelSpec`.
+
+    Parameters
+    ----------
+    time_scores : sequence of float, one per wave (unequal spacing allowed)
+    shape : {"linear", "quadratic", "basis"}
+    residuals : {"free", "equal"}; "equal" shares one residual variance (label ``resvar``)
+    covariates : list of str, optional, time-invariant covariate columns; each predicts
+        every growth factor (regression names ``regress(<factor>,<covariate>_cov)``)
+    observed : list of str, optional, the wave columns (default ``y1..yT``)
+
+    Returns
+    -------
+    ModelSpec with observed = wave columns followed by the covariates.
+    """
+    t = np.asarray(time_scores, dtype=float).ravel()
+    if shape not in SHAPES:
+        raise ModelError(f"unknown growth shape {shape!r}", hint=f"use one of {', '.join(SHAPES)}")
+    if residuals not in RESIDUALS:
+        raise ModelError(f"unknown residual structure {residuals!r}", hint="use 'free' or 'equal'")
+    if len(t) < 2 or not np.all(np.isfinite(t)):
+        raise ModelError(f"a growth model needs at least two finite time scores, got {list(time_scores)}")
+    if len(np.unique(t)) != len(t):
+        raise ModelError(f"time scores must differ between waves, got {list(time_scores)}")
+    need = {"linear": 3, "quadratic": 4, "basis": 3}[shape]
+    if len(t) < need:
+        raise ModelError(f"a {shape} growth model needs at least {need} waves, got {len(t)}",
+                         hint="use a simpler shape or more waves")
+    obs = list(observed) if observed is not None else wave_names(len(t))
+    if len(obs) != len(t):
+        raise ModelError(f"{len(obs)} wave columns but {len(t)} time scores")
+    covariates = list(covariates or [])
+    factors = FACTORS[shape]
+    cov_lat = [f"{c}_cov" for c in covariates]
+    spec = ModelSpec(observed=obs + covariates, latent=factors + cov_lat)
+    for j, y in enumerate(obs):
+        spec.load("intercept", y, value=1.0)
+        if shape == "basis":
+            if j == 0 or j == len(t) - 1:
+                spec.load("shape", y, value=t[j])
+            else:
+                spec.load("shape", y, start=t[j])
+        else:
+            spec.load("slope", y, value=t[j])
+            if shape == "quadratic":
+                spec.load("quadratic", y, value=t[j] ** 2)
+        spec.intercept(y, value=0.0)
+        spec.cov(y, y, label="resvar" if residuals == "equal" else None)
+    for i, f in enumerate(factors):
+        spec.mean(f)
+        for g in factors[i:]:
+            spec.cov(f, g)
+    for c, lc in zip(covariates, cov_lat):
+        spec.load(lc, c, value=1.0)
+        spec.cov(c, c, value=0.0)
+        spec.intercept(c, value=0.0)
+        spec.mean(lc)
+        for f in factors:
+            spec.regress(f, lc)
+    for i, a in enumerate(cov_lat):
+        for b in cov_lat[i:]:
+            spec.cov(a, b)
+    return spec

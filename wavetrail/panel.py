@@ -1,0 +1,417 @@
+"""Data files + codebook -> one tidy long panel.
+
+:func:`load_panel` reads one long file, one wide file or one file per wave
+and brings them into one form: a row per (id, wave) with every codebook
+variable as a column, declared missing codes turned into NaN (their reasons
+kept in :attr:`Panel.missing_reasons`) and categories as pandas Categoricals.
+
+Loading is tolerant on purpose: unknown or absent columns, duplicated
+(id, wave) rows, values of the wrong type and unknown waves are kept in
+:attr:`Panel.records` (as read, with their file and row) for the check
+suite (:mod:`wavetrail.checks`) to report; they are never merged silently.
+Only a file that cannot be read, or one without the id column, raises.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterable, Sequence
+
+import numpy as np
+import pandas as pd
+
+from wavetrail.codebook import Codebook, Variable, load_codebook
+from wavetrail.errors import DataError
+from wavetrail.readers import RawTable, read_table, table_from_frame
+
+__all__ = ["Panel", "Source", "load_panel", "wave_key", "FILE", "ROW"]
+
+#: columns of :attr:`Panel.records` holding where a record came from
+FILE, ROW, WAVE_RAW = "_file", "_row", "_wave_raw"
+
+
+@dataclass
+class Source:
+    """One data file and how its columns map onto the codebook.
+
+    ``columns`` maps a file column to ``(variable, wave)`` (wave None for a
+    long file's own wave column); ``unknown`` lists columns the codebook does
+    not know; ``absent`` lists ``(variable, wave)`` the codebook expects but the
+    file lacks.
+    """
+
+    table: RawTable
+    waves: list
+    layout: str
+    columns: dict = field(default_factory=dict)
+    unknown: list = field(default_factory=list)
+    absent: list = field(default_factory=list)
+
+    @property
+    def name(self) -> str:
+        return self.table.name
+
+
+def wave_key(value) -> str | None:
+    """A wave value as comparable text (``1``, ``1.0`` and ``"1"`` are the same wave)."""
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return None
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        return str(int(value)) if float(value).is_integer() else repr(float(value))
+    text = str(value).strip()
+    try:
+        f = float(text)
+    except ValueError:
+        return text
+    return str(int(f)) if f.is_integer() else repr(f)
+
+
+class Panel:
+    """A multi-wave panel in one tidy long form.
+
+    Attributes
+    ----------
+    codebook : Codebook
+    long : DataFrame
+        One row per (id, wave): the id column, the wave column (named as in
+        the codebook; ``wave`` for wide data) and every codebook variable.
+        Declared missing codes are NaN; categories are Categoricals (ordered
+        where the codebook says); rows sorted by id, then wave order.
+    missing_reasons : DataFrame
+        id, wave, variable, code, reason of every declared missing code met.
+    records : DataFrame
+        Every record as read (before cleaning), with ``_file`` and ``_row``.
+    sources : list of Source
+    """
+
+    def __init__(self, codebook: Codebook, sources: list[Source], records: pd.DataFrame):
+        self.codebook = codebook
+        self.sources = sources
+        self.records = records
+        self.id = codebook.study.id
+        self.wave = codebook.study.wave or "wave"
+        self.waves = list(codebook.study.waves)
+        self.long, self.missing_reasons = _clean(self)
+
+    # -- views ------------------------------------------------------------
+
+    def ids(self) -> pd.Index:
+        """Every person id in the panel, sorted."""
+        return pd.Index(pd.unique(self.long[self.id]), name=self.id).sort_values()
+
+    def baseline(self, names: Sequence[str] | None = None) -> pd.DataFrame:
+        """First-wave values, one row per person (index id).
+
+        Parameters
+        ----------
+        names : list of str, optional
+            Variables to return; default every variable except the id, wave
+            and identifier columns.
+        """
+        if names is None:
+            names = [v.name for v in self.codebook.data_variables() if not v.identifier]
+        names = list(names)
+        unknown = [n for n in names if n not in self.long.columns]
+        if unknown:
+            raise DataError(f"variable(s) {unknown} are not in the codebook",
+                            hint=_suggest(unknown[0], self.long.columns))
+        first = self.long[self.long[self.wave] == self.waves[0]].set_index(self.id)
+        return first[names].reindex(self.ids())
+
+    def predictors(self, spec) -> pd.DataFrame:
+        """Candidate predictors, one row per person (index id).
+
+        Parameters
+        ----------
+        spec : "wave1" or list of str
+            ``"wave1"``: every variable measured at the first wave outside the
+            scales, not the id, an identifier, text or date. A list names them.
+        """
+        if isinstance(spec, str):
+            if spec not in ("wave1", "first_wave", f"wave{self.waves[0]}"):
+                raise DataError(f"predictors {spec!r}: give \"wave1\" or a list of variable names")
+            first = self.waves[0]
+            names = [v.name for v in self.codebook.data_variables()
+                     if v.measured_at(first) and not v.scale and not v.identifier
+                     and v.type not in ("text", "date")]
+        else:
+            names = [str(n) for n in spec]
+            for n in names:
+                var = self.codebook.variables.get(n)
+                if var is None:
+                    raise DataError(f"predictor {n!r} is not in the codebook",
+                                    hint=_suggest(n, list(self.codebook.variables)))
+                if var.identifier or n in (self.id, self.wave):
+                    raise DataError(f"predictor {n!r} is an identifier or the id/wave column and "
+                                    "can never be a predictor")
+        return self.baseline(names)
+
+    def items(self, scale: str) -> pd.DataFrame:
+        """id, wave and the item columns of ``scale`` (long)."""
+        sc = self.codebook.scales[scale]
+        return self.long[[self.id, self.wave, *sc.items]]
+
+
+# --------------------------------------------------------------------------- loading
+
+
+def load_panel(paths, codebook: Codebook | str | os.PathLike) -> Panel:
+    """Read data files into a :class:`Panel`.
+
+    Parameters
+    ----------
+    paths : path, DataFrame, or a list of them
+        One long file (id + wave columns), one wide file (columns named by
+        ``study.wide``), or one file per wave. Per-wave files without a wave
+        column are taken in the order of ``study.waves``.
+    codebook : Codebook or path
+
+    Returns
+    -------
+    Panel
+
+    Raises
+    ------
+    DataError
+        A file cannot be read, lacks the id column, or the files cannot be
+        matched to waves.
+    """
+    if not isinstance(codebook, Codebook):
+        codebook = load_codebook(codebook)
+    items = list(paths) if isinstance(paths, (list, tuple)) else [paths]
+    if not items:
+        raise DataError("no data files given", hint="list them under `data:` in config/config.yaml")
+    tables = [table_from_frame(p) if isinstance(p, pd.DataFrame) else read_table(p) for p in items]
+    sources, frames = [], []
+    for i, table in enumerate(tables):
+        if codebook.layout == "wide":
+            src, frame = _map_wide(table, codebook)
+        else:
+            src, frame = _map_long(table, codebook, i, len(tables))
+        sources.append(src)
+        frames.append(frame)
+    records = pd.concat(frames, ignore_index=True, sort=False) if len(frames) > 1 else frames[0]
+    records = _normalise_ids(records, codebook.study.id)
+    return Panel(codebook, sources, records)
+
+
+def _require_id(table: RawTable, codebook: Codebook) -> None:
+    sid = codebook.study.id
+    if sid not in table.frame.columns:
+        raise DataError(f"{table.path or table.name}: the id column {sid!r} (study.id) is not in the file",
+                        hint=_suggest(sid, table.frame.columns))
+
+
+def _suggest(name: str, choices: Iterable) -> str:
+    close = difflib.get_close_matches(str(name), [str(c) for c in choices], n=3)
+    if close:
+        return f"did you mean {', '.join(map(repr, close))}?"
+    return "check the spelling in config/codebook.yaml"
+
+
+def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
+    _require_id(table, codebook)
+    study = codebook.study
+    frame = table.frame
+    wave_col = study.wave
+    if wave_col in frame.columns:
+        raw_wave = frame[wave_col]
+        keys = sorted({k for k in map(wave_key, raw_wave) if k is not None})
+        lookup = {wave_key(w): w for w in study.waves}
+        waves = [lookup[k] for k in keys if k in lookup]
+    elif n_files == len(study.waves) or len(study.waves) == 1:
+        wave = study.waves[index if n_files > 1 else 0]
+        raw_wave = pd.Series([wave] * len(frame))
+        waves = [wave]
+    else:
+        raise DataError(f"{table.path or table.name}: the wave column {wave_col!r} (study.wave) is not in "
+                        f"the file, and {n_files} file(s) cannot be matched to {len(study.waves)} waves",
+                        hint="add the wave column, or give one file per wave in wave order")
+    src = Source(table=table, waves=waves, layout="long" if wave_col in frame.columns else "per-wave")
+    skip = {study.id, wave_col}
+    for col in frame.columns:
+        if col in skip:
+            continue
+        if col in codebook.variables:
+            src.columns[col] = (col, None)
+        else:
+            src.unknown.append(col)
+    for var in codebook.data_variables():
+        if var.name not in frame.columns:
+            for w in waves:
+                if var.measured_at(w):
+                    src.absent.append((var.name, w))
+    out = pd.DataFrame({FILE: table.name, ROW: table.rows, study.id: frame[study.id].to_numpy(dtype=object),
+                        WAVE_RAW: raw_wave.to_numpy(dtype=object)})
+    for col in src.columns:
+        out[col] = frame[col].to_numpy()
+    return src, out
+
+
+def _map_wide(table: RawTable, codebook: Codebook):
+    _require_id(table, codebook)
+    study = codebook.study
+    frame = table.frame
+    expected: dict[str, tuple] = {}
+    for var in codebook.data_variables():
+        for w in study.waves:
+            if var.measured_at(w):
+                expected[study.wide_column(var.name, w)] = (var.name, w)
+    src = Source(table=table, waves=list(study.waves), layout="wide")
+    plain: dict[str, str] = {}
+    for col in frame.columns:
+        if col == study.id:
+            continue
+        if col in expected:
+            src.columns[col] = expected[col]
+        elif col in codebook.variables:  # a time-invariant column without a wave suffix
+            var = codebook.variables[col]
+            first = (var.waves or study.waves)[0]
+            src.columns[col] = (col, first)
+            plain[col] = col
+        else:
+            src.unknown.append(col)
+    covered = set(src.columns.values())
+    for col, (name, w) in expected.items():
+        if (name, w) not in covered:
+            src.absent.append((name, w))
+    parts = []
+    for w in study.waves:
+        cols = {name: c for c, (name, ww) in src.columns.items() if ww == w}
+        part = pd.DataFrame({FILE: table.name, ROW: table.rows,
+                             study.id: frame[study.id].to_numpy(dtype=object),
+                             WAVE_RAW: [w] * len(frame)})
+        for name, c in cols.items():
+            part[name] = frame[c].to_numpy()
+        if cols:  # a wave with no answer at all is a wave the person missed
+            answered = frame[list(cols.values())].notna().any(axis=1).to_numpy()
+            part = part[answered]
+        else:
+            part = part.iloc[0:0]
+        parts.append(part)
+    return src, pd.concat(parts, ignore_index=True, sort=False)
+
+
+def _normalise_ids(records: pd.DataFrame, sid: str) -> pd.DataFrame:
+    ids = records[sid]
+    filled = ids.notna() & (ids.astype(str).str.strip() != "")
+    num = pd.to_numeric(ids[filled], errors="coerce")
+    if len(num) and num.notna().all() and np.all(num == np.round(num)):
+        out = pd.Series(np.nan, index=records.index, dtype=object)
+        out[filled] = num.astype(np.int64).to_numpy()
+        records = records.assign(**{sid: out})
+        if filled.all():
+            records = records.assign(**{sid: records[sid].astype(np.int64)})
+    else:
+        records = records.assign(**{sid: ids.where(filled, None).map(
+            lambda v: None if v is None else str(v).strip())})
+    return records
+
+
+# --------------------------------------------------------------------------- cleaning
+
+
+def _clean(panel: Panel):
+    cb = panel.codebook
+    rec = panel.records
+    lookup = {wave_key(w): w for w in cb.study.waves}
+    wave = rec[WAVE_RAW].map(lambda v: lookup.get(wave_key(v)))
+    keep = rec[panel.id].notna().to_numpy() & wave.notna().to_numpy()
+    base = rec[keep].assign(**{"__wave": wave[keep]})
+    order = {w: i for i, w in enumerate(cb.study.waves)}
+    base = base.assign(__order=base["__wave"].map(order))
+    base = base.drop_duplicates(subset=[panel.id, "__order"], keep="first")
+    base = base.sort_values([panel.id, "__order"], kind="mergesort").reset_index(drop=True)
+    columns = {panel.id: base[panel.id].to_numpy(),
+               panel.wave: pd.Series(list(base["__wave"]), dtype=_wave_dtype(cb.study.waves)).to_numpy()}
+    reasons = []
+    for var in cb.data_variables():
+        if var.name == panel.wave:
+            continue
+        raw = base[var.name] if var.name in base.columns else pd.Series([np.nan] * len(base))
+        values, hit = clean_values(raw.reset_index(drop=True), var)
+        columns[var.name] = values
+        if hit is not None and hit.notna().any():
+            idx = np.flatnonzero(hit.notna().to_numpy())
+            reasons.append(pd.DataFrame({
+                "id": base[panel.id].to_numpy()[idx],
+                "wave": base["__wave"].to_numpy()[idx],
+                "variable": var.name,
+                "code": [str(_fmt_code(c)) for c in hit.to_numpy()[idx]],
+                "reason": [var.missing.get(c, "") for c in hit.to_numpy()[idx]],
+            }))
+    long = pd.DataFrame(columns)
+    for name, col in columns.items():
+        if isinstance(col, pd.Categorical):
+            long[name] = col
+    if reasons:
+        missing = pd.concat(reasons, ignore_index=True)
+    else:
+        missing = pd.DataFrame({"id": [], "wave": [], "variable": [], "code": [], "reason": []})
+    return long, missing
+
+
+def _wave_dtype(waves) -> str | None:
+    return "int64" if all(isinstance(w, (int, np.integer)) and not isinstance(w, bool) for w in waves) else object
+
+
+def _fmt_code(c):
+    if isinstance(c, float) and c.is_integer():
+        return int(c)
+    return c
+
+
+def match_missing(raw: pd.Series, var: Variable) -> pd.Series:
+    """The declared missing code each value equals (else NaN), as the codebook key."""
+    out = pd.Series([None] * len(raw), index=raw.index, dtype=object)
+    if not var.missing:
+        return out
+    num = pd.to_numeric(raw, errors="coerce")
+    text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
+    for code in var.missing:
+        if isinstance(code, (int, float)) and not isinstance(code, bool):
+            hit = (num == float(code)).to_numpy()
+        else:
+            hit = (text == str(code)).to_numpy()
+        out[hit & out.isna().to_numpy()] = code
+    return out
+
+
+def clean_values(raw: pd.Series, var: Variable):
+    """Raw values -> typed values with declared missing codes as NaN.
+
+    Returns the cleaned column (float array, Categorical, text or datetime)
+    and the Series of matched missing codes (None where none matched).
+    Values that do not fit the type become NaN (the checks report them).
+    """
+    hit = match_missing(raw, var)
+    raw = raw.where(hit.isna(), None)
+    if var.type in ("integer", "number"):
+        return pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float), hit
+    if var.type == "category":
+        codes = list(var.levels)
+        mapped = raw.map(lambda v: level_of(v, codes))
+        return pd.Categorical(mapped, categories=codes, ordered=var.ordered), hit
+    if var.type == "date":
+        text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
+        return pd.to_datetime(text, errors="coerce", format="ISO8601").to_numpy(), hit
+    text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
+    return text.to_numpy(dtype=object), hit
+
+
+def level_of(value, codes: list):
+    """The codebook level a raw value stands for (``2``, ``2.0``, ``"2"`` -> 2), or None."""
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return None
+    if value in codes:
+        return value
+    key = wave_key(value)
+    for c in codes:
+        if wave_key(c) == key:
+            return c
+    return None

@@ -1,0 +1,116 @@
+"""The report's figures, drawn from the result tables in wavetrail's figure style.
+
+Each function returns ``(figure, data)``: the matplotlib figure and the tidy table
+it shows, which :func:`wavetrail.figures.save_figure` writes beside the PNG and SVG.
+Lines differ by colour (colour-vision-safe palette), line style and marker, so
+they stay apart in greyscale.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from wavetrail.figures import LINESTYLES, MARKERS, PALETTE, plt, style
+
+
+def _wave_axis(ax, waves, times, unit: str | None):
+    if len(times):
+        ax.set_xticks(list(times))
+        if list(map(str, waves)) != [f"{t:g}" for t in times]:
+            ax.set_xticklabels([f"{w}\n({t:g})" for w, t in zip(waves, times)])
+    label = "Wave (time score" + (f", {unit})" if unit else ")")
+    ax.set_xlabel(label)
+
+
+def attrition_figure(attrition: pd.DataFrame):
+    """Participants present at each wave (count) with retention in percent on the right axis."""
+    data = attrition[["wave", "n_present"]].copy()
+    with style():
+        fig, ax = plt.subplots(figsize=(6.0, 3.2))
+        x = np.arange(len(data))
+        ax.plot(x, data["n_present"], color=PALETTE[0], marker=MARKERS[0], linestyle=LINESTYLES[0])
+        for xi, n in zip(x, data["n_present"]):
+            ax.annotate(f"{int(n):,}", (xi, n), textcoords="offset points", xytext=(0, 6), ha="center", fontsize=8)
+        ax.set_xticks(x)
+        ax.set_xticklabels([str(w) for w in data["wave"]])
+        ax.set_xlabel("Wave")
+        ax.set_ylabel("Participants present (n)")
+        top = float(data["n_present"].max()) if len(data) else 1.0
+        ax.set_ylim(0, top * 1.15 if top > 0 else 1)
+    return fig, data
+
+
+def trajectory_figure(observed: pd.DataFrame, implied: pd.DataFrame, *, waves, times, unit, ylabel):
+    """Observed wave means (95% CI) against the mean trajectory each growth model implies.
+
+    ``observed``: wave, time, n, mean, lo, hi. ``implied``: model, time, expected.
+    """
+    with style():
+        fig, ax = plt.subplots(figsize=(6.0, 3.8))
+        ax.errorbar(observed["time"], observed["mean"],
+                    yerr=[observed["mean"] - observed["lo"], observed["hi"] - observed["mean"]],
+                    color="#000000", marker="o", linestyle="none", capsize=3, label="Observed mean (95% CI)")
+        for k, (model, part) in enumerate(implied.groupby("model", sort=False)):
+            ax.plot(part["time"], part["expected"], color=PALETTE[k % len(PALETTE)],
+                    linestyle=LINESTYLES[(k + 1) % len(LINESTYLES)], marker=MARKERS[(k + 1) % len(MARKERS)],
+                    markersize=4, label=f"Implied: {model}")
+        _wave_axis(ax, waves, times, unit)
+        ax.set_ylabel(ylabel)
+        ax.legend(frameon=False, fontsize=8)
+    data = pd.concat(
+        [observed.assign(series="observed").rename(columns={"mean": "value"})[["series", "time", "value", "lo", "hi"]],
+         implied.rename(columns={"expected": "value", "model": "series"}).assign(lo=np.nan, hi=np.nan)[
+             ["series", "time", "value", "lo", "hi"]]],
+        ignore_index=True,
+    )
+    return fig, data
+
+
+def importance_figure(importance: pd.DataFrame, labels: dict[str, str]):
+    """Permutation importance of the top predictors with ±1.96 SE bars, largest on top."""
+    data = importance[["predictor", "importance", "se"]].copy()
+    data["lo"] = data["importance"] - 1.96 * data["se"].fillna(0)
+    data["hi"] = data["importance"] + 1.96 * data["se"].fillna(0)
+    data = data.iloc[::-1].reset_index(drop=True)
+    with style():
+        height = 1.2 + 0.28 * len(data)
+        fig, ax = plt.subplots(figsize=(6.0, height))
+        y = np.arange(len(data))
+        ax.errorbar(data["importance"], y, xerr=[data["importance"] - data["lo"], data["hi"] - data["importance"]],
+                    color=PALETTE[0], marker=MARKERS[1], linestyle="none", capsize=2)
+        ax.axvline(0, color="#000000", linewidth=0.8, linestyle=LINESTYLES[3])
+        ax.set_yticks(y)
+        ax.set_yticklabels([labels.get(p, p) for p in data["predictor"]])
+        ax.set_xlabel("Permutation importance (drop in out-of-bag log-likelihood)")
+    return fig, data.iloc[::-1].reset_index(drop=True)
+
+
+def dependence_figure(dependence: pd.DataFrame, predictors: list[str], labels: dict[str, str], *,
+                      waves, times, unit, ylabel):
+    """Expected trajectories at each level of the top predictors, one panel per predictor."""
+    data = dependence[dependence["predictor"].isin(predictors)].copy()
+    with style():
+        fig, axes = plt.subplots(1, len(predictors), figsize=(2.6 * len(predictors) + 0.8, 3.4), sharey=True,
+                                 squeeze=False)
+        for ax, name in zip(axes[0], predictors):
+            part = data[data["predictor"] == name]
+            for k, (level, curve) in enumerate(part.groupby("level", sort=False)):
+                curve = curve.sort_values("time")
+                value = curve["value"].iloc[0]
+                text = f"{level} ({_short(value)})" if str(level) != str(value) else str(level)
+                ax.plot(curve["time"], curve["expected"], color=PALETTE[k % len(PALETTE)],
+                        linestyle=LINESTYLES[k % len(LINESTYLES)], marker=MARKERS[k % len(MARKERS)],
+                        markersize=4, label=text)
+            ax.set_title(labels.get(name, name), fontsize=9)
+            _wave_axis(ax, waves, times, unit)
+            ax.legend(frameon=False, fontsize=7)
+        axes[0][0].set_ylabel(ylabel)
+    return fig, data.reset_index(drop=True)
+
+
+def _short(value) -> str:
+    try:
+        return f"{float(value):.3g}"
+    except (TypeError, ValueError):
+        return str(value)

@@ -1,0 +1,307 @@
+"""Fitting one model to data: estimates, standard errors, fit indices, admissibility.
+
+Standard errors come from the inverse of the **observed** information (the
+negative Hessian of the log-likelihood, by central differences of the analytic
+gradient) by default: with missing data under MAR only the observed information
+gives valid standard errors (Kenward & Molenberghs 1998, Biometrika 85(1)).
+``information="expected"`` uses the Fisher information instead.
+
+Estimation is unrestricted ML: variances may become negative and latent
+covariance matrices indefinite as long as every pattern's implied covariance
+stays positive definite. Such solutions are reported with ``admissible=False``
+and a note (a Heywood case or a boundary solution), never hidden or clipped.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import stats as sps
+
+from wavetrail.errors import ModelError
+from wavetrail.sem.indices import fit_indices
+from wavetrail.sem.likelihood import evaluate
+from wavetrail.sem.optimise import fit_batch
+from wavetrail.sem.saturated import independence, saturated
+from wavetrail.sem.spec import ALPHA, BETA, LAMBDA, NU, PSI, THETA
+from wavetrail.sem.stats import SuffStats
+
+
+@dataclass
+class SemFit:
+    """A fitted model.
+
+    Attributes
+    ----------
+    spec : ModelSpec
+    theta : (k,) estimates of the free parameters (``spec.param_names`` order)
+    estimates : DataFrame, one row per stated entry: parameter, kind, left, right,
+        label, free, estimate, se, z, p, std
+    fit : dict n, loglik, chisq, df, p, cfi, tli, rmsea, rmsea_lo, rmsea_hi, srmr,
+        aic, bic, sabic, converged, admissible, note (and baseline_chisq, baseline_df, k)
+    implied_mean : (p,)  implied_cov : (p, p)
+    vcov : (k, k) covariance of the estimates (NaN if the information is singular)
+    converged, admissible : bool;  notes : list of str
+    """
+
+    spec: object
+    theta: np.ndarray
+    estimates: pd.DataFrame
+    fit: dict
+    implied_mean: np.ndarray
+    implied_cov: np.ndarray
+    vcov: np.ndarray
+    converged: bool
+    admissible: bool
+    notes: list = field(default_factory=list)
+    n_iter: int = 0
+    information: str = "observed"
+    saturated_mean: np.ndarray | None = None
+    saturated_cov: np.ndarray | None = None
+
+    @property
+    def loglik(self) -> float:
+        return float(self.fit["loglik"])
+
+
+def data_matrix(spec, data, where="data"):
+    """The observed columns of ``data`` as a float array, with clear errors for bad input."""
+    if isinstance(data, pd.DataFrame):
+        missing = [c for c in spec.observed if c not in data.columns]
+        if missing:
+            raise ModelError(f"{where}: column(s) {missing} of the model are not in the data",
+                             hint=f"the data has columns {list(map(str, data.columns))[:20]}")
+        try:
+            Y = data[spec.observed].apply(pd.to_numeric, errors="raise").to_numpy(dtype=float)
+        except (ValueError, TypeError) as err:
+            raise ModelError(f"{where}: model columns must be numeric ({err})") from None
+    else:
+        Y = np.asarray(data, dtype=float)
+        if Y.ndim != 2 or Y.shape[1] != spec.p:
+            raise ModelError(f"{where}: expected an array with {spec.p} columns, got shape {Y.shape}")
+    return Y
+
+
+def check_data(spec, Y, where="data"):
+    """Refuse data the model cannot be fitted to; return notes for warnings."""
+    notes = []
+    for j, name in enumerate(spec.observed):
+        col = Y[:, j]
+        obs = col[~np.isnan(col)]
+        if len(obs) == 0:
+            raise ModelError(f"{where}: variable {name!r} has no observations",
+                             hint="drop the variable (or wave) from the model")
+        if len(obs) > 1 and np.ptp(obs) == 0:
+            raise ModelError(f"{where}: variable {name!r} is constant (every value is {obs[0]:g})",
+                             hint="a constant variable has no variance to model; drop it from the model")
+    n = int((~np.isnan(Y)).any(axis=1).sum())
+    k = spec.k
+    if n < 2:
+        raise ModelError(f"{where}: only {n} row(s) with any observation; a model needs more people")
+    n_obs = int((~np.isnan(Y)).sum())
+    if n_obs < k:
+        raise ModelError(f"{where}: {n_obs} observed values for {k} free parameters",
+                         hint="collect more data or fit a simpler model")
+    if n < k:
+        notes.append(f"fewer people ({n}) than free parameters ({k}); estimates may be unstable")
+    return notes
+
+
+def fit(spec, data, missing="fiml", start=None, information="observed", max_iter=500, tol=1e-10,
+        where="data", meanstructure=True) -> SemFit:
+    """Fit ``spec`` by maximum likelihood.
+
+    Parameters
+    ----------
+    spec : ModelSpec
+    data : DataFrame with the observed columns (NaN = missing), an (n, p)
+        array, or a :class:`SuffStats` with B = 1
+    missing : {"fiml", "listwise"}
+    start : (k,) starting values, optional
+    information : {"observed", "expected"} for the standard errors
+    where : str, names the data in error messages (e.g. the file)
+    meanstructure : bool
+        ``False`` counts neither the free intercepts nor the means in parameters,
+        moments, AIC and BIC (a covariance-structure model). Every observed
+        variable must then have its own free intercept (so the means are
+        saturated); chi-square and df do not change.
+
+    Returns
+    -------
+    SemFit
+    """
+    if missing not in ("fiml", "listwise"):
+        raise ModelError(f"missing={missing!r}: use 'fiml' or 'listwise'")
+    if information not in ("observed", "expected"):
+        raise ModelError(f"information={information!r}: use 'observed' or 'expected'")
+    notes: list[str] = []
+    if isinstance(data, SuffStats):
+        stats = data
+        if stats.B != 1:
+            raise ModelError("fit() takes statistics of one sample; use fit_batch for several")
+    else:
+        Y = data_matrix(spec, data, where)
+        if missing == "listwise":
+            keep = ~np.isnan(Y).any(axis=1)
+            if keep.sum() < len(Y):
+                notes.append(f"listwise deletion dropped {int(len(Y) - keep.sum())} of {len(Y)} rows")
+            Y = Y[keep]
+        notes += check_data(spec, Y, where)
+        stats = SuffStats.from_data(Y)
+    cm = spec.compile()
+    N = float(stats.total[0])
+    bf = fit_batch(spec, stats, start=start, max_iter=max_iter, tol=tol)
+    theta = bf.theta[0]
+    converged = bool(bf.converged[0]) and np.isfinite(bf.loglik[0])
+    ll = float(bf.loglik[0])
+    if not converged:
+        notes.append(f"did not converge in {bf.n_iter} iterations (decrement {bf.decrement[0]:.3g})")
+    # standard errors
+    vcov = _vcov(cm, theta, stats, information)
+    if not np.all(np.isfinite(vcov)):
+        notes.append("information matrix is singular: the model may not be identified; no standard errors")
+    mu, sigma = spec.implied(theta)
+    adm, adm_notes = admissibility(spec, theta)
+    notes += adm_notes
+    # reference models
+    mu_s, sig_s, ll_s, _, sat_ok = saturated(stats)
+    if not sat_ok:
+        notes.append("the saturated model (EM) did not converge; fit indices are approximate")
+    ev = np.linalg.eigvalsh(sig_s)
+    if ev[0] <= 1e-10 * max(ev[-1], 1e-300):
+        notes.append("sample covariance matrix is not positive definite; chi-square and fit indices are not available")
+        ll_s = np.nan
+    _, _, ll_b = independence(stats)
+    p = spec.p
+    n_moments = _n_moments(spec)
+    k_count = cm.k
+    if not meanstructure:
+        own = _own_intercepts(spec)
+        if own is None:
+            raise ModelError("meanstructure=False needs a free, unlabelled intercept for every observed variable")
+        k_count -= own
+        n_moments -= p
+    fitd = fit_indices(ll, k_count, N, p, ll_s, ll_b, sig_s if np.isfinite(ll_s) else None, sigma,
+                       n_moments=n_moments, n_base=p if meanstructure else 0)
+    fitd["converged"] = converged
+    fitd["admissible"] = adm
+    fitd["note"] = "; ".join(notes)
+    est = estimates_table(spec, theta, vcov)
+    return SemFit(spec=spec, theta=theta, estimates=est, fit=fitd, implied_mean=mu, implied_cov=sigma,
+                  vcov=vcov, converged=converged, admissible=adm, notes=notes, n_iter=int(bf.n_iter),
+                  information=information, saturated_mean=mu_s, saturated_cov=sig_s)
+
+
+def _own_intercepts(spec):
+    free = [e for e in spec.entries if e.matrix == NU and e.param >= 0 and e.label is None]
+    if len({e.row for e in free}) != spec.p or any(e.matrix == ALPHA and e.param >= 0 for e in spec.entries):
+        return None
+    return len(free)
+
+
+def _n_moments(spec):
+    """Means, variances and covariances of the modelled variables.
+
+    Exogenous stand-ins of covariates (residual variance fixed at 0, loading 1)
+    are modelled too (their mean and variance are free parameters), so they count.
+    """
+    p = spec.p
+    return p * (p + 3) // 2
+
+
+def observed_information(cm, theta, stats, base=None):
+    """Negative Hessian of the log-likelihood by central differences of the analytic gradient."""
+    k = cm.k
+    h = 1e-5 * np.maximum(np.abs(theta), 1.0)
+    per = max(1, int(4e6 // max(1, k * cm.p * cm.p)))
+    rows = np.vstack([theta + np.diag(h), theta - np.diag(h)])
+    grads = []
+    for lo in range(0, len(rows), per):
+        grads.append(evaluate(cm, rows[lo:lo + per], stats, grad=True, info=False, base=base)[1])
+    g = np.vstack(grads)
+    Hs = (g[:k] - g[k:]) / (2 * h[:, None])
+    return -0.5 * (Hs + Hs.T)
+
+
+def _vcov(cm, theta, stats, information):
+    if information == "expected":
+        I = evaluate(cm, theta[None], stats, grad=False, info=True)[1][0]
+    else:
+        I = observed_information(cm, theta, stats)
+    try:
+        ev = np.linalg.eigvalsh(I)
+        if ev[0] <= 1e-10 * max(abs(ev[-1]), 1e-300):
+            raise np.linalg.LinAlgError
+        return np.linalg.inv(I)
+    except np.linalg.LinAlgError:
+        return np.full((cm.k, cm.k), np.nan)
+
+
+def admissibility(spec, theta):
+    """(admissible, notes): negative variances, indefinite latent covariances, |r| > 1."""
+    cm = spec.compile()
+    mats = cm.matrices(np.atleast_2d(theta))
+    notes = []
+    Th, Psi = mats[THETA][0], mats[PSI][0]
+    for i, name in enumerate(spec.observed):
+        if Th[i, i] < 0:
+            notes.append(f"negative residual variance of {name} ({Th[i, i]:.4g})")
+    for i, name in enumerate(spec.latent):
+        if Psi[i, i] < 0:
+            notes.append(f"negative variance of {name} ({Psi[i, i]:.4g})")
+    if spec.m:
+        ev = np.linalg.eigvalsh(Psi)
+        scale = max(np.abs(ev).max(), 1e-300)
+        d = np.diag(Psi)
+        for i in range(spec.m):
+            for j in range(i + 1, spec.m):
+                if d[i] > 0 and d[j] > 0 and abs(Psi[i, j]) > np.sqrt(d[i] * d[j]) * (1 + 1e-6):
+                    notes.append(f"correlation of {spec.latent[i]} and {spec.latent[j]} beyond +-1 "
+                                 f"({Psi[i, j] / np.sqrt(d[i] * d[j]):.4g})")
+        if ev[0] < -1e-8 * scale and not any("negative variance" in n_ for n_ in notes):
+            notes.append("latent covariance matrix is not positive semi-definite")
+        elif abs(ev[0]) <= 1e-6 * scale and (d > 0).all():
+            notes.append("boundary solution: latent covariance matrix is singular (a correlation of +-1)")
+    for i, name in enumerate(spec.observed):
+        if Th[i, i] == 0 and any(e.matrix == THETA and e.row == i == e.col and e.param >= 0 for e in cm.entries):
+            notes.append(f"residual variance of {name} is exactly 0")
+    adm = not any(n_.startswith(("negative", "correlation", "latent covariance")) for n_ in notes)
+    return adm, notes
+
+
+def estimates_table(spec, theta, vcov) -> pd.DataFrame:
+    """One row per stated entry with estimate, standard error, z, two-sided p and std."""
+    cm = spec.compile()
+    theta2 = np.atleast_2d(theta)
+    mats, L, M, Aa = cm._pieces(theta2)
+    _, sigma = cm.implied(theta2)
+    sd_x = np.sqrt(np.maximum(np.diag(sigma[0]), 0))
+    sd_f = np.sqrt(np.maximum(np.diag(M[0]), 0)) if spec.m else np.zeros(0)
+    se_all = np.sqrt(np.where(np.diag(vcov) >= 0, np.diag(vcov), np.nan))
+    rows = []
+    for e in cm.entries:
+        est = theta[e.param] if e.param >= 0 else e.value
+        se = se_all[e.param] if e.param >= 0 else np.nan
+        with np.errstate(divide="ignore", invalid="ignore"):
+            z = est / se if e.param >= 0 else np.nan
+            pz = 2 * sps.norm.sf(abs(z)) if np.isfinite(z) else np.nan
+            if e.matrix == LAMBDA:
+                std = est * sd_f[e.col] / sd_x[e.row]
+            elif e.matrix == PSI:
+                std = est / (sd_f[e.row] * sd_f[e.col])
+            elif e.matrix == THETA:
+                std = est / (sd_x[e.row] * sd_x[e.col])
+            elif e.matrix == NU:
+                std = est / sd_x[e.row]
+            elif e.matrix == ALPHA:
+                std = est / sd_f[e.row]
+            else:  # BETA
+                std = est * sd_f[e.col] / sd_f[e.row]
+        rows.append({"parameter": e.name, "kind": e.kind, "left": e.left, "right": e.right,
+                     "label": e.label or "", "free": e.param >= 0, "estimate": float(est), "se": float(se),
+                     "z": float(z), "p": float(pz), "std": float(std) if np.isfinite(std) else np.nan})
+    return pd.DataFrame(rows, columns=["parameter", "kind", "left", "right", "label", "free", "estimate",
+                                       "se", "z", "p", "std"])

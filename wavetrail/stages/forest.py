@@ -1,0 +1,216 @@
+"""Workflow steps of the moderator forest: grow shards, merge them, summarise.
+
+``grow_forest_shard`` grows the trees ``i`` (0-based) with ``i % K == shard - 1``
+for ``K = forest.shards``; tree ``i`` is seeded by
+``derive_seed(config["seed"], "forest", i)``, so the merged forest is the same
+for any ``K``. ``merge_forest`` joins the shards into ``forest.json``;
+``summarise_forest`` writes the importance, expected-trajectory and interaction
+tables and the two figures.
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from wavetrail._io import atomic_write_text, write_table
+from wavetrail.errors import ConfigError, DataError
+
+log = logging.getLogger("wavetrail")
+
+#: predictors drawn in the trajectory figure (at most)
+FIGURE_PANELS = 6
+
+
+def _settings(job) -> dict:
+    cfg = dict(job.config.get("forest") or {})
+    cfg.update(job.params.get("settings") or {})
+    return cfg
+
+
+def _outcome(job, cfg) -> str:
+    name = cfg.get("outcome")
+    if name:
+        return str(name)
+    outs = (job.config.get("growth") or {}).get("outcomes") or []
+    if not outs:
+        raise ConfigError("config/config.yaml: forest.outcome is not set and growth.outcomes is empty",
+                          hint="name the scale under forest.outcome")
+    return str(outs[0])
+
+
+def _inputs(job, cfg):
+    """(wide outcome, predictors, time scores) of the forest, on the same people."""
+    from wavetrail.codebook import load_codebook
+    from wavetrail.panel import load_panel
+    from wavetrail.scoring import wide_scores
+
+    codebook = load_codebook(job.path(job.input["codebook"]))
+    data = job.input["data"]
+    data = [data] if isinstance(data, str) else list(data)
+    panel = load_panel([job.path(p) for p in data], codebook)
+    predictors = panel.predictors(cfg.get("predictors", "wave1"))
+    scores = pd.read_csv(job.path(job.input["scores"]))
+    outcome = _outcome(job, cfg)
+    waves = list(codebook.study.waves)
+    wide = wide_scores(scores, outcome, waves)
+    if wide.empty:
+        raise DataError(f"{job.input['scores']}: no scores of scale {outcome!r}",
+                        hint="check forest.outcome in config/config.yaml against the scales")
+    times = codebook.study.time_scores
+    if times is None:
+        times = tuple(float(i) for i in range(len(waves)))
+    wide.index = wide.index.map(str)
+    predictors = predictors.copy()
+    predictors.index = predictors.index.map(str)
+    ids = wide.index.intersection(predictors.index).sort_values()
+    if len(ids) == 0:
+        raise DataError("no person has both outcome scores and predictors",
+                        hint="check that scores.csv and the data files share the id column")
+    return wide.loc[ids], predictors.loc[ids], list(times)
+
+
+def _options(job, cfg) -> dict:
+    growth = job.config.get("growth") or {}
+    method = cfg.get("method", "score")
+    return {
+        "shape": cfg.get("shape", "linear"),
+        "residuals": growth.get("residuals", "free"),
+        "alpha": float(cfg.get("alpha", 0.05)),
+        "min_size": cfg.get("min_size"),
+        "max_depth": cfg.get("max_depth"),
+        "mtry": cfg.get("mtry"),
+        "sample_share": float(cfg.get("sample_share", 0.632)),
+        "split": "likelihood" if method in ("likelihood", "lr") else "score",
+    }
+
+
+def grow_forest_shard(job) -> None:
+    """Grow this shard's trees and write them as a forest JSON file."""
+    from wavetrail.forest import grow_forest
+
+    cfg = _settings(job)
+    K = int(cfg.get("shards", 1))
+    try:
+        shard = int(job.wildcards["shard"])
+    except (KeyError, ValueError):
+        raise ConfigError("grow_forest_shard needs a numeric shard wildcard") from None
+    if not 1 <= shard <= K:
+        raise ConfigError(f"shard {shard} is outside 1..{K} (forest.shards = {K})",
+                          hint="run the shards the workflow lists")
+    trees = int(cfg.get("trees", 500))
+    indices = [i for i in range(trees) if i % K == shard - 1]
+    wide, predictors, times = _inputs(job, cfg)
+    log.info("forest shard %d of %d: %d trees on %d people, %d predictors",
+             shard, K, len(indices), len(wide), predictors.shape[1])
+    forest = grow_forest(wide, predictors, times, trees=trees, seed=int(job.config.get("seed", 0)),
+                         n_jobs=int(job.params.get("n_jobs", 1) or 1), tree_indices=indices,
+                         **_options(job, cfg))
+    atomic_write_text(job.path(job.output["shard"]), forest.to_json() + "\n")
+
+
+def _read_forest(path: Path):
+    from wavetrail.forest import Forest
+
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as err:
+        raise DataError(f"{path}: cannot read the forest file ({err.strerror})",
+                        hint="rebuild the forest steps") from None
+    return Forest.from_json(text, source=str(path))
+
+
+def merge_forest(job) -> None:
+    """Join the shard files into results/forest/forest.json (all tree indices, once each)."""
+    from wavetrail.forest import Forest
+
+    shards = job.input["shards"]
+    shards = [shards] if isinstance(shards, str) else list(shards)
+    forest = Forest.merge([_read_forest(job.path(p)) for p in shards])
+    want = int(forest.settings_.get("trees", len(forest.trees_)))
+    have = [t.index for t in forest.trees_]
+    if have != list(range(want)):
+        raise DataError(f"the shards hold {len(have)} of the {want} trees of the forest",
+                        hint="rerun every grow_forest_shard job with the same config")
+    log.info("forest: merged %d shards, %d trees", len(shards), len(have))
+    atomic_write_text(job.path(job.output["forest"]), forest.to_json() + "\n")
+
+
+def _levels(forest, predictors: pd.DataFrame, name: str):
+    """(level labels, values) of a predictor for the expected-trajectory table."""
+    j = forest.info_.index(name)
+    levels = forest.info_.levels[j]
+    if levels is not None:
+        return list(levels), list(levels)
+    col = pd.to_numeric(predictors[name], errors="coerce").dropna()
+    if col.empty:
+        return [], []
+    mean, sd = float(col.mean()), float(col.std(ddof=1)) if len(col) > 1 else 0.0
+    return ["low", "average", "high"], [mean - sd, mean, mean + sd]
+
+
+def summarise_forest(job) -> None:
+    """Write importance.csv, dependence.csv, interactions.csv and the two figures."""
+    cfg = _settings(job)
+    forest = _read_forest(job.path(job.input["forest"]))
+    _, predictors, _ = _inputs(job, cfg)
+    forest.attach_background(predictors)
+    top = int(cfg.get("top", 10))
+    imp = forest.importance()
+    write_table(job.path(job.output["importance"]), imp)
+    names = list(imp["predictor"][:top])
+    parts = []
+    for i, name in enumerate(names):
+        labels, values = _levels(forest, predictors, name)
+        if not values:
+            continue
+        dep = forest.dependence(name, values)
+        dep.insert(0, "level", np.repeat(labels, len(forest.times_)))
+        dep.insert(0, "predictor", name)
+        parts.append(dep)
+        log.info("forest: expected trajectories %d of %d", i + 1, len(names))
+    dep = (pd.concat(parts, ignore_index=True) if parts
+           else pd.DataFrame(columns=["predictor", "level", "value", "time", "expected"]))
+    write_table(job.path(job.output["dependence"]), dep)
+    pairs = cfg.get("interaction_pairs")
+    inter = forest.interactions(pairs=None if pairs is None else [tuple(p) for p in pairs], top=top)
+    write_table(job.path(job.output["interactions"]), inter)
+    _figures(job, imp.head(max(top, 10)), dep, names[:FIGURE_PANELS])
+
+
+def _figures(job, imp: pd.DataFrame, dep: pd.DataFrame, names: list[str]) -> None:
+    import matplotlib.pyplot as plt
+
+    from wavetrail.figures import LINESTYLES, MARKERS, PALETTE, save_figure, style
+
+    with style():
+        fig, ax = plt.subplots(figsize=(6.0, 0.3 * len(imp) + 1.2))
+        y = np.arange(len(imp))[::-1]
+        se = imp["se"].fillna(0.0).to_numpy()
+        ax.barh(y, imp["importance"], xerr=se, color=PALETTE[0], ecolor="#000000", capsize=2)
+        ax.set_yticks(y, imp["predictor"])
+        ax.set_xlabel("mean drop in out-of-bag log-likelihood per person (error bars: 1 SE)")
+        ax.axvline(0.0, color="#000000", linewidth=0.8)
+        save_figure(fig, Path(job.path(job.output["importance_figure"])).with_suffix(""), imp)
+
+        n = max(1, len(names))
+        cols = min(3, n)
+        rows = int(np.ceil(n / cols))
+        fig, axes = plt.subplots(rows, cols, figsize=(3.2 * cols, 2.6 * rows), squeeze=False,
+                                 sharey=True)
+        for a in axes.ravel()[n:]:
+            a.set_visible(False)
+        for a, name in zip(axes.ravel(), names):
+            sub = dep[dep["predictor"] == name]
+            for i, (level, g) in enumerate(sub.groupby("level", sort=False)):
+                a.plot(g["time"], g["expected"], color=PALETTE[i % len(PALETTE)],
+                       linestyle=LINESTYLES[i % len(LINESTYLES)], marker=MARKERS[i % len(MARKERS)],
+                       label=str(level))
+            a.set_title(name)
+            a.set_xlabel("time")
+            a.legend(fontsize=7, frameon=False)
+        axes[0, 0].set_ylabel("expected score")
+        save_figure(fig, Path(job.path(job.output["trajectories_figure"])).with_suffix(""), dep)
