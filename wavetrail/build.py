@@ -250,7 +250,12 @@ def _failure_message(root: Path, output: list[str], returncode: int) -> str:
                 if lm:
                     log_file = lm.group(1)
                     break
-    step_errors = [m.group(2) for m in map(_STEP_FAILED.search, output) if m]
+    step_errors = []
+    for i, line in enumerate(output):
+        m = _STEP_FAILED.search(line)
+        if m:
+            hint = [h.strip() for h in output[i + 1 : i + 3] if h.strip().startswith("->")]
+            step_errors.append("\n  ".join([m.group(2), *hint[:1]]))
     if failed_rule:
         parts = [f"the workflow stopped: rule {failed_rule} failed"]
         if step_errors:

@@ -186,13 +186,17 @@ def ledger(
         if as_json:
             console.print_json(table.to_json(orient="records"))
         elif len(table):
-            print_table(table, title="Drift")
+            print_table(table[["file", "problem", "step", "detail"]], title="Drift", max_rows=500)
+            console.print(f"{len(table)} file(s) no longer match the ledger; `wavetrail build` reruns what is "
+                          "stale (a hand-edited output is rebuilt only when its job reruns)")
         else:
             console.print("no drift: every output matches its ledger record")
         raise typer.Exit(1 if len(table) else 0)
     table = ledger_mod.ledger_table(path)
     if as_json:
         console.print_json(table.to_json(orient="records"))
+    elif not len(table):
+        console.print("no ledger records yet (results/ledger/ is empty); run `wavetrail build`")
     else:
         shown = table.copy()
         wild = shown["wildcards"].fillna("").astype(str)
@@ -250,8 +254,10 @@ def verify(
     rtol: float = typer.Option(1e-6, "--rtol", help="Relative tolerance for numeric tables in --rebuild."),
 ):
     """Verify a reviewer archive: integrity, provenance closure, optionally a rebuild."""
-    from wavetrail.archive import verify_archive
+    from wavetrail.archive import REBUILD_WARNING, verify_archive
 
+    if rebuild:
+        err_console.print(f"warning: {REBUILD_WARNING}")
     report = verify_archive(archive, rebuild=rebuild, json_path=json_out, rtol=rtol)
     print_table(report.table, title="Verification")
     console.print(report.summary)

@@ -182,7 +182,6 @@ def longitudinal_invariance(long: pd.DataFrame, items: Sequence[str], waves: Seq
     Invariance
     """
     from wavetrail.scoring import reverse_key
-    from wavetrail.sem import fit
 
     items = list(items)
     waves = list(waves)
@@ -192,13 +191,13 @@ def longitudinal_invariance(long: pd.DataFrame, items: Sequence[str], waves: Seq
     keyed[items] = reverse_key(long[items], reverse, bounds).to_numpy()
     data = _wide(keyed, items, waves, id, wave)
     data = data[data.notna().any(axis=1)]
+    prep = _Prepared.from_frame(data, scale)
     T = len(waves)
-    where = f"scale {scale}"
     fits = {}
     start = None
     for step in STEPS:
         spec = invariance_spec(items, T, step)
-        fits[step] = fit(spec, data, start=_carry(start, spec), where=where)
+        fits[step] = prep.fit(spec, _carry(start, spec))
         start = fits[step]
     rows = [_row(scale, "configural", fits["configural"], None, "")]
     rows.append(_row(scale, "metric", fits["metric"], fits["configural"], "loadings"))
@@ -206,17 +205,18 @@ def longitudinal_invariance(long: pd.DataFrame, items: Sequence[str], waves: Seq
     if rows[1]["decision"] != "holds":
         rows[2]["note"] = _join(rows[2]["note"], "metric step failed: scalar tested for completeness")
     order = pd.DataFrame(columns=["item", "cfi", "delta_cfi", "chisq_drop"])
-    if partial and rows[2]["decision"] != "holds":
-        order = _free_order(items, T, data, fits, where)
-        rows[2]["free_order"] = "; ".join(f"{r.item} ({r.delta_cfi:+.4f})" for r in order.itertuples())
+    if partial and rows[2]["decision"] == "fails":
+        order = _free_order(items, T, prep, fits)
+        rows[2]["free_order"] = "; ".join(f"{r.item} (chisq -{r.chisq_drop:.2f}, cfi {r.delta_cfi:+.4f})"
+                                          for r in order.itertuples())
         freed: list[str] = []
-        best = None
+        best = row = None
         for item in order["item"]:
             if len(freed) >= len(items) - 1:
                 break
             freed.append(item)
             spec = invariance_spec(items, T, "scalar", free_intercepts=freed)
-            best = fit(spec, data, start=_carry(fits["scalar"], spec), where=where)
+            best = prep.fit(spec, _carry(fits["scalar"], spec))
             row = _row(scale, "partial_scalar", best, fits["metric"], "intercepts")
             if row["decision"] == "holds":
                 break
@@ -228,36 +228,107 @@ def longitudinal_invariance(long: pd.DataFrame, items: Sequence[str], waves: Seq
     return Invariance(table=table, free_order=order.reset_index(drop=True), fits=fits)
 
 
-def _free_order(items, T, data, fits, where) -> pd.DataFrame:
-    from wavetrail.sem import fit
+@dataclass
+class StepFit:
+    """One fitted step: estimates by entry name and the fit indices (no standard errors)."""
 
+    spec: object
+    theta: np.ndarray
+    fit: dict
+    converged: bool
+    admissible: bool
+    notes: list
+
+    @property
+    def values(self) -> dict:
+        """Entry name -> value (free estimates and fixed values)."""
+        cm = self.spec.compile()
+        return {e.name: (float(self.theta[e.param]) if e.param >= 0 else float(e.value)) for e in cm.entries}
+
+
+class _Prepared:
+    """The data of one scale as sufficient statistics, with its saturated and baseline fits.
+
+    The steps only need fit indices, so each is fitted with the engine's batched
+    optimiser (:func:`wavetrail.sem.fit_batch`) against reference models computed
+    once, and no standard errors are computed.
+    """
+
+    def __init__(self, Y: np.ndarray, names: list[str], where: str):
+        from wavetrail.sem import SuffStats
+        from wavetrail.sem.saturated import independence, saturated
+
+        for j, name in enumerate(names):
+            col = Y[:, j][np.isfinite(Y[:, j])]
+            if len(col) < 3:
+                raise ModelError(f"{where}: {name.replace('@', ' at wave position ')} has {len(col)} answers; "
+                                 "too few to model", hint="leave the scale or the wave out of `invariance.scales`")
+            if np.ptp(col) == 0:
+                raise ModelError(f"{where}: {name} is constant (every answer {col[0]:g})",
+                                 hint="a constant item has no variance to model")
+        self.where = where
+        self.stats = SuffStats.from_data(Y)
+        self.n = float(self.stats.total[0])
+        self.p = Y.shape[1]
+        self.sat_mean, self.sat_cov, self.ll_sat, _, sat_ok = saturated(self.stats)
+        self.notes = [] if sat_ok else ["the saturated model (EM) did not converge; fit indices are approximate"]
+        self.ll_base = independence(self.stats)[2]
+
+    @classmethod
+    def from_frame(cls, data: pd.DataFrame, scale: str) -> "_Prepared":
+        return cls(data.to_numpy(dtype=float), list(data.columns), f"scale {scale}")
+
+    def fit(self, spec, start=None) -> StepFit:
+        from wavetrail.sem import fit_batch
+        from wavetrail.sem.fitting import admissibility
+        from wavetrail.sem.indices import fit_indices
+
+        bf = fit_batch(spec, self.stats, start=start, max_iter=500, tol=1e-10)
+        theta = bf.theta[0]
+        ll = float(bf.loglik[0])
+        converged = bool(bf.converged[0]) and np.isfinite(ll)
+        notes = list(self.notes)
+        if not converged:
+            notes.append(f"did not converge in {bf.n_iter} iterations")
+        _, sigma = spec.implied(theta)
+        adm, adm_notes = admissibility(spec, theta)
+        notes += adm_notes
+        ind = fit_indices(ll, spec.k, self.n, self.p, self.ll_sat, self.ll_base, self.sat_cov, sigma)
+        ind["converged"] = converged
+        ind["admissible"] = adm
+        ind["note"] = "; ".join(notes)
+        return StepFit(spec=spec, theta=theta, fit=ind, converged=converged, admissible=adm, notes=notes)
+
+
+def _free_order(items, T, prep, fits) -> pd.DataFrame:
     base = fits["scalar"]
     out = []
     for item in items:
         spec = invariance_spec(items, T, "scalar", free_intercepts=[item])
-        f = fit(spec, data, start=_carry(base, spec), where=where)
+        f = prep.fit(spec, _carry(base, spec))
         out.append({"item": item, "cfi": f.fit["cfi"], "delta_cfi": f.fit["cfi"] - base.fit["cfi"],
                     "chisq_drop": base.fit["chisq"] - f.fit["chisq"]})
     order = pd.DataFrame(out)
-    # rank by CFI gain; ties (CFI at its ceiling of 1) by the chi-square drop, then item order
+    # rank by the chi-square drop (CFI gains tie at CFI's ceiling of 1), then item order
     order["_pos"] = range(len(order))
-    order = order.sort_values(["delta_cfi", "chisq_drop", "_pos"], ascending=[False, False, True],
-                              kind="mergesort")
+    order = order.sort_values(["chisq_drop", "_pos"], ascending=[False, True], kind="mergesort")
     return order.drop(columns="_pos")
 
 
 def _carry(previous, spec):
-    """Starting values for ``spec`` from a fitted neighbour model (matched by parameter name)."""
+    """Starting values for ``spec`` from a fitted neighbour step (matched by matrix entry)."""
     if previous is None:
         return None
-    prev = previous.estimates
-    by_entry = dict(zip(prev["parameter"], prev["estimate"]))
-    start = spec.start()
-    start = np.array(start[0] if np.ndim(start) == 2 else start, dtype=float)
+    values = previous.values
     cm = spec.compile()
+    start = np.zeros(cm.k)
+    filled = np.zeros(cm.k, dtype=bool)
     for e in cm.entries:
-        if e.param >= 0 and e.name in by_entry and np.isfinite(by_entry[e.name]):
-            start[e.param] = by_entry[e.name]
+        if e.param >= 0 and e.name in values and np.isfinite(values[e.name]) and not filled[e.param]:
+            start[e.param] = values[e.name]
+            filled[e.param] = True
+    if not filled.all():
+        return None
     return start
 
 

@@ -326,6 +326,10 @@ def drift_table(project: str | Path) -> pd.DataFrame:
 
 # -- lineage ------------------------------------------------------------------------------
 
+#: inputs that are neither job outputs nor raw data but are legitimately hand-written sources
+SOURCE_PREFIXES = ("config/", "data/SHA256SUMS", "workflow/")
+
+
 def lineage(project: str | Path, path: str, records: list[dict[str, Any]] | None = None) -> pd.DataFrame:
     """Walk from ``path`` back through the records to files no job wrote.
 
@@ -335,8 +339,10 @@ def lineage(project: str | Path, path: str, records: list[dict[str, Any]] | None
         Columns ``file, step, depth, sha256, origin``: the file itself (depth 0),
         every file upstream of it once, the step that wrote it (empty for a source
         file) and ``origin`` — ``output`` (written by a recorded job),
-        ``registered`` (raw data in data/SHA256SUMS with the same hash), or
-        ``untraced`` (neither: a break in the provenance chain).
+        ``registered`` (raw data in data/SHA256SUMS with the same hash),
+        ``source`` (a project source file under :data:`SOURCE_PREFIXES`: config,
+        registry, workflow code) or ``untraced`` (none of these: a break in the
+        provenance chain).
     """
     from wavetrail.registry import read_registry
 
@@ -358,14 +364,14 @@ def lineage(project: str | Path, path: str, records: list[dict[str, Any]] | None
             rows.append({"file": file, "step": rec["step"], "depth": depth, "sha256": out_sha, "origin": "output"})
             frontier.extend((i["path"], depth + 1, i["sha256"]) for i in rec["inputs"])
         else:
-            ok = file in registered and (sha is None or registered[file] == sha)
-            rows.append({"file": file, "step": "", "depth": depth, "sha256": sha,
-                         "origin": "registered" if ok else "untraced"})
+            if file in registered:
+                origin = "registered" if sha is None or registered[file] == sha else "untraced"
+            elif file.startswith(SOURCE_PREFIXES):
+                origin = "source"
+            else:
+                origin = "untraced"
+            rows.append({"file": file, "step": "", "depth": depth, "sha256": sha, "origin": origin})
     return pd.DataFrame(rows, columns=["file", "step", "depth", "sha256", "origin"])
-
-
-#: inputs that are neither job outputs nor raw data but are legitimately hand-written sources
-SOURCE_PREFIXES = ("config/", "data/SHA256SUMS", "workflow/")
 
 
 def untraced_inputs(project: str | Path, records: list[dict[str, Any]] | None = None,

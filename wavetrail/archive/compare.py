@@ -47,8 +47,9 @@ def _numbers_close(a: float, b: float, rtol: float, atol: float) -> bool:
 def compare_tables(old: Path, new: Path, rtol: float = 1e-6, atol: float = 0.0) -> Comparison:
     """Compare two CSV tables cell by cell (same columns and rows, numbers within ``rtol``)."""
     try:
-        a = pd.read_csv(old, keep_default_na=True)
-        b = pd.read_csv(new, keep_default_na=True)
+        sep = "\t" if Path(old).suffix.lower() == ".tsv" else ","
+        a = pd.read_csv(old, sep=sep, keep_default_na=True)
+        b = pd.read_csv(new, sep=sep, keep_default_na=True)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as err:
         return Comparison(DIFFERENT, f"bytes differ and the table cannot be parsed ({err})")
     if list(a.columns) != list(b.columns):

@@ -34,7 +34,7 @@ from __future__ import annotations
 import re
 import shutil
 import tempfile
-from datetime import datetime, timezone
+from datetime import timezone
 from pathlib import Path, PurePosixPath
 
 from wavetrail import __version__
@@ -44,7 +44,7 @@ from wavetrail.errors import ArchiveError, UsageError
 from wavetrail.archive import standin as standin_mod
 from wavetrail.archive.bag import make_bag, write_archive
 from wavetrail.archive.crate import build_crate
-from wavetrail.archive.disclosure import BLOCK, FINDING_COLUMNS, check_outputs, check_raw_files
+from wavetrail.archive.disclosure import BLOCK, check_outputs, check_raw_files
 
 MODES = ("include", "exclude", "stand-in")
 MANIFEST = "wavetrail-archive.json"
@@ -170,6 +170,11 @@ def _title(config: dict, codebook, root: Path) -> str:
                   getattr(codebook.study, "title", None)):
         if value:
             return str(value)
+    readme = root / "README.md"
+    if readme.is_file():
+        for line in readme.read_text(encoding="utf-8", errors="replace").splitlines():
+            if line.startswith("# ") and line[2:].strip():
+                return line[2:].strip()
     return root.name
 
 
@@ -258,6 +263,11 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
     when = head.committed_datetime.astimezone(timezone.utc)
     registry = read_registry(root)
     raw_paths = sorted(set(registry) | {PurePosixPath(p).as_posix() for p in config.get("data") or []})
+    unregistered = [p for p in raw_paths if p not in registry]
+    if unregistered:
+        raise ArchiveError(f"{unregistered[0]}: listed under `data` in config/config.yaml but not registered "
+                           "in data/SHA256SUMS", hint=f"register it with `wavetrail data add {unregistered[0]}`, "
+                                                      "commit, and rebuild")
 
     # -------- the payload: tracked files + results + lock + registry
     files: dict[str, Path] = {}

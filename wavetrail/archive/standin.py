@@ -108,8 +108,15 @@ def normal_scores(x: np.ndarray) -> np.ndarray:
 
 def pairwise_corr(z: np.ndarray, min_pairs: int = 5) -> np.ndarray:
     """Pairwise-complete Pearson correlations of the columns of ``z`` (0 where undefined)."""
-    k = z.shape[1]
     ok = ~np.isnan(z)
+    if ok.all() and z.shape[0] >= min_pairs:  # complete data: the plain correlation matrix
+        sd = z.std(axis=0)
+        zc = (z - z.mean(axis=0)) / np.where(sd > 0, sd, 1.0)
+        r = (zc.T @ zc) / z.shape[0]
+        r[:, sd == 0] = 0.0
+        r[sd == 0, :] = 0.0
+        np.fill_diagonal(r, 1.0)
+        return np.clip((r + r.T) / 2, -1.0, 1.0)
     zf = np.where(ok, z, 0.0)
     okf = ok.astype(float)
     n = okf.T @ okf
@@ -564,7 +571,8 @@ def _raw_coded(draft, codebook, vars_out, id_col, wave_col, reasons, coded, rng)
     for v in vars_out:
         if v.identifier or v.type == "text":
             label = "STAND-IN identifier" if v.identifier else "STAND-IN text"
-            out[v.name] = pd.array([f"[{label} {i + 1}]" for i in range(len(draft))], dtype="string")
+            person = pd.factorize(draft[id_col])[0] + 1  # one placeholder per person, like a real identifier
+            out[v.name] = pd.array([f"[{label} {k}]" for k in person], dtype="string")
             continue
         x = draft[v.name].to_numpy(float)
         values = pd.Series(_decode(x, v), dtype=object)

@@ -170,7 +170,11 @@ def verify_archive(archive, rebuild: bool = False, json_path=None, rtol: float =
                  f"{manifest.get('mode')}, packed by wavetrail {manifest.get('wavetrail')}")
         if manifest.get("mode") == "stand-in" and "Stand-In-Data" not in info:
             rows.add("archive", "bag-info.txt", FAIL, "stand-in archive without the Stand-In-Data label")
+        if info.get("Raw-Data-Mode") != manifest.get("mode"):
+            rows.add("archive", "bag-info.txt", FAIL, f"Raw-Data-Mode {info.get('Raw-Data-Mode')!r} differs from "
+                                                      f"the archive description ({manifest.get('mode')!r})")
         records = _check_ledger(payload, manifest, rows)
+        _check_crate(payload, records, rows)
         _check_environment(payload, records, rows, details)
         for f in (manifest.get("disclosure") or {}).get("findings", []):
             if f.get("severity") == "block":
@@ -324,6 +328,25 @@ def _check_ledger(payload: Path, manifest: dict, rows: _Rows) -> list[dict]:
     for rel in extra[:20]:
         rows.add("ledger", rel, WARN, "in results/ but written by no recorded job")
     return records
+
+
+def _check_crate(payload: Path, records: list[dict], rows: _Rows) -> None:
+    """The RO-Crate parses and describes every ledger record as a CreateAction."""
+    from wavetrail.archive.pack import CRATE
+
+    path = payload / CRATE
+    try:
+        graph = json.loads(path.read_text(encoding="utf-8"))["@graph"]
+    except (OSError, json.JSONDecodeError, UnicodeDecodeError, KeyError, TypeError) as err:
+        rows.add("crate", CRATE, FAIL, f"missing or not an RO-Crate ({err})")
+        return
+    actions = {e.get("@id") for e in graph if isinstance(e, dict) and e.get("@type") == "CreateAction"}
+    expected = {f"#run/{Path(r['_file']).stem}" for r in records}
+    missing = sorted(expected - actions)
+    if missing:
+        rows.add("crate", CRATE, FAIL, f"{len(missing)} ledger record(s) without a CreateAction, e.g. {missing[0]}")
+    else:
+        rows.add("crate", CRATE, OK, f"{len(expected)} jobs described as CreateActions")
 
 
 def _check_environment(payload: Path, records: list[dict], rows: _Rows, details: dict) -> None:

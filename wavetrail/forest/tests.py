@@ -51,9 +51,9 @@ from scipy.stats import chi2
 
 from wavetrail.forest import _supLM_table as _table
 
-TRIM = _table.TRIM
+TRIM = 0.1  # trimming of the cut-point range (10 %, the usual default)
 _LOG_TAIL = np.log(np.asarray(_table.TAIL))
-_QUANT = np.asarray(_table.QUANTILES)
+_QUANT = np.asarray(_table.QUANTILES)[_table.TRIMS.index(TRIM)]  # (k, tail) at this trim
 
 
 def whiten(scores: np.ndarray, tol: float = 1e-9) -> np.ndarray:

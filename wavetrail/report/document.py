@@ -206,7 +206,9 @@ class Report:
                 best.append(f"{who}{row['model']} (lowest BIC, CFI = {fmt_unit(row.get('cfi'))})")
             facts.append(("Growth model", "; ".join(best)))
         imp = self.tables.get("importance")
-        if imp is None:
+        if imp is None and (self.settings.get("forest") or {}).get("enabled"):
+            facts.append(("Moderator forest", "configured; results absent"))
+        elif imp is None:
             facts.append(("Moderator forest", "not configured"))
         elif _found_nothing(imp):
             facts.append(("Moderator forest", "no predictor was selected for a split"))
@@ -247,12 +249,13 @@ class Report:
         df = df.assign(_o=order.values).sort_values(["_o", "variable", "check"], kind="stable")
         rows = [
             [str(r.get("variable", MISSING)), _wave_text(r.get("wave")), _pretty(r.get("check", "")),
-             str(r.get("severity", "")), fmt_count(r.get("count")), str(r.get("message", ""))]
+             str(r.get("severity", "")), fmt_count(r.get("count")), _without_ids(r.get("message"), r.get("rows"))]
             for _, r in df.iterrows()
         ]
         table = Table("Findings of the codebook checks", ["Variable", "Wave", "Check", "Severity", "Cases", "Message"],
                       rows, numeric=[4], key="findings",
-                      note="Cases: rows the finding concerns. " + self._source("findings"))
+                      note="Cases: rows or people the finding concerns. Person ids and row numbers are left out of "
+                           "the report; the findings file lists them for the study team. " + self._source("findings"))
         return _p(f"Findings by severity: {badges}") + self._table(table)
 
     def _attrition(self) -> str:
@@ -358,10 +361,15 @@ class Report:
             [self.study.scale_label(r.get("scale")), _wave_text(r.get("wave")), fmt_small(r.get("n"), self.min_cell),
              fmt_unit(r.get("alpha"), 2), fmt_interval(r.get("alpha_lo"), r.get("alpha_hi"), unit=True, digits=2),
              fmt_unit(r.get("omega"), 2)]
+            + ([self.study.label(r.get("weakest_item")) if pd.notna(r.get("weakest_item")) else MISSING,
+                fmt_unit(r.get("min_item_rest"), 2), fmt_unit(r.get("alpha_if_weakest_deleted"), 2)]
+               if "weakest_item" in df.columns else [])
             for _, r in df.iterrows()
         ]
-        table = Table("Internal consistency of each scale per wave",
-                      ["Scale", "Wave", "n", "\u03b1", "95% CI of \u03b1", "\u03c9"], rows, key="reliability",
+        heads = ["Scale", "Wave", "n", "\u03b1", "95% CI of \u03b1", "\u03c9"]
+        if "weakest_item" in df.columns:
+            heads += ["Weakest item", "Item\u2013rest r", "\u03b1 without it"]
+        table = Table("Internal consistency of each scale per wave", heads, rows, key="reliability",
                       note="\u03b1: Cronbach's alpha; \u03c9: McDonald's omega from a one-factor model. "
                            + (f"CI of \u03b1: {', '.join(sorted(set(df['ci_method'].dropna().astype(str))))}. "
                               if "ci_method" in df.columns and df["ci_method"].notna().any() else "")
@@ -555,7 +563,12 @@ class Report:
     def moderators(self) -> Fragment:
         """Variable importance, expected trajectories of the top predictors, interactions."""
         imp = self.tables.get("importance")
-        if imp is None and self.tables.get("dependence") is None and self.tables.get("interactions") is None:
+        forest = self.settings.get("forest") or {}
+        nothing = imp is None and self.tables.get("dependence") is None and self.tables.get("interactions") is None
+        if nothing and forest.get("enabled"):
+            return Fragment(_absent("A moderator forest is configured, but its results are absent "
+                                    "(results/forest/importance.csv); run the build to grow it."), "moderators")
+        if nothing:
             return Fragment(_p(esc(
                 "No moderator forest is configured for this project, so no predictors were screened. "
                 "Add a forest section to config/config.yaml to screen candidate predictors of the growth "
@@ -563,7 +576,6 @@ class Report:
         caution = f'<div class="wt-caution" role="note"><p>{esc(EXPLORATORY)}</p></div>'
         if imp is None:
             return Fragment(caution + _absent("Variable importance is absent (results/forest/importance.csv)."), "moderators")
-        forest = self.settings.get("forest") or {}
         if _found_nothing(imp):
             alpha = forest.get("alpha")
             level = f" at \u03b1 = {fmt_unit(alpha, 2)}" if alpha is not None else ""
@@ -861,6 +873,18 @@ def _parameter_text(name: str) -> str:
     if kind == "regress":
         return f"Regression of {a} on {b}"
     return f"Intercept of {a}"
+
+
+def _without_ids(message, rows) -> str:
+    """A finding's message without the ids or row numbers it quotes (they point at single people)."""
+    if message is None or (isinstance(message, float) and np.isnan(message)):
+        return MISSING
+    text = re.sub(r"\s*\((?:e\.g\.|(?:rows?|ids?)\b)[^)]*\)", "", str(message))
+    if isinstance(rows, str) and rows.strip():
+        for token in sorted(set(re.findall(r"[A-Za-z0-9_.-]+", rows)), key=len, reverse=True):
+            if any(ch.isdigit() for ch in token):
+                text = re.sub(rf"(?<![A-Za-z0-9_.-]){re.escape(token)}(?![A-Za-z0-9_-])", "\u2026", text)
+    return text
 
 
 def _value_text(value) -> str:

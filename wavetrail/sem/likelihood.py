@@ -55,26 +55,34 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
     Models whose implied covariance is not positive definite for some pattern
     get a log-likelihood of ``-inf`` (gradient and information are then
     meaningless for them).
+
+    The covariance derivatives are used in low-rank form (each free entry adds
+    ``w (u v^T + v u^T)``): the gradient is ``2 w u^T G v`` per entry, and the
+    information is accumulated either over the saturated moments (small ``p``:
+    ``B p^4`` per pattern) or over entry pairs (``B E^2 q`` per pattern).
     """
     theta = np.atleast_2d(np.asarray(theta, dtype=float))
     B = theta.shape[0]
+    k = cm.k
     if grad or info:
-        mu, sigma, dmu, dsig = cm.jacobian(theta, base)
+        mu, sigma, U, V, w, prm, dmu = cm.entry_terms(theta, base)
+        E = len(w)
+        Cinc = np.zeros((E, k))
+        Cinc[np.arange(E), prm] = 1.0
     else:
         mu, sigma = cm.implied(theta, base)
-    k = cm.k
+    p = sigma.shape[-1]
     ll = np.zeros(B)
     ok_all = np.ones(B, dtype=bool)
     G = np.zeros(sigma.shape) if grad else None
     g = np.zeros(mu.shape) if grad else None
-    p = sigma.shape[-1]
-    # small p: accumulate the information of the saturated moments and map it once
-    # (cost B p^4 per pattern); large p: per pattern in parameter space (B k q^3)
     via_moments = info and p <= 12
     if info and via_moments:
         H = np.zeros((B, p * p, p * p))
         Hm = np.zeros((B, p, p))
-    I = np.zeros((B, k, k)) if info else None
+    elif info:
+        Ie = np.zeros((B, E, E))
+        Im = np.zeros((B, k, k))
     nB = stats.n
     if nB.shape[0] not in (1, B):
         raise ValueError(f"statistics hold {nB.shape[0]} samples but {B} parameter vectors were given")
@@ -106,21 +114,26 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
             Wn = (0.5 * n)[:, None, None] * Wf
             H += (Wn[:, :, None, :, None] * Wf[:, None, :, None, :]).reshape(B, p * p, p * p)
         elif info:
-            Ds = dsig[:, :, o][:, :, :, o]  # (B, k, q, q)
-            X = W[:, None] @ Ds
-            Xf = X.reshape(B, k, q * q)
-            XTf = np.swapaxes(X, -1, -2).reshape(B, k, q * q)
+            Uo, Vo = U[:, :, o], V[:, :, o]
+            WU = Uo @ W
+            WV = Vo @ W
+            Xuv = WU @ np.swapaxes(Vo, -1, -2)
+            Ie += n[:, None, None] * (Xuv * np.swapaxes(Xuv, -1, -2)
+                                      + (WU @ np.swapaxes(Uo, -1, -2)) * (WV @ np.swapaxes(Vo, -1, -2)))
             Dm = dmu[:, :, o]
-            WDm = np.einsum("bij,bkj->bki", W, Dm)
-            I += n[:, None, None] * (0.5 * Xf @ np.swapaxes(XTf, -1, -2) + Dm @ np.swapaxes(WDm, -1, -2))
+            Im += n[:, None, None] * (Dm @ W @ np.swapaxes(Dm, -1, -2))
     ll = np.where(ok_all, ll, -np.inf)
     out = [ll]
     if grad:
-        gr = np.einsum("bij,bkij->bk", G, dsig) + np.einsum("bi,bki->bk", g, dmu)
-        out.append(gr)
+        ge = 2.0 * w * np.einsum("bei,bij,bej->be", U, G, V)
+        out.append(ge @ Cinc + np.einsum("bi,bki->bk", g, dmu))
     if info and via_moments:
+        R = np.einsum("ek,e,bei,bej->bkij", Cinc, w, U, V)
+        dsig = R + np.swapaxes(R, -1, -2)
         Df = dsig.reshape(B, k, p * p)
         I = Df @ H @ np.swapaxes(Df, -1, -2) + dmu @ Hm @ np.swapaxes(dmu, -1, -2)
+    elif info:
+        I = Cinc.T @ (Ie * np.outer(w, w)) @ Cinc + Im
     if info:
         out.append(0.5 * (I + np.swapaxes(I, -1, -2)))
     return tuple(out) if len(out) > 1 else ll

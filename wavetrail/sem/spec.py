@@ -306,6 +306,65 @@ class Compiled:
         mu = mats[NU] + np.einsum("bpm,bm->bp", L, Aa) if self.m else mats[NU].copy()
         return mu, sigma
 
+    def entry_terms(self, theta, base=None):
+        """Implied moments with the covariance derivatives in low-rank form.
+
+        Each free covariance-structure entry ``e`` contributes
+        ``w_e (u_e v_e^T + v_e u_e^T)`` to ``dSigma/dtheta[param_e]``.
+
+        Returns
+        -------
+        mu (B, p), Sigma (B, p, p), U (B, E, p), V (B, E, p), w (E,), param (E,), dmu (B, k, p)
+        """
+        mats, L, M, Aa = self._pieces(theta, base)
+        Lam = mats[LAMBDA]
+        B, p, k = theta.shape[0], self.p, self.k
+        Vm = Lam @ M
+        sigma = Vm @ np.swapaxes(Lam, -1, -2) + mats[THETA]
+        mu = mats[NU] + np.einsum("bpm,bm->bp", L, Aa) if self.m else mats[NU].copy()
+        eye = np.eye(p)
+        us, vs, ws, ps = [], [], [], []
+        dmu = np.broadcast_to(self._dmu_nu, (B, k, p)).copy()
+        r, c, a = self.free_idx[LAMBDA]
+        if len(a):
+            us.append(np.broadcast_to(eye[r], (B, len(a), p)))
+            vs.append(np.swapaxes(Vm[:, :, c], 1, 2))
+            ws.append(np.ones(len(a)))
+            ps.append(a)
+            np.add.at(dmu, (slice(None), a, r), Aa[:, c])
+        r, c, a = self.free_idx[PSI]
+        if len(a):
+            us.append(np.swapaxes(L[:, :, r], 1, 2))
+            vs.append(np.swapaxes(L[:, :, c], 1, 2))
+            ws.append(np.where(r == c, 0.5, 1.0))
+            ps.append(a)
+        r, c, a = self.free_idx[THETA]
+        if len(a):
+            us.append(np.broadcast_to(eye[r], (B, len(a), p)))
+            vs.append(np.broadcast_to(eye[c], (B, len(a), p)))
+            ws.append(np.where(r == c, 0.5, 1.0))
+            ps.append(a)
+        r, c, a = self.free_idx[BETA]
+        if len(a):
+            us.append(np.swapaxes(L[:, :, r], 1, 2))
+            vs.append(np.swapaxes(Vm[:, :, c], 1, 2))
+            ws.append(np.ones(len(a)))
+            ps.append(a)
+            for f, g, aa in zip(r, c, a):
+                dmu[:, aa] += L[:, :, f] * Aa[:, g, None]
+        for f, _, aa in zip(*self.free_idx[ALPHA]):
+            dmu[:, aa] += L[:, :, f]
+        if us:
+            U = np.concatenate(us, axis=1)
+            V = np.concatenate(vs, axis=1)
+            w = np.concatenate(ws)
+            prm = np.concatenate(ps)
+        else:
+            U = V = np.zeros((B, 0, p))
+            w = np.zeros(0)
+            prm = np.zeros(0, dtype=int)
+        return mu, sigma, U, V, w, prm, dmu
+
     def jacobian(self, theta, base=None):
         """Implied moments and their derivatives.
 

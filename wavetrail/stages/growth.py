@@ -1,0 +1,148 @@
+"""Workflow step of the growth stage: every configured shape for every outcome scale."""
+
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+import pandas as pd
+from scipy import stats as sps
+
+from wavetrail._io import write_table
+from wavetrail.codebook import load_codebook
+from wavetrail.errors import WavetrailError
+from wavetrail.growth import fit_growth as fit_growth_model
+from wavetrail.scoring import wide_scores
+
+__all__ = ["fit_growth_models", "fit_growth", "compare_models"]
+
+log = logging.getLogger("wavetrail.growth")
+
+FIT_COLUMNS = ["outcome", "model", "n", "loglik", "chisq", "df", "p", "cfi", "tli", "rmsea", "rmsea_lo",
+               "rmsea_hi", "srmr", "aic", "bic", "sabic", "converged", "admissible", "note"]
+EST_COLUMNS = ["outcome", "model", "parameter", "kind", "estimate", "se", "z", "p", "std"]
+#: (smaller, larger): the smaller model is nested in the larger one
+NESTED = [("linear", "quadratic"), ("linear", "basis")]
+
+
+def model_name(shape: str, residuals: str) -> str:
+    return f"{shape}-{residuals}"
+
+
+def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes, residuals="free"):
+    """Fit every shape for every outcome; returns (fit table, estimates table, fits dict).
+
+    A model that cannot be fitted is a row with converged False and the reason as note.
+    """
+    fit_rows, est_rows, fits = [], [], {}
+    for outcome in outcomes:
+        wide = wide_scores(scores, outcome, waves)
+        for shape in shapes:
+            name = model_name(shape, residuals)
+            try:
+                g = fit_growth_model(wide, time_scores, shape=shape, residuals=residuals, where=f"scale {outcome}")
+            except WavetrailError as err:
+                row = {c: np.nan for c in FIT_COLUMNS}
+                row.update(outcome=outcome, model=name, n=int(wide.notna().any(axis=1).sum()),
+                           converged=False, admissible=False, note=str(err.message))
+                fit_rows.append(row)
+                log.warning("growth model %s for %s not fitted: %s", name, outcome, err.message)
+                continue
+            fits[(outcome, shape)] = g
+            row = {c: g.fit.get(c, np.nan) for c in FIT_COLUMNS if c not in ("outcome", "model")}
+            fit_rows.append({"outcome": outcome, "model": name, **row})
+            est = g.estimates[g.estimates["free"]].copy()
+            est.insert(0, "model", name)
+            est.insert(0, "outcome", outcome)
+            est_rows.append(est[EST_COLUMNS])
+            log.info("fitted %s for %s: loglik %.3f", name, outcome, g.fit["loglik"])
+    fit_df = pd.DataFrame(fit_rows, columns=FIT_COLUMNS)
+    est_df = pd.concat(est_rows, ignore_index=True) if est_rows else pd.DataFrame(columns=EST_COLUMNS)
+    return fit_df, est_df, fits
+
+
+def compare_models(fits: dict, residuals="free") -> pd.DataFrame:
+    """Likelihood-ratio tests of nested shapes, with the AIC and BIC of both models.
+
+    The LR statistic is 2 (loglik_b - loglik_a) on df = k_b - k_a; a variance on
+    its boundary makes the chi-square reference conservative (Stram & Lee 1994,
+    Biometrics 50(4)).
+    """
+    rows = []
+    for outcome in sorted({o for o, _ in fits}):
+        for small, large in NESTED:
+            a, b = fits.get((outcome, small)), fits.get((outcome, large))
+            if a is None or b is None:
+                continue
+            lr = 2.0 * (b.fit["loglik"] - a.fit["loglik"])
+            ddf = int(b.fit["k"] - a.fit["k"]) if "k" in a.fit else int(a.fit["df"] - b.fit["df"])
+            p = float(sps.chi2.sf(max(lr, 0.0), ddf)) if ddf > 0 else np.nan
+            prefer = large if (np.isfinite(p) and p < 0.05 and b.fit["bic"] < a.fit["bic"]) else small
+            rows.append({"outcome": outcome, "model_a": model_name(small, residuals),
+                         "model_b": model_name(large, residuals), "lr_chisq": lr, "df": ddf, "p": p,
+                         "aic_a": a.fit["aic"], "aic_b": b.fit["aic"], "bic_a": a.fit["bic"],
+                         "bic_b": b.fit["bic"], "preferred": model_name(prefer, residuals)})
+    cols = ["outcome", "model_a", "model_b", "lr_chisq", "df", "p", "aic_a", "aic_b", "bic_a", "bic_b",
+            "preferred"]
+    return pd.DataFrame(rows, columns=cols)
+
+
+def trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, n_people=40, seed=0):
+    """Observed vs model-implied mean trajectories over a sample of individual trajectories."""
+    import matplotlib.pyplot as plt
+
+    from wavetrail.figures import LINESTYLES, MARKERS, PALETTE, save_figure, style
+
+    rows = []
+    with style():
+        fig, axes = plt.subplots(1, max(len(outcomes), 1), figsize=(5.2 * max(len(outcomes), 1), 3.8),
+                                 squeeze=False)
+        t = np.asarray(time_scores, dtype=float)
+        rng = np.random.default_rng(seed)
+        for ax, outcome in zip(axes[0], outcomes):
+            wide = wide_scores(scores, outcome, waves)
+            pick = rng.choice(len(wide), size=min(n_people, len(wide)), replace=False) if len(wide) else []
+            for i in sorted(pick):
+                y = wide.iloc[i].to_numpy(dtype=float)
+                ok = np.isfinite(y)
+                ax.plot(t[ok], y[ok], color="0.8", lw=0.6, zorder=1)
+            obs = wide.mean(axis=0).to_numpy(dtype=float)
+            ax.plot(t, obs, color="black", marker="o", lw=0, ms=6, label="observed mean", zorder=3)
+            for r, w in enumerate(waves):
+                rows.append({"outcome": outcome, "series": "observed mean", "wave": str(w),
+                             "time": t[r], "value": obs[r]})
+            for j, ((o, shape), g) in enumerate(sorted(fits.items())):
+                if o != outcome:
+                    continue
+                ax.plot(t, g.implied_mean, color=PALETTE[j % len(PALETTE)],
+                        linestyle=LINESTYLES[j % len(LINESTYLES)], marker=MARKERS[(j + 1) % len(MARKERS)],
+                        ms=4, label=f"{shape} (implied)", zorder=2)
+                for r, w in enumerate(waves):
+                    rows.append({"outcome": outcome, "series": f"{shape} implied", "wave": str(w),
+                                 "time": t[r], "value": float(g.implied_mean[r])})
+            ax.set_title(outcome)
+            ax.set_xlabel("time score (years since first wave)")
+            ax.set_ylabel("scale score (item mean)")
+            ax.set_xticks(t)
+            ax.legend(frameon=False, fontsize=8)
+        fig.tight_layout()
+    save_figure(fig, stem, pd.DataFrame(rows, columns=["outcome", "series", "wave", "time", "value"]))
+
+
+def fit_growth(job) -> None:
+    """Rule ``fit_growth``: inputs ``scores``, ``codebook``; outputs ``fit``, ``estimates``,
+    ``comparison`` and ``figure`` (PNG; SVG and CSV beside it)."""
+    settings = job.params.get("settings") or job.config.get("growth", {}) or {}
+    codebook = load_codebook(job.path(job.input["codebook"]))
+    waves = list(codebook.study.waves)
+    time_scores = list(codebook.study.time_scores or range(len(waves)))
+    scores = pd.read_csv(job.path(job.input["scores"]))
+    outcomes = list(settings.get("outcomes") or sorted(scores["scale"].astype(str).unique()))
+    shapes = list(settings.get("shapes") or ["linear"])
+    residuals = settings.get("residuals", "free")
+    fit_df, est_df, fits = fit_growth_models(scores, waves, time_scores, outcomes, shapes, residuals)
+    write_table(job.path(job.output["fit"]), fit_df)
+    write_table(job.path(job.output["estimates"]), est_df)
+    write_table(job.path(job.output["comparison"]), compare_models(fits, residuals))
+    stem = job.path(job.output["figure"]).with_suffix("")
+    trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, seed=job.seed)
