@@ -110,7 +110,7 @@ def test_check_fires_on_bad_file_only(tmp_path, check):
     if wave is not None:
         assert wave in set(hit["wave"]), hit
     assert (hit["count"] >= 1).all() or check == "wave_coverage"
-    if check not in ("unknown_column", "missing_column", "identifier", "wave_coverage", "straight_lining"):
+    if check not in ("unknown_column", "missing_column", "identifier", "wave_coverage"):
         assert hit["rows"].str.match(r"bad\.csv:\d+").all(), hit["rows"]
 
 

@@ -526,3 +526,54 @@ def test_configured_forest_without_results_says_so(tmp_path):
     assert "configured, but its results are absent" in report.moderators().html
     assert "Moderator forest</dt><dd>configured; results absent" in report.overview().html
     assert repr(report.overview()) == "[wavetrail report: overview]"  # the stored text/plain stays stable
+
+
+def test_figures_label_axes_and_tell_series_apart_without_colour():
+    # greyscale / colour-vision rule (common practice): every series differs in line style
+    # or marker, not only in colour; axes name the wave with its time score and the scale unit
+    from wavetrail.report.plots import dependence_figure, trajectory_figure
+
+    obs = pd.DataFrame({"wave": [1, 2, 3], "time": [0.0, 1.0, 2.0], "n": [9, 8, 7], "mean": [2.0, 2.2, 2.3],
+                        "lo": [1.9, 2.1, 2.1], "hi": [2.1, 2.3, 2.5]})
+    implied = pd.concat([pd.DataFrame({"model": m, "time": [0.0, 1.0, 2.0], "expected": [2.0, 2.1 + k / 10, 2.3]})
+                         for k, m in enumerate(["linear", "quadratic", "basis"])])
+    fig, data = trajectory_figure(obs, implied, waves=[1, 2, 3], times=[0, 1, 2], unit="years",
+                                  ylabel="Sleep difficulty (mean item score, 1\u20135)")
+    ax = fig.axes[0]
+    assert ax.get_xlabel() == "Wave (time score, years)" and "mean item score" in ax.get_ylabel()
+    styles = {(line.get_linestyle(), line.get_marker()) for line in ax.get_lines() if line.get_label()[0] != "_"}
+    assert len(styles) == 3
+    assert set(data["series"]) == {"observed", "linear", "quadratic", "basis"}
+    dep = pd.DataFrame([{"predictor": "x", "level": lv, "value": v, "time": t, "expected": v + t}
+                        for lv, v in (("low", 1.0), ("average", 2.0), ("high", 3.0)) for t in (0.0, 1.0)])
+    fig, _ = dependence_figure(dep, ["x"], {"x": "Screen time"}, waves=[1, 2], times=[0.0, 1.0], unit=None,
+                               ylabel="Expected score")
+    lines = fig.axes[0].get_lines()
+    assert len({(line.get_linestyle(), line.get_marker()) for line in lines}) == 3
+    assert fig.axes[0].get_title() == "Screen time" and fig.axes[0].get_ylabel() == "Expected score"
+    import matplotlib.pyplot as plt
+
+    plt.close("all")
+
+
+def test_implied_trajectories_from_factor_means(tmp_path):
+    from wavetrail.report import open_report
+    from wavetrail.report.document import _parameter_text
+
+    root = make_project(tmp_path / "p", forest="absent")
+    est = pd.read_csv(root / "results/growth/estimates.csv")
+    # a latent basis model as wavetrail.growth names it: first and last loadings fixed at 0 and 4
+    basis = pd.DataFrame({"outcome": "sleep_difficulty", "model": "basis",
+                          "parameter": ["mean(intercept)", "mean(shape)", "loading(shape,2)", "loading(shape,3)",
+                                        "loading(shape,4)"],
+                          "estimate": [2.3, 0.1, 1.5, 2.5, 3.2], "se": 0.1, "z": 1.0, "p": 0.3, "std": np.nan})
+    write_table(root / "results/growth/estimates.csv", pd.concat([est, basis], ignore_index=True))
+    report = open_report(root, {}, {"forest": {"enabled": False}})
+    t = [0.0, 1.0, 2.0, 3.0, 4.0]
+    np.testing.assert_allclose(report.implied_means("sleep_difficulty", "basis", t),
+                               2.3 + 0.1 * np.array([0.0, 1.5, 2.5, 3.2, 4.0]))
+    np.testing.assert_allclose(report.implied_means("sleep_difficulty", "quadratic", t),
+                               [TRUE_MEANS[0] + TRUE_MEANS[1] * x + TRUE_MEANS[2] * x * x for x in t])
+    assert report.implied_means("sleep_difficulty", "no-such-model", t) is None
+    assert _parameter_text("var(3)", {"3"}) == "Residual variance at wave 3"
+    assert _parameter_text("cov(intercept,slope)") == "Covariance of intercept and slope"

@@ -112,3 +112,51 @@ scales:
     assert wide_scores(scores, "s", ["1", "2", "3"]).to_numpy().tobytes() == wide.to_numpy().tobytes()
     with pytest.raises(ModelError, match="not in the scores table"):
         wide_scores(scores, "nope", [1])
+
+
+def test_score_steps_write_tables_and_refuse_failed_checks(tmp_path):
+    from wavetrail.errors import DataError
+    from wavetrail.stages.runner import Job
+    from wavetrail.stages.scores import assess_reliability, score_scales
+
+    (tmp_path / "config").mkdir()
+    (tmp_path / "config" / "codebook.yaml").write_text("""
+study: {id: pid, wave: wave, waves: [1, 2]}
+variables:
+  - {name: pid}
+  - {name: q1, range: [1, 5], scale: s}
+  - {name: q2, range: [1, 5], scale: s}
+  - {name: q3, range: [1, 5], scale: s, reverse: true}
+  - {name: mail, type: text, identifier: true}
+scales:
+  s: {label: S}
+""")
+    rng = np.random.default_rng(9)
+    f = rng.normal(size=60)
+    rows = [{"pid": i, "wave": w, "q1": int(np.clip(round(3 + f[i] + rng.normal() * .7), 1, 5)),
+             "q2": int(np.clip(round(3 + f[i] + rng.normal() * .7), 1, 5)),
+             "q3": int(np.clip(round(3 - f[i] + rng.normal() * .7), 1, 5)), "mail": f"secret{i}@x.org"}
+            for i in range(60) for w in (1, 2)]
+    (tmp_path / "data").mkdir()
+    pd.DataFrame(rows).to_csv(tmp_path / "data" / "p.csv", index=False)
+    results = tmp_path / "results" / "checks"
+    results.mkdir(parents=True)
+    header = "variable,wave,check,severity,count,rows,message\n"
+    (results / "findings.csv").write_text(header + "mail,,identifier,info,1,,never output\n")
+    job = Job(step="score_scales", project=tmp_path,
+              input={"data": ["data/p.csv"], "codebook": "config/codebook.yaml",
+                     "findings": "results/checks/findings.csv"},
+              output={"scores": "results/scores/scores.csv", "reliability": "results/scores/reliability.csv"})
+    score_scales(job)
+    assess_reliability(job)
+    scores = (tmp_path / "results/scores/scores.csv").read_text()
+    rel = (tmp_path / "results/scores/reliability.csv").read_text()
+    assert scores.splitlines()[0] == "id,wave,scale,score,n_items" and len(scores.splitlines()) == 121
+    assert "secret" not in scores + rel
+    assert rel.splitlines()[0].startswith("scale,wave,n,k,alpha,alpha_lo,alpha_hi,omega")
+    first = (tmp_path / "results/scores/scores.csv").read_bytes()
+    score_scales(job)
+    assert (tmp_path / "results/scores/scores.csv").read_bytes() == first
+    (results / "findings.csv").write_text(header + "q1,1,out_of_range,error,1,p.csv:3,bad\n")
+    with pytest.raises(DataError, match="severity error"):
+        score_scales(job)

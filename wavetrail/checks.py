@@ -352,7 +352,7 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
                 out.add("straight_lining", "warning",
                         f"{n} people gave the same answer to all {len(scale.items)} items of {name} "
                         f"(e.g. {panel.id} {ids})", variable=name, wave=w, count=n,
-                        rows=f"{panel.id} " + ", ".join(map(_show, long.loc[m, panel.id].head(MAX_ROWS))))
+                        rows=_where(panel.origin, m))
 
 
 # --------------------------------------------------------------------------- tables

@@ -86,6 +86,8 @@ class Panel:
         id, wave, variable, code, reason of every declared missing code met.
     records : DataFrame
         Every record as read (before cleaning), with ``_file`` and ``_row``.
+    origin : DataFrame
+        ``_file`` and ``_row`` of each row of :attr:`long` (same order).
     sources : list of Source
     """
 
@@ -96,7 +98,7 @@ class Panel:
         self.id = codebook.study.id
         self.wave = codebook.study.wave or "wave"
         self.waves = list(codebook.study.waves)
-        self.long, self.missing_reasons = _clean(self)
+        self.long, self.missing_reasons, self.origin = _clean(self)
 
     # -- views ------------------------------------------------------------
 
@@ -353,7 +355,8 @@ def _clean(panel: Panel):
         missing = pd.concat(reasons, ignore_index=True)
     else:
         missing = pd.DataFrame({"id": [], "wave": [], "variable": [], "code": [], "reason": []})
-    return long, missing
+    origin = pd.DataFrame({FILE: base[FILE].to_numpy(), ROW: base[ROW].to_numpy()})
+    return long, missing, origin
 
 
 def _wave_dtype(waves) -> str | None:

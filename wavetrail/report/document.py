@@ -479,7 +479,8 @@ class Report:
         for key, part in df.groupby(keys, sort=False):
             key = key if isinstance(key, tuple) else (key,)
             title = " \u2014 ".join([self.study.scale_label(key[0])] + [str(k) for k in key[1:]]) if len(key) > 1 else str(key[0])
-            rows = [[_parameter_text(str(r.get("parameter"))), fmt_number(r.get("estimate")), fmt_number(r.get("se")),
+            waves = {str(w) for w in self.study.waves}
+            rows = [[_parameter_text(str(r.get("parameter")), waves), fmt_number(r.get("estimate")), fmt_number(r.get("se")),
                      fmt_number(r.get("z")), fmt_p(r.get("p")), fmt_number(r.get("std"))] for _, r in part.iterrows()]
             html.append(self._table(Table(f"Estimates of the {title} model",
                                           ["Parameter", "Estimate", "SE", "z", "p", "Std."], rows,
@@ -856,12 +857,21 @@ _FACTOR_NAMES = {"intercept", "slope", "quadratic", "shape"}
 _PARAM = re.compile(r"^(mean|var|cov|loading|regress|intercept)\(([^,()]+)(?:,([^()]+))?\)$")
 
 
-def _parameter_text(name: str) -> str:
-    """``mean(slope)`` -> ``Mean of slope``; ``cov(intercept,slope)`` -> ``Covariance of intercept and slope``."""
+def _parameter_text(name: str, waves: set[str] = frozenset()) -> str:
+    """``mean(slope)`` -> ``Mean of slope``; ``var(2)`` -> ``Residual variance at wave 2``.
+
+    Observed variables of a growth model are named by their wave label (``wavetrail.growth``).
+    """
     m = _PARAM.match(name.replace(" ", ""))
     if not m:
         return name
     kind, a, b = m.groups()
+    if b is not None and b in waves:
+        b = f"wave {b}"
+    if a in waves:
+        a = f"wave {a}"
+        if kind == "var":
+            return f"Residual variance at {a}"
     if kind == "mean":
         return f"Mean of {a}"
     if kind == "var":

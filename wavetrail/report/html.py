@@ -22,7 +22,7 @@ _REMOTE = re.compile(
     r"""|@import|url\(\s*["']?\s*(?!data:)[a-z][a-z0-9+.-]*:|\bsrcset\s*=)""",
     re.IGNORECASE,
 )
-_H2 = re.compile(r"<h2>(.*?)</h2>", re.DOTALL)
+_H2 = re.compile(r"<h2(?:\s[^>]*)?>(.*?)</h2>", re.DOTALL)
 _TAG = re.compile(r"<[^>]+>")
 
 

@@ -212,8 +212,15 @@ def _n_moments(spec):
     return p * (p + 3) // 2
 
 
-def observed_information(cm, theta, stats, base=None):
-    """Negative Hessian of the log-likelihood by central differences of the analytic gradient."""
+def observed_information(cm, theta, stats, base=None, numeric=False):
+    """Negative Hessian of the log-likelihood: analytic where available, else central
+    differences of the analytic gradient."""
+    from wavetrail.sem.likelihood import observed_info
+
+    if not numeric:
+        I = observed_info(cm, theta, stats, base)
+        if I is not None:
+            return I
     k = cm.k
     h = 1e-5 * np.maximum(np.abs(theta), 1.0)
     per = max(1, int(4e6 // max(1, k * cm.p * cm.p)))

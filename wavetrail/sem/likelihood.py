@@ -23,7 +23,12 @@ from __future__ import annotations
 
 import numpy as np
 
+from wavetrail.sem.spec import ALPHA, LAMBDA, PSI
+
 LOG2PI = np.log(2.0 * np.pi)
+
+#: largest p for which the information is accumulated over the saturated moments
+MOMENT_PATH_MAX_P = 12
 
 
 def _chol_logdet_inv(S):
@@ -76,7 +81,7 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
     ok_all = np.ones(B, dtype=bool)
     G = np.zeros(sigma.shape) if grad else None
     g = np.zeros(mu.shape) if grad else None
-    via_moments = info and p <= 12
+    via_moments = info and p <= MOMENT_PATH_MAX_P
     if info and via_moments:
         H = np.zeros((B, p * p, p * p))
         Hm = np.zeros((B, p, p))
@@ -128,7 +133,7 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
         ge = 2.0 * w * np.einsum("bei,bij,bej->be", U, G, V)
         out.append(ge @ Cinc + np.einsum("bi,bki->bk", g, dmu))
     if info and via_moments:
-        R = np.einsum("ek,e,bei,bej->bkij", Cinc, w, U, V)
+        R = np.einsum("ek,bei,bej->bkij", Cinc * w[:, None], U, V, optimize=True)
         dsig = R + np.swapaxes(R, -1, -2)
         Df = dsig.reshape(B, k, p * p)
         I = Df @ H @ np.swapaxes(Df, -1, -2) + dmu @ Hm @ np.swapaxes(dmu, -1, -2)
@@ -175,3 +180,83 @@ def casewise(cm, theta, Y, scores=True, base=None):
             trWD = np.einsum("ij,kji->k", W, Ds)
             sc[rows] = 0.5 * (quad - trWD) + gm @ dmu[:, o].T
     return ll, sc
+
+
+def observed_info(cm, theta, stats, base=None):
+    """Analytic observed information (negative Hessian) of one model, (k, k).
+
+    Moment part per pattern (``S_a = dSigma/dtheta_a``, ``m_a = dmu/dtheta_a``,
+    ``K = W S W``, ``z = W (s - n mu)``):
+
+    .. math:: \\operatorname{tr}(W S_a K S_b) - \\tfrac n2 \\operatorname{tr}(W S_a W S_b)
+              + m_a^T W S_b z + m_b^T W S_a z + n m_a^T W m_b
+
+    minus the curvature of the model, ``tr(G d2Sigma_ab) + g^T d2mu_ab`` with the
+    summed gradient matrices ``G`` and ``g`` (loading x loading, loading x latent
+    covariance and loading x latent mean pairs). Models with latent regressions
+    are not covered (returns None; use numerical differences).
+    """
+    if cm.has_beta:
+        return None
+    theta = np.atleast_2d(np.asarray(theta, dtype=float))[:1]
+    k = cm.k
+    mu, sigma, U, V, w, prm, dmu = cm.entry_terms(theta, base)
+    mu, sigma, U, V, dmu = mu[0], sigma[0], U[0], V[0], dmu[0]
+    E = len(w)
+    Cw = np.zeros((E, k))
+    Cw[np.arange(E), prm] = w
+    p = cm.p
+    Te = np.zeros((E, E))
+    X = np.zeros((k, E))
+    Im = np.zeros((k, k))
+    G = np.zeros((p, p))
+    g = np.zeros(p)
+    for j, mask in enumerate(stats.masks):
+        n = stats.n[0, j]
+        if n <= 0:
+            continue
+        o = np.nonzero(mask)[0]
+        Sg = sigma[np.ix_(o, o)]
+        m = mu[o]
+        s = stats.sums[0, j][o]
+        C = stats.cross[0, j][np.ix_(o, o)]
+        W = np.linalg.inv(Sg)
+        S = C - np.outer(s, m) - np.outer(m, s) + n * np.outer(m, m)
+        K = W @ S @ W
+        z = W @ (s - n * m)
+        g[o] += z
+        G[np.ix_(o, o)] += 0.5 * (K - n * W)
+        Uo, Vo, Dm = U[:, o], V[:, o], dmu[:, o]
+        KU, KV, WU, WV = Uo @ K, Vo @ K, Uo @ W, Vo @ W
+        Kuu, Kuv, Kvv = KU @ Uo.T, KU @ Vo.T, KV @ Vo.T
+        Wuu, Wuv, Wvv = WU @ Uo.T, WU @ Vo.T, WV @ Vo.T
+        Te += (Kuv.T * Wuv + Kvv * Wuu + Kuu * Wvv + Kuv * Wuv.T) - n * (Wuv * Wuv.T + Wuu * Wvv)
+        DmW = Dm @ W
+        X += (DmW @ Uo.T) * (Vo @ z)[None, :] + (DmW @ Vo.T) * (Uo @ z)[None, :]
+        Im += n * (DmW @ Dm.T)
+    Xk = X @ Cw
+    I = Cw.T @ Te @ Cw + Xk + Xk.T + Im
+    # curvature of the model: second derivatives of Sigma and mu
+    mats = cm.matrices(theta, base)
+    Psi, al = mats[PSI][0], mats[ALPHA][0]
+    Lam = mats[LAMBDA][0]
+    GL = G @ Lam
+    H2 = np.zeros((k, k))
+    lam = list(zip(*cm.free_idx[LAMBDA]))
+    for i, f, a in lam:
+        for j2, f2, b in lam:
+            H2[a, b] += 2.0 * G[i, j2] * Psi[f, f2]
+        for gg, hh, b in zip(*cm.free_idx[PSI]):
+            v = 0.0
+            if f == hh:
+                v += 2.0 * GL[i, gg]
+            if f == gg and gg != hh:
+                v += 2.0 * GL[i, hh]
+            H2[a, b] += v
+            H2[b, a] += v
+        for gg, _, b in zip(*cm.free_idx[ALPHA]):
+            if gg == f:
+                H2[a, b] += g[i]
+                H2[b, a] += g[i]
+    I = I - H2
+    return 0.5 * (I + I.T)

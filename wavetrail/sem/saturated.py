@@ -72,7 +72,7 @@ def saturated(stats, b=0, max_iter=5000, tol=1e-11):
                 T2 += C
                 continue
             Soo = sigma[np.ix_(o, o)]
-            Bmat = np.linalg.solve(Soo, sigma[np.ix_(o, u)]).T  # (u, o) regression of u on o
+            Bmat = np.linalg.lstsq(Soo, sigma[np.ix_(o, u)], rcond=None)[0].T  # (u, o) regression of u on o
             c = mu[u] - Bmat @ mu[o]
             resid = sigma[np.ix_(u, u)] - Bmat @ sigma[np.ix_(o, u)]
             so = s[o]
