@@ -169,11 +169,11 @@ def build_crate(*, title: str, description: str, date: str, license_text: str | 
         stem = PurePosixPath(rec["_file"]).stem if rec.get("_file") else rec["step"]
         run_id = f"#run/{stem}"
         objects = [file_ref(e) for e in rec["inputs"]]
-        values = [("seed", rec.get("seed"))]
-        values += [(f"wildcard {k}", v) for k, v in sorted((rec.get("wildcards") or {}).items())]
-        values += sorted((rec.get("params") or {}).items())
-        for key, value in values:
-            vid = f"#param/{stem}/{key.replace(' ', '-')}"
+        values = [("seed", "seed", rec.get("seed"))]
+        values += [(f"wildcard-{k}", f"wildcard {k}", v) for k, v in sorted((rec.get("wildcards") or {}).items())]
+        values += [(f"params.{k}", k, v) for k, v in sorted((rec.get("params") or {}).items())]
+        for slug, key, value in values:
+            vid = f"#param/{stem}/{slug.replace(' ', '-')}"
             crate.add_jsonld({"@id": vid, "@type": "PropertyValue", "name": key, "value": _value(value)})
             objects.append(_ref(vid))
         results = [file_ref(e) for e in rec["outputs"]]
