@@ -1,16 +1,18 @@
 """Benchmarks of the moderator forest; every figure is printed beside a same-run baseline.
 
-    python benchmarks/bench_forest.py [speed] [naive] [baseline] [recovery] [memory] [demo]
+    python benchmarks/bench_forest.py [--quick] [speed] [naive] [recovery] [memory] [demo]
+
+``--quick`` runs every case at reduced sizes (a smoke run of a minute or two);
+the goals below refer to the full sizes.
 
 * speed    — 1,000 people, 5 waves, 90 predictors, quadratic growth: 500 trees with
              importance, expected trajectories of the top 10 (goal < 60 s on 2 cores);
 * naive    — one cut search by prefix sums + batched fits against refitting every
              candidate child from its raw rows with scipy.optimize (goal >= 100x);
-* baseline — the two-step baseline (per-person OLS growth coefficients, then a
-             scikit-learn random forest) on the same data, timed and ranked;
-* recovery — 10 simulated panels with four true moderators (one acting only on the
-             spread of the slopes) among noise: how often they take ranks 1-4, forest
-             vs the two-step baseline;
+* recovery — the two-step baseline (per-person OLS growth coefficients, then a
+             scikit-learn random forest) against the forest on 10 simulated panels with
+             four true moderators (one acting only on the spread of the slopes) among
+             noise: time and how often they take ranks 1-4, side by side;
 * memory   — 100,000 people, 6 waves, 100 trees: peak resident memory (run alone);
 * demo     — demo-sized panel (800 people, 5 waves, 36 predictors, quadratic).
 
@@ -137,20 +139,26 @@ def bench_naive(n=1000, cuts=16):
 def bench_recovery(seeds=10, n=1000, n_noise=30, trees=100, n_jobs=2):
     truth = set(TRUE_MODERATORS)
     hits_f = hits_b = 0
+    t_f = t_b = 0.0
     spread_rank_f, spread_rank_b = [], []
     for s in range(seeds):
         wide, X, times = simulate_panel(n, 5, n_noise=n_noise, shape="linear", seed=100 + s)
-        f = grow_forest(wide, X, times, shape="linear", trees=trees, seed=s, n_jobs=n_jobs)
+        f, dt = _clock(grow_forest, wide, X, times, shape="linear", trees=trees, seed=s, n_jobs=n_jobs)
+        t_f += dt
         ranked = list(f.importance()["predictor"])
-        base = two_step(wide, X, times, "linear", trees=300, seed=s, n_jobs=n_jobs)
+        base, dt = _clock(two_step, wide, X, times, "linear", trees=trees, seed=s, n_jobs=n_jobs)
+        t_b += dt
         hits_f += set(ranked[:4]) == truth
         hits_b += set(base[:4]) == truth
         spread_rank_f.append(ranked.index("spread_slope") + 1)
         spread_rank_b.append(base.index("spread_slope") + 1)
-    print(f"recovery: {seeds} panels of {n} people, 4 true moderators + {n_noise} noise, {trees} trees")
-    print(f"  forest: true moderators take ranks 1-4 in {hits_f} of {seeds}; spread-only moderator ranks "
-          f"{spread_rank_f}")
-    print(f"  two-step baseline: ranks 1-4 in {hits_b} of {seeds}; spread-only moderator ranks {spread_rank_b}")
+    print(f"recovery: {seeds} panels of {n} people, 4 true moderators + {n_noise} noise, "
+          f"{trees} trees each, n_jobs={n_jobs}")
+    print(f"  forest:            {t_f:7.1f} s; true moderators take ranks 1-4 in {hits_f} of {seeds}; "
+          f"spread-only moderator ranks {spread_rank_f}")
+    print(f"  two-step baseline: {t_b:7.1f} s; ranks 1-4 in {hits_b} of {seeds}; "
+          f"spread-only moderator ranks {spread_rank_b}")
+    print(f"  time forest / baseline = {t_f / max(t_b, 1e-9):.2f}")
 
 
 def bench_memory(n=100_000, waves=6, trees=100, n_pred=20):
@@ -176,8 +184,20 @@ def bench_demo(trees=(100, 200, 300), n_jobs=2):
               f"top 4 {list(f.importance()['predictor'][:4])}")
 
 
+QUICK = {
+    "speed": dict(n=600, n_pred=30, trees=50),
+    "naive": dict(n=400, cuts=8),
+    "recovery": dict(seeds=2, n=600, n_noise=12, trees=30),
+    "memory": dict(n=10_000, trees=10),
+    "demo": dict(trees=(30,)),
+}
+
+
 if __name__ == "__main__":
-    which = sys.argv[1:] or ["speed", "naive", "recovery", "demo"]
-    print(f"cores: {os.cpu_count()}, load average {os.getloadavg()[0]:.2f} (shared machine)")
+    args = sys.argv[1:]
+    quick = "--quick" in args
+    which = [a for a in args if a != "--quick"] or ["speed", "naive", "recovery", "demo"]
+    print(f"cores: {os.cpu_count()}, load average {os.getloadavg()[0]:.2f} (shared machine)"
+          + (" -- QUICK sizes, goals refer to the full sizes" if quick else ""))
     for name in which:
-        globals()[f"bench_{name}"]()
+        globals()[f"bench_{name}"](**(QUICK.get(name, {}) if quick else {}))

@@ -24,13 +24,18 @@ which lowers ``k``) and ``c_i`` the cumulative whitened score of the first
 predictor's test (the bridge is tied down over the observed people; the
 information is the node's).
 
-p-values. supLM: the simulated null table of
-:mod:`wavetrail.forest._supLM_table` (interpolated on the log-probability
-scale, extrapolated beyond its last quantile with a chi-square-like tail),
-and, when fewer cut points were evaluated, the Bonferroni bound
-``m * P(chi2_k > x)`` over the ``m`` evaluated points; both bound the same
-tail probability, so the smaller is kept. maxLM over level boundaries: the
-Bonferroni bound over boundaries (conservative; exact for two levels).
+p-values. supLM over the cut range actually searched, ``[t_lo, t_hi]`` (the
+first and last admissible cut after the 10 % trim, the minimum node size and
+ties): the law of the supremum depends on the range only through
+``lambda = t_hi (1 - t_lo) / (t_lo (1 - t_hi))`` (Andrews 1993; Hansen 1997),
+so the simulated multi-trim null table of :mod:`wavetrail.forest._supLM_table`
+is interpolated in ``log(lambda)`` (towards ``chi2_k`` at ``lambda = 1``) and
+on the log-probability scale, with a chi-square-like tail beyond its last
+quantile. The Bonferroni bound ``m * P(chi2_k > x)`` over the ``m`` evaluated
+points is also computed; both bound the same tail probability, so the smaller
+is kept. maxLM over the boundaries of an ordered category: the same two
+bounds (the sup over the continuous range bounds the max over the boundaries
+inside it; exact for two levels).
 
 References
 ----------
@@ -40,6 +45,8 @@ References
    structural equation model trees. Frontiers in Psychology, 11, 564403.
 .. [3] Andrews, D. W. K. (1993). Tests for parameter instability and structural
    change with unknown change point. Econometrica, 61(4), 821-856.
+.. [4] Hansen, B. E. (1997). Approximate asymptotic p values for structural-change
+   tests. Journal of Business & Economic Statistics, 15(1), 60-67.
 """
 
 from __future__ import annotations
@@ -53,7 +60,41 @@ from wavetrail.forest import _supLM_table as _table
 
 TRIM = 0.1  # trimming of the cut-point range (10 %, the usual default)
 _LOG_TAIL = np.log(np.asarray(_table.TAIL))
-_QUANT = np.asarray(_table.QUANTILES)[_table.TRIMS.index(TRIM)]  # (k, tail) at this trim
+_ALLQ = np.asarray(_table.QUANTILES)  # (trim, k, tail)
+_QUANT = _ALLQ[_table.TRIMS.index(TRIM)]  # (k, tail) at the default trim
+#: log(lambda) of each tabulated symmetric trim, lambda = ((1 - trim) / trim)^2, ascending
+_LOG_LAMBDA = np.asarray([2.0 * math.log((1 - tr) / tr) for tr in _table.TRIMS])[::-1]
+
+
+def range_lambda(t_lo: float, t_hi: float) -> float:
+    """``lambda = t_hi (1 - t_lo) / (t_lo (1 - t_hi))`` of the cut range ``[t_lo, t_hi]``.
+
+    The sup of ``||B(t)||^2 / (t (1 - t))`` over ``[t_lo, t_hi]`` depends on the
+    range only through ``lambda`` (Andrews 1993, Hansen 1997): in log-odds time
+    the normalised bridge is stationary. ``lambda = 1`` is a single point.
+    """
+    t_lo = min(max(float(t_lo), 1e-12), 1 - 1e-12)
+    t_hi = min(max(float(t_hi), t_lo), 1 - 1e-12)
+    return t_hi * (1 - t_lo) / (t_lo * (1 - t_hi))
+
+
+def _quantiles_at(k: int, lam: float) -> np.ndarray:
+    """Null quantiles (at the TAIL probabilities) of supLM with ``k`` parameters over a range of ``lam``.
+
+    Linear interpolation in ``log(lambda)`` between the tabulated trims; below the
+    narrowest tabulated range, towards ``lambda = 1`` where the statistic is ``chi2_k``.
+    """
+    ll = math.log(max(lam, 1.0))
+    tab = _ALLQ[::-1, k - 1, :]  # ascending in lambda
+    if ll >= _LOG_LAMBDA[-1]:
+        return tab[-1]  # the widest tabulated range (a wider one cannot occur with TRIM = 0.1)
+    if ll <= _LOG_LAMBDA[0]:
+        q1 = chi2.isf(np.asarray(_table.TAIL), k)
+        w = ll / _LOG_LAMBDA[0]
+        return (1 - w) * q1 + w * tab[0]
+    j = int(np.searchsorted(_LOG_LAMBDA, ll)) - 1
+    w = (ll - _LOG_LAMBDA[j]) / (_LOG_LAMBDA[j + 1] - _LOG_LAMBDA[j])
+    return (1 - w) * tab[j] + w * tab[j + 1]
 
 
 def whiten(scores: np.ndarray, tol: float = 1e-9) -> np.ndarray:
@@ -70,26 +111,35 @@ def whiten(scores: np.ndarray, tol: float = 1e-9) -> np.ndarray:
     return S @ (V[:, keep] / np.sqrt(w[keep]))
 
 
-def suplm_pvalue(stat: float, k: int, n_points: int | None = None) -> float:
-    """p-value of a trimmed (10 %) supLM statistic with ``k`` parameters.
+def suplm_pvalue(stat: float, k: int, n_points: int | None = None, lam: float | None = None) -> float:
+    """p-value of a supLM statistic with ``k`` parameters.
 
-    ``n_points`` is the number of cut points actually evaluated; when given, the
-    Bonferroni bound over them is also computed and the smaller value returned.
+    ``lam`` is the ``lambda`` of the cut range actually searched (see
+    :func:`range_lambda`); default the symmetric 10 % trim. ``n_points`` is the
+    number of cut points actually evaluated; when given, the Bonferroni bound
+    over them is also computed and the smaller value returned (both bound the
+    same tail probability).
     """
     if k < 1 or not np.isfinite(stat) or stat <= 0:
         return 1.0
-    p = _table_p(float(stat), int(k))
+    if lam is None:
+        lam = ((1 - TRIM) / TRIM) ** 2
+    p = _table_p(float(stat), int(k), float(lam))
     if n_points is not None and n_points > 0:
         p = min(p, n_points * float(chi2.sf(stat, k)))
     return float(min(max(p, 0.0), 1.0))
 
 
-def _table_p(x: float, k: int) -> float:
-    if k > _QUANT.shape[0]:
-        # beyond the table: the asymptotic sup of k independent blocks is not
-        # tabulated; fall back on a conservative bound of chi2_k at 1/(trim^2) points
-        return min(1.0, float(chi2.sf(x, k)) * 4.0 * math.log((1 - TRIM) / TRIM) ** 2 * (k + 1))
-    q = _QUANT[k - 1]
+def _table_p(x: float, k: int, lam: float | None = None) -> float:
+    if lam is None:
+        lam = ((1 - TRIM) / TRIM) ** 2
+    if lam <= 1.0 + 1e-12:
+        return float(chi2.sf(x, k))  # a single cut point: the LM statistic is chi2_k
+    if k > _ALLQ.shape[1]:
+        # beyond the table: Bonferroni-type bound of chi2_k over the range
+        # (about (k + 1) log(lambda) effectively independent points; conservative)
+        return min(1.0, float(chi2.sf(x, k)) * (1.0 + math.log(max(lam, 1.0))) * (k + 1))
+    q = _quantiles_at(k, lam)
     if x <= q[0]:
         # between 0 and the 99 % point: interpolate towards p = 1 at x = 0
         return float(1.0 - (1.0 - _table.TAIL[0]) * x / q[0])
@@ -164,14 +214,17 @@ def ordered_tests(Sw: np.ndarray, Z: np.ndarray, kinds: list[str], min_size: int
     stat = vals.max(axis=0)
     npts = ok.sum(axis=0)
     p = np.ones(m)
+    pos = np.arange(1, n + 1)
     for j in range(m):
         if npts[j] == 0 or k == 0:
             stat[j] = 0.0
             continue
-        if numeric[j]:
-            p[j] = suplm_pvalue(stat[j], k, int(npts[j]))
-        else:
-            p[j] = min(1.0, int(npts[j]) * float(chi2.sf(stat[j], k)))
+        # the range actually searched: first and last admissible cut (left share t)
+        at = pos[ok[:, j]]
+        lam = range_lambda(at[0] / n_obs[j], at[-1] / n_obs[j])
+        # both kinds: the sup over the continuous range bounds the max over the
+        # admissible cuts inside it, and so does Bonferroni over those cuts
+        p[j] = suplm_pvalue(stat[j], k, int(npts[j]), lam=lam)
     return stat, p, npts
 
 
