@@ -131,13 +131,18 @@ class GrowthFit:
 
 
 def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, information="observed",
-               where="data"):
+               where="data", max_iter=500):
     """Fit a latent growth curve model by ML, FIML for missing waves.
 
     Parameters
     ----------
     wide : DataFrame, one row per person, one column per wave (NaN = missing wave)
-    time_scores : sequence of float, one per wave column of ``wide``
+    time_scores : sequence of float, one per wave column of ``wide``; or
+        individually varying time scores: a DataFrame on the index and columns of
+        ``wide`` (or an (n, T) array in its row order) holding each person's own
+        time at each wave (e.g. age). These are fitted through a per-person
+        likelihood (:mod:`wavetrail.sem.individual`); a time score may be NaN
+        only where the outcome is missing. Not for ``shape="basis"``.
     shape : {"linear", "quadratic", "basis"}
     residuals : {"free", "equal"}
     covariates : DataFrame on the same index as ``wide`` (time-invariant covariates),
@@ -145,6 +150,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
         with a missing covariate are dropped (covariates are conditioned on).
     information : {"observed", "expected"} information for the standard errors
     where : names the data in error messages
+    max_iter : int, iterations of the optimiser
 
     Returns
     -------
@@ -155,7 +161,13 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     The likelihood is the normal log-likelihood summed over missingness patterns
     (full-information ML; Arbuckle 1996, in *Advanced Structural Equation
     Modeling*, Erlbaum). Fit indices are computed against the saturated model
-    (EM) and the independence model; see docs/methods/growth.md.
+    (EM) and the independence model; see docs/methods/growth.md. With
+    individually varying time scores there is no saturated model: chi-square
+    and the indices built on it are NaN (log-likelihood, AIC and BIC remain), and
+    ``implied_mean``/``implied_cov`` are evaluated at each wave's average time score.
+
+    Estimation is unrestricted ML: a negative variance or a latent correlation
+    beyond +-1 is kept and reported (``fit["admissible"]`` False, ``fit["note"]``).
     """
     import pandas as pd
 
@@ -181,11 +193,115 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     else:
         data = wide.set_axis([str(c) for c in wide.columns], axis=1)
         wave_cols = list(data.columns)
-    if len(wave_cols) != len(list(time_scores)):
+    person_times = _person_times(wide, time_scores, wave_cols, where)
+    if person_times is None and len(wave_cols) != len(list(time_scores)):
         raise ModelError(f"{where}: {len(wave_cols)} wave columns but {len(list(time_scores))} time scores",
                          hint="give one time score per wave column")
     data = data.astype(float)
     data = data.loc[data[wave_cols].notna().any(axis=1)]
+    if person_times is not None:
+        return _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
+                            information, where, max_iter)
     spec = growth_spec(time_scores, shape=shape, residuals=residuals, covariates=cov_names, observed=wave_cols)
-    res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where)
+    res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter)
     return GrowthFit(res, shape, residuals, time_scores, wave_cols)
+
+
+def _person_times(wide, time_scores, wave_cols, where):
+    """Individually varying time scores as a float DataFrame on ``wide``'s index, or None."""
+    import pandas as pd
+
+    if isinstance(time_scores, pd.DataFrame):
+        ts = time_scores.copy()
+        ts.columns = [str(c) for c in ts.columns]
+        if set(wave_cols) <= set(ts.columns):
+            ts = ts[wave_cols]
+        elif ts.shape[1] == len(wave_cols):
+            ts = ts.set_axis(wave_cols, axis=1)
+        else:
+            raise ModelError(f"{where}: the time-score table has columns {list(ts.columns)[:10]}, "
+                             f"the waves are {wave_cols[:10]}", hint="give one time-score column per wave")
+        missing = wide.index.difference(ts.index)
+        if len(missing):
+            raise ModelError(f"{where}: no time scores for {len(missing)} person(s), e.g. {missing[0]!r}",
+                             hint="the time-score table needs a row for every person of the data")
+        ts = ts.reindex(wide.index)
+    else:
+        arr = np.asarray(time_scores, dtype=float) if np.ndim(time_scores) == 2 else None
+        if arr is None:
+            return None
+        if arr.shape != (len(wide), len(wave_cols)):
+            raise ModelError(f"{where}: time scores of shape {arr.shape} for data with {len(wide)} rows and "
+                             f"{len(wave_cols)} waves", hint="give one row per person and one column per wave")
+        ts = pd.DataFrame(arr, index=wide.index, columns=wave_cols)
+    try:
+        ts = ts.astype(float)
+    except (TypeError, ValueError) as err:
+        raise ModelError(f"{where}: time scores must be numbers ({err})") from None
+    y = wide.set_axis([str(c) for c in wide.columns], axis=1)[wave_cols]
+    bad = y.notna().to_numpy() & ~np.isfinite(ts.to_numpy())
+    if bad.any():
+        r, c = np.argwhere(bad)[0]
+        raise ModelError(f"{where}: person {wide.index[r]!r} has an outcome at wave {wave_cols[c]!r} but no "
+                         f"time score there ({int(bad.sum())} such cell(s))",
+                         hint="give the time (e.g. age) of every observed wave")
+    return ts
+
+
+def _fit_varying(data, times, shape, residuals, cov_names, wave_cols, information, where, max_iter):
+    """Growth model with each person's own time scores (definition variables)."""
+    from wavetrail.sem.fitting import SemFit, admissibility, check_data, data_matrix, estimates_table
+    from wavetrail.sem.fitting import fit as sem_fit
+    from wavetrail.sem.individual import fit_individual
+    from wavetrail.sem.spec import LAMBDA
+
+    if shape == "basis":
+        raise ModelError(f"{where}: a latent-basis model estimates the time scores, so it cannot take each "
+                         "person's own time scores", hint="use shape linear or quadratic, or one time score per wave")
+    if information != "observed":
+        raise ModelError("individually varying time scores use the observed information only",
+                         hint="drop information=")
+    T = len(wave_cols)
+    tm = times.to_numpy(dtype=float)
+    y_obs = data[wave_cols].notna().to_numpy()
+    with np.errstate(invalid="ignore"):
+        nominal = np.array([np.nanmean(np.where(y_obs[:, j], tm[:, j], np.nan)) for j in range(T)])
+    if not np.all(np.isfinite(nominal)) or len(np.unique(nominal)) != T:
+        raise ModelError(f"{where}: the average time scores of the waves must differ, got {list(nominal)}")
+    spec = growth_spec(nominal, shape=shape, residuals=residuals, covariates=cov_names, observed=wave_cols)
+    Y = data_matrix(spec, data[wave_cols + cov_names], where)
+    notes = check_data(spec, Y, where)
+    first = sem_fit(spec, Y, information=information, where=where, max_iter=max_iter)  # start values
+    cm = spec.compile()
+    tz = np.where(np.isfinite(tm), tm, 0.0)
+    lam = np.broadcast_to(cm.base[LAMBDA], (len(Y),) + cm.base[LAMBDA].shape).copy()
+    f_int, f_slope = spec.latent.index("intercept"), spec.latent.index("slope")
+    lam[:, :T, f_int] = 1.0
+    lam[:, :T, f_slope] = tz
+    if shape == "quadratic":
+        lam[:, :T, spec.latent.index("quadratic")] = tz ** 2
+    base = {key: val[None] for key, val in cm.base.items()}
+    base[LAMBDA] = lam
+    res = fit_individual(spec, Y, base, first.theta, max_iter=max_iter, where=where)
+    theta = res.theta
+    if not res.converged:
+        notes.append(f"did not converge in {res.n_iter} iterations (decrement {res.decrement:.3g})")
+    if not np.all(np.isfinite(res.vcov)):
+        notes.append("information matrix is singular: the model may not be identified; no standard errors")
+    adm, adm_notes = admissibility(spec, theta)
+    notes += adm_notes
+    notes.append("individually varying time scores: no saturated model, so chi-square and the fit indices "
+                 "built on it are not defined")
+    k, n, ll = cm.k, res.n, res.loglik
+    fitd = {"n": n, "loglik": ll, "chisq": np.nan, "df": np.nan, "p": np.nan, "cfi": np.nan, "tli": np.nan,
+            "rmsea": np.nan, "rmsea_lo": np.nan, "rmsea_hi": np.nan, "srmr": np.nan,
+            "aic": float(-2 * ll + 2 * k), "bic": float(-2 * ll + k * np.log(n)),
+            "sabic": float(-2 * ll + k * np.log((n + 2) / 24.0)), "k": int(k),
+            "converged": bool(res.converged), "admissible": bool(adm), "note": "; ".join(notes)}
+    mu, sigma = spec.implied(theta)
+    sem = SemFit(spec=spec, theta=theta, estimates=estimates_table(spec, theta, res.vcov), fit=fitd,
+                 implied_mean=mu, implied_cov=sigma, vcov=res.vcov, converged=bool(res.converged),
+                 admissible=bool(adm), notes=notes, n_iter=res.n_iter, information=information)
+    g = GrowthFit(sem, shape, residuals, nominal, wave_cols)
+    g.person_time_scores = times
+    return g
