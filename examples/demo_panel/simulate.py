@@ -13,7 +13,7 @@ and a handful of predictors change it (see :data:`TRUTH`):
 * ``screen_evening`` moves the slope, linearly;
 * ``chronotype`` moves the curvature by a threshold (eveningness score >= 25);
 * ``family_conflict`` x ``house_rules`` move the intercept together: conflict raises
-  it only where the family has no rules on devices at night;
+  it a little everywhere and much more where the family has no rules on devices at night;
 * ``physical_activity`` changes only the spread of the slopes (fewer than four active
   days a week: much more varied slopes), not their mean.
 
@@ -79,8 +79,8 @@ TRUTH = {
          "rule": "curvature += 0.03 where chronotype >= 25",
          "size": 0.03, "cut": 25, "unit": "per wave squared"},
         {"predictor": "family_conflict x house_rules", "kind": "interaction", "target": "intercept",
-         "rule": "intercept += 0.08 * (family_conflict - 8) where house_rules == 1 (no rules)",
-         "size": 0.08, "unit": "per conflict point, only without house rules"},
+         "rule": "intercept += 0.03 * (family_conflict - 8), plus 0.07 * (family_conflict - 8) more where house_rules == 1 (no rules)",
+         "size": 0.07, "unit": "extra per conflict point without house rules"},
         {"predictor": "physical_activity", "kind": "spread", "target": "slope variance",
          "rule": "slope SD 0.16 where physical_activity < 4 days, 0.05 otherwise; mean slope unchanged",
          "size": 0.11, "cut": 4, "unit": "difference in slope SD"},
@@ -225,7 +225,7 @@ def simulate_people(n: int = N_PEOPLE, seed: int = SEED) -> pd.DataFrame:
     r = pop["intercept_slope_correlation"]
     slope_sd = np.where(activity < 4, pop["slope_sd_inactive"], pop["slope_sd_active"])
     d["intercept"] = (pop["intercept_mean"] + pop["intercept_sd"] * z_i
-                      + 0.08 * (conflict - 8) * (rules == 1))
+                      + (0.03 + 0.07 * (rules == 1)) * (conflict - 8))
     d["slope"] = (pop["slope_mean"] + 0.05 * (screen - 2.2)
                   + slope_sd * (r * z_i + np.sqrt(1 - r * r) * z_s))
     d["curvature"] = (pop["curvature_mean"] + pop["curvature_sd"] * z_q
