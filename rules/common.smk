@@ -1,8 +1,8 @@
 # Helpers shared by every stage module (file lists, settings from the validated config).
 # Only functions and constants live here; the Snakefile includes this module first.
-import hashlib
-from importlib import metadata
 from pathlib import Path
+
+from wavetrail.environment import fingerprint as _environment_fingerprint
 
 
 # Default cluster resources of every job (config key `resources`).
@@ -33,17 +33,14 @@ def shard_files(wildcards=None):
 
 
 def environment_fingerprint():
-    """sha256 of the sorted name==version list of installed distributions.
+    """The environment fingerprint of wavetrail.environment (sha256 of the lock text).
 
     Given to lock_environment as a parameter, so Snakemake reruns it (and everything
-    recorded against the lock) when a package is added, removed or upgraded.
+    recorded against the lock) when a package is added, removed or upgraded, or the
+    Python version or platform changes. One implementation: the ledger's lock_sha256
+    and `wavetrail ledger` use the same function.
     """
-    names = set()
-    for dist in metadata.distributions():
-        name = dist.metadata["Name"]
-        if name:
-            names.add(f"{name.lower().replace('_', '-')}=={dist.version}")
-    return hashlib.sha256("\n".join(sorted(names)).encode("utf-8")).hexdigest()
+    return _environment_fingerprint()
 
 
 def report_inputs(wildcards=None):

@@ -20,22 +20,10 @@ from wavetrail.registry import register_files
 RULES = Path(__file__).resolve().parents[1] / "rules"
 
 SNAKEFILE = """\
-from wavetrail.environment import fingerprint
-
 configfile: "config/config.yaml"
 
-RUNTIME = 10
-MEM_MB = 200
 
-
-def data_files():
-    return list(config["data"])
-
-
-def environment_fingerprint():
-    return fingerprint()
-
-
+include: "rules/common.smk"
 include: "rules/provenance.smk"
 
 
@@ -58,10 +46,12 @@ def mini(tmp_path):
     (p / "workflow/rules/scripts").mkdir(parents=True)
     (p / "data/raw").mkdir(parents=True)
     (p / "config").mkdir()
+    shutil.copy(RULES / "common.smk", p / "workflow/rules/common.smk")  # the shipped fingerprint helper
     shutil.copy(RULES / "provenance.smk", p / "workflow/rules/provenance.smk")
     shutil.copy(RULES / "scripts/run_step.py", p / "workflow/rules/scripts/run_step.py")
     (p / "workflow/Snakefile").write_text(SNAKEFILE)
-    (p / "config/config.yaml").write_text("data: [data/raw/w1.csv, data/raw/w2.csv]\nseed: 11\n")
+    (p / "config/config.yaml").write_text("data: [data/raw/w1.csv, data/raw/w2.csv]\nseed: 11\n"
+                                         "resources: {runtime: 10, mem_mb: 200}\n")
     (p / "data/raw/w1.csv").write_text("pid,slp1\n1,3\n2,4\n")
     (p / "data/raw/w2.csv").write_text("pid,slp1\n1,2\n2,5\n")
     register_files(p, [p / "data/raw/w1.csv", p / "data/raw/w2.csv"], commit=False)

@@ -55,6 +55,20 @@ SCHEMA = "wavetrail-archive/1"
 SKIP_TOP = (".git", ".snakemake", "logs")
 #: tracked folders whose content decides what a job computes
 CODE_PATHS = ("config", "workflow")
+#: file name endings of temporary files, never packed
+TEMP_SUFFIXES = (".tmp",)
+#: what wavetrail._io.atomic_write_bytes names its temporary file: ".<target name>.<random>.tmp"
+_ATOMIC_TEMP = re.compile(r"^\..+\.[^./]+\.tmp$")
+
+
+def is_temporary(rel: str) -> bool:
+    """True for a temporary file that must not go into an archive.
+
+    ``*.tmp`` anywhere (e.g. left behind by a killed job) and the temporary
+    names of wavetrail's atomic writes (``.<name>.<random>.tmp``).
+    """
+    name = PurePosixPath(rel).name
+    return name.endswith(TEMP_SUFFIXES) or bool(_ATOMIC_TEMP.match(name))
 
 
 def _short(items: list[str], n: int = 8) -> str:
@@ -287,6 +301,8 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
     for rel in ("environment/requirements.lock", "data/SHA256SUMS"):
         if (root / rel).is_file():
             files[rel] = root / rel
+    for rel in [r for r in files if is_temporary(r)]:
+        del files[rel]  # a temporary file (a killed job's leftover, an unfinished atomic write)
     for rel in list(files):
         if files[rel].is_symlink():
             raise ArchiveError(f"{rel}: a link cannot go into an archive", hint="replace it by the file")
