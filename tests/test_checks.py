@@ -2,6 +2,8 @@
 
 import textwrap
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -112,6 +114,9 @@ def test_check_fires_on_bad_file_only(tmp_path, check):
     assert (hit["count"] >= 1).all() or check == "wave_coverage"
     if check not in ("unknown_column", "missing_column", "identifier", "wave_coverage"):
         assert hit["rows"].str.match(r"bad\.csv:\d+").all(), hit["rows"]
+    # findings are shared with reviewers: no message quotes a person id, the rows locate the records
+    for message in bad["message"]:
+        assert not re.search(r"\bpids?\b[ \t:=#]*\d", message), message
 
 
 def test_example_rows_point_at_the_file_line(tmp_path):
@@ -188,9 +193,10 @@ def test_code_like_values():
     assert got.tolist() == [True, True, True, True, True, True, False, False, False, False, True, False]
 
 
-def test_check_data_step_writes_findings_then_stops(tmp_path):
+def test_check_data_step_writes_findings_and_scoring_refuses(tmp_path):
     from wavetrail.stages.checks import check_data
     from wavetrail.stages.runner import Job
+    from wavetrail.stages.scores import score_scales
 
     (tmp_path / "config").mkdir()
     (tmp_path / "config" / "codebook.yaml").write_text(CODEBOOK)
@@ -200,8 +206,15 @@ def test_check_data_step_writes_findings_then_stops(tmp_path):
               input={"data": ["data/panel.csv"], "codebook": "config/codebook.yaml", "registry": "x"},
               output={"findings": "results/checks/findings.csv", "descriptives": "results/checks/descriptives.csv",
                       "attrition": "results/checks/attrition.csv"})
-    with pytest.raises(DataError, match="results/checks/findings.csv"):
-        check_data(job)
+    check_data(job)  # succeeds, so Snakemake keeps the findings the user must read
+    score = Job(step="score_scales", project=tmp_path,
+                input={"data": ["data/panel.csv"], "codebook": "config/codebook.yaml",
+                       "findings": "results/checks/findings.csv"},
+                output={"scores": "results/scores/scores.csv"})
+    with pytest.raises(DataError, match=r"1 check finding\(s\) with severity error, listed in "
+                                        r"results/checks/findings.csv \(first: out_of_range in it1"):
+        score_scales(score)
+    assert not (tmp_path / "results/scores/scores.csv").exists()
     f = pd.read_csv(tmp_path / "results/checks/findings.csv")
     assert list(f.columns) == ["variable", "wave", "check", "severity", "count", "rows", "message"]
     assert f["severity"].iloc[0] == "error"

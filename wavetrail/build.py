@@ -5,7 +5,12 @@ Snakemake is started as a subprocess of the same interpreter
 (``workflow/profiles/default`` automatically, another one with ``--profile NAME``).
 The settings are validated and the data files looked for before Snakemake starts,
 so a user mistake gives one clean message. A failed job is reported by rule name
-with the end of its log.
+with the end of its log; failing data checks are reported as such, naming the
+findings table.
+
+A build holds an advisory lock on ``.snakemake/wavetrail-build.guard`` (shared
+with its Snakemake process) so that the lock Snakemake leaves behind when a build
+is killed can be told apart from a running build and lifted automatically.
 """
 
 from __future__ import annotations
@@ -33,6 +38,8 @@ _LOG_LINE = re.compile(r"^\s*log:\s*(\S+)")
 _TOTAL = re.compile(r"^total\s+(\d+)\s*$")
 _FINISHED = re.compile(r"Finished jobid: \d+ \(Rule: (\w+)\)")
 _STEP_FAILED = re.compile(r"wavetrail step (\w+) failed: (.*)")
+#: words of the message with which a step refuses findings that hold an error
+_CHECKS_FAILED = "with severity error, listed in"
 
 
 @dataclass
@@ -181,14 +188,25 @@ def build_project(
     env["PYTHONUNBUFFERED"] = "1"
     log_path = root / BUILD_LOG
     log_path.parent.mkdir(parents=True, exist_ok=True)
+    with _BuildLock(root) as guard:
+        if guard.stale_pid is not None and _snakemake_locked(root) and "--unlock" not in extra:
+            # the last build of this folder was killed (its guard file says running, and no
+            # process holds it any more): Snakemake's own lock is stale, so lift it
+            _unlock(root, env)
+            if progress:
+                progress(f"removed the Snakemake lock left by a build that was killed (pid {guard.stale_pid})")
+        return _run(root, cmd, env, log_path, progress, guard)
 
+
+def _run(root: Path, cmd: list[str], env: dict, log_path: Path, progress, guard) -> BuildResult:
     jobs: list[str] = []
     output: list[str] = []
     total = None
     started = time.monotonic()
     with open(log_path, "w", encoding="utf-8") as log:
         proc = subprocess.Popen(cmd, cwd=root, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-                                text=True, encoding="utf-8", errors="replace", bufsize=1)
+                                text=True, encoding="utf-8", errors="replace", bufsize=1,
+                                pass_fds=guard.fds)  # Snakemake holds the guard as long as it lives
         assert proc.stdout is not None
         finished_rule = None
         for line in proc.stdout:
@@ -219,6 +237,90 @@ def build_project(
     if returncode != 0:
         raise BuildError(_failure_message(root, output, returncode))
     return BuildResult(project=root, jobs=jobs, seconds=seconds, returncode=0, log=log_path)
+
+
+#: held (flock) by a running `wavetrail build` and the Snakemake process it starts
+GUARD_FILE = ".snakemake/wavetrail-build.guard"
+
+
+class _BuildLock:
+    """An advisory lock on the project folder, held while a build runs.
+
+    The operating system releases it when the last process holding it ends, however
+    it ends (SIGKILL included); the file says ``running <pid>`` until the build
+    returns, then ``done``. So ``running`` in a file nobody holds means the build
+    was killed and whatever Snakemake lock it left is stale. Windows has no
+    ``fcntl``: there the guard is skipped and a stale lock is reported as before.
+    """
+
+    def __init__(self, root: Path):
+        self.path = root / GUARD_FILE
+        self.fd: int | None = None
+        self.stale_pid: int | None = None
+
+    @property
+    def fds(self) -> tuple[int, ...]:
+        return (self.fd,) if self.fd is not None else ()
+
+    def __enter__(self) -> "_BuildLock":
+        try:
+            import fcntl
+        except ImportError:  # pragma: no cover - not POSIX
+            return self
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            os.close(fd)
+            holder = _read_guard(self.path)
+            raise BuildError("another `wavetrail build` of this project is running"
+                             + (f" (pid {holder})" if holder else "")
+                             + "\n  -> wait for it to finish, then build again") from None
+        self.fd = fd
+        self.stale_pid = _read_guard(self.path)
+        self._write(f"running {os.getpid()}\n")
+        return self
+
+    def _write(self, text: str) -> None:
+        os.ftruncate(self.fd, 0)
+        os.pwrite(self.fd, text.encode("ascii"), 0)
+        os.fsync(self.fd)
+
+    def __exit__(self, *exc) -> None:
+        if self.fd is None:
+            return
+        try:
+            self._write("done\n")
+        finally:
+            os.close(self.fd)  # releases the flock once Snakemake has ended too
+            self.fd = None
+
+
+def _read_guard(path: Path) -> int | None:
+    """The pid of the build a guard file says is running (``None`` after a clean end)."""
+    try:
+        words = path.read_text(encoding="ascii", errors="replace").split()
+    except OSError:
+        return None
+    if len(words) == 2 and words[0] == "running" and words[1].isdigit():
+        return int(words[1])
+    return None
+
+
+def _snakemake_locked(root: Path) -> bool:
+    locks = root / ".snakemake" / "locks"
+    return locks.is_dir() and any(locks.iterdir())
+
+
+def _unlock(root: Path, env: dict) -> None:
+    cmd = [sys.executable, "-m", "snakemake", "--snakefile", "workflow/Snakefile", "--unlock"]
+    proc = subprocess.run(cmd, cwd=root, env=env, capture_output=True, text=True, encoding="utf-8",
+                          errors="replace")
+    if proc.returncode != 0:
+        raise BuildError("a build of this project was killed and left Snakemake's lock behind; "
+                         "lifting it failed:\n" + _indent((proc.stdout + proc.stderr).strip()[-2000:])
+                         + "\n  -> run `wavetrail build -- --unlock`, then build again")
 
 
 def _done_count(output: list[str]) -> int:
@@ -256,6 +358,11 @@ def _failure_message(root: Path, output: list[str], returncode: int) -> str:
         if m:
             hint = [h.strip() for h in output[i + 1 : i + 3] if h.strip().startswith("->")]
             step_errors.append("\n  ".join([m.group(2), *hint[:1]]))
+    if failed_rule and step_errors and _CHECKS_FAILED in step_errors[0]:
+        # check_data succeeded and kept its findings; the first step reading them refused
+        return "\n".join([f"the workflow stopped before scoring (rule {failed_rule} refused to run): "
+                          "the codebook checks found errors", step_errors[0],
+                          f"full Snakemake output: {BUILD_LOG}"])
     if failed_rule:
         parts = [f"the workflow stopped: rule {failed_rule} failed"]
         if step_errors:
@@ -267,8 +374,9 @@ def _failure_message(root: Path, output: list[str], returncode: int) -> str:
         parts.append(f"full Snakemake output: {BUILD_LOG}")
         return "\n".join(parts)
     if "LockException" in text or "Directory cannot be locked" in text:
-        return ("the project folder is locked by another Snakemake run (or one that was killed)\n"
-                "  -> if no other build is running, unlock it with `wavetrail build -- --unlock`")
+        return ("the project folder is locked by a Snakemake run that `wavetrail build` did not start "
+                "(it may still be running, or have been killed)\n"
+                "  -> if no other Snakemake run is using this folder, unlock it with `wavetrail build -- --unlock`")
     tail = "\n".join(line for line in output[-25:])
     return f"Snakemake stopped with exit status {returncode} before running a job:\n{_indent(tail)}\nfull output: {BUILD_LOG}"
 

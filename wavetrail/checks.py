@@ -132,8 +132,11 @@ def run_checks(panel_or_paths, codebook: Codebook | str | None = None) -> pd.Dat
     Returns
     -------
     DataFrame
-        Findings: variable, wave, check, severity, count, rows (up to five
-        ``file:row`` examples), message; sorted errors first.
+        Findings: variable, wave, check, severity, count (values, records or
+        people the finding is about), rows (up to five ``file:row`` examples,
+        the row numbers of the raw file: a CSV's line, header = line 1), message; sorted
+        errors first. Person ids are never quoted (the ``rows`` locate the
+        records), nor values of identifier variables.
     """
     if isinstance(panel_or_paths, Panel):
         panel = panel_or_paths
@@ -217,10 +220,9 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
             in_w = (sub["__wave"] == w).to_numpy()
             n = int((extra & in_w).sum())
             if n:
-                ids = _examples(sub.loc[dup_all & in_w, sid], n=3)
                 out.add("duplicate_id", "error",
-                        f"{n} extra record(s) repeat an ({sid}, wave) pair at wave {w} (e.g. {sid} {ids}); "
-                        "only the first is used", variable=sid, wave=w, count=n,
+                        f"{n} extra record(s) repeat an ({sid}, wave) pair at wave {w} (file rows in "
+                        "`rows`); only the first is used", variable=sid, wave=w, count=n,
                         rows=_where(sub, dup_all & in_w))
     first_wave = cb.study.waves[0]
     order = {w: i for i, w in enumerate(cb.study.waves)}
@@ -232,7 +234,7 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
             mask = sub[sid].isin(grp.index).to_numpy() & (sub["__wave"] == w).to_numpy()
             out.add("late_entry", "warning",
                     f"{len(grp)} id(s) first appear at wave {w}, not at wave {first_wave} "
-                    f"(e.g. {sid} {_examples(grp.index)})", variable=sid, wave=w, count=len(grp),
+                    "(file rows in `rows`)", variable=sid, wave=w, count=len(grp),
                     rows=_where(sub, mask))
 
 
@@ -249,7 +251,7 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
             m = mask & in_w
             n = int(m.sum())
             if n:
-                vals = _examples(raw[m])
+                vals = "values withheld: identifier" if var.identifier else _examples(raw[m])
                 out.add(check, severity, message(n, vals), variable=var.name, wave=w, count=n,
                         rows=_where(rec, m))
 
@@ -348,10 +350,9 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
             m = same & (long[panel.wave] == w).to_numpy()
             n = int(m.sum())
             if n:
-                ids = _examples(long.loc[m, panel.id])
                 out.add("straight_lining", "warning",
                         f"{n} people gave the same answer to all {len(scale.items)} items of {name} "
-                        f"(e.g. {panel.id} {ids})", variable=name, wave=w, count=n,
+                        "(file rows in `rows`)", variable=name, wave=w, count=n,
                         rows=_where(panel.origin, m))
 
 

@@ -2,17 +2,20 @@
 
 from __future__ import annotations
 
+import logging
 from pathlib import Path
 
 import pandas as pd
 
 from wavetrail._io import write_table
-from wavetrail.checks import attrition, describe, has_errors, run_checks
+from wavetrail.checks import attrition, describe, run_checks
 from wavetrail.codebook import load_codebook
 from wavetrail.errors import DataError
 from wavetrail.panel import load_panel
 
-__all__ = ["check_data", "data_paths", "load_job_panel", "refuse_failed_checks"]
+__all__ = ["check_data", "data_paths", "failed_checks_message", "load_job_panel", "refuse_failed_checks"]
+
+log = logging.getLogger(__name__)
 
 
 def data_paths(job) -> list[Path]:
@@ -28,37 +31,53 @@ def load_job_panel(job):
     return codebook, load_panel(data_paths(job), codebook)
 
 
+def failed_checks_message(findings: pd.DataFrame, path: str) -> str | None:
+    """The message that stops the build when ``findings`` hold an error (``None`` when none does)."""
+    if not len(findings):
+        return None
+    errors = findings[findings["severity"] == "error"]
+    if not len(errors):
+        return None
+    first = errors.iloc[0]
+    wave = first["wave"]
+    where = f"{first['variable']}" + (f", wave {wave}" if pd.notna(wave) and str(wave) != "" else "")
+    return (f"{len(errors)} check finding(s) with severity error, listed in {path} "
+            f"(first: {first['check']} in {where}: {first['message']}); "
+            "scores are not computed from data that fail the checks")
+
+
 def refuse_failed_checks(job) -> None:
-    """Raise when the job's ``findings`` input holds an error (the checks did not pass)."""
+    """Raise when the job's ``findings`` input holds an error (the checks did not pass).
+
+    This is where a build with failing checks stops: ``check_data`` itself
+    succeeds, so Snakemake keeps its findings table for the user to read.
+    """
     path = job.input.get("findings")
     if not path:
         return
     findings = pd.read_csv(job.path(path), keep_default_na=False)
-    if len(findings) and (findings["severity"] == "error").any():
-        n = int((findings["severity"] == "error").sum())
-        raise DataError(f"{n} check finding(s) with severity error in {path}; "
-                        "scores are not computed from data that fail the checks",
-                        hint="fix the data or the codebook, then build again")
+    message = failed_checks_message(findings, path)
+    if message:
+        raise DataError(message, hint=f"read {path} (or run `wavetrail check`), fix the data or the "
+                                      "codebook, then build again")
 
 
 def check_data(job) -> None:
     """Rule ``check_data``: findings, descriptives and attrition of the raw data.
 
     Inputs ``data`` (list), ``codebook``, ``registry``; outputs ``findings``,
-    ``descriptives``, ``attrition``. All three tables are written first; then,
-    when any finding has severity ``error``, a :class:`DataError` naming the
-    findings file stops the build before scoring.
+    ``descriptives``, ``attrition``. The step always succeeds once the tables are
+    written, so Snakemake keeps them; when a finding has severity ``error`` the
+    steps that read the findings refuse to run (:func:`refuse_failed_checks`),
+    which stops the build before scoring with a message naming the findings file.
     """
     codebook, panel = load_job_panel(job)
     findings = run_checks(panel)
     write_table(job.path(job.output["descriptives"]), describe(panel))
     write_table(job.path(job.output["attrition"]), attrition(panel))
     write_table(job.path(job.output["findings"]), findings)
-    if has_errors(findings):
-        errors = findings[findings["severity"] == "error"]
-        first = errors.iloc[0]
-        where = f"{first['variable']}" + (f", wave {first['wave']}" if pd.notna(first["wave"]) else "")
-        raise DataError(
-            f"{len(errors)} check finding(s) with severity error, listed in {job.output['findings']} "
-            f"(first: {first['check']} in {where}: {first['message']})",
-            hint="fix the data or the codebook, then run `wavetrail check` again")
+    message = failed_checks_message(findings, job.output["findings"])
+    if message:
+        # Not raised here: a failed job loses its outputs, and the user needs this table.
+        # The first step that reads the findings (score_scales, ...) stops the build.
+        log.warning(message)
