@@ -7,6 +7,8 @@ rule render_report:
     output:
         notebook="results/reports/report.ipynb",
         html="results/reports/report.html",
+        # the report's own figures (PNG, SVG and data CSV each): recorded in the ledger, carried by archives
+        figures=directory("results/reports/figures"),
     params:
         settings=config["report"],
     log:

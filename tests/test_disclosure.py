@@ -138,3 +138,24 @@ def test_person_ids_named_in_text_are_found(tmp_path, real):
     assert _check(tmp_path, real, {"results/checks/findings.csv": findings}, data_included=True).ok
     other = findings.assign(rows=["pid 1, 2"])
     assert _check(tmp_path, real, {"results/checks/findings.csv": other}, data_included=False).ok
+
+
+def test_check_findings_table_is_diagnostics_not_cells(tmp_path, real):
+    cb, panel = real
+    findings = pd.DataFrame({"variable": ["it1", "pid"], "wave": [2, 3], "check": ["out_of_range", "late_entry"],
+                             "severity": ["warning", "warning"], "count": [1, 2],
+                             "rows": ["panel.csv:17", "panel.csv:40; panel.csv:41"],
+                             "message": ["1 value(s) outside 1..5", "2 id(s) first appear at wave 3"]})
+    for included in (True, False):
+        report = _check(tmp_path, real, {"results/checks/findings.csv": findings}, data_included=included)
+        assert report.ok, report.blocking.to_string()
+        notes = report.findings[report.findings["check"] == "small cell"]
+        assert list(notes["severity"]) == [NOTE]
+    # the same counts in an ordinary table are small cells
+    table = findings[["variable", "wave", "count"]]
+    assert not _check(tmp_path, real, {"results/x/counts.csv": table}).ok
+    # a diagnostics table still may not quote an identifier value
+    email = panel.long["email"].dropna().iloc[3]
+    leaked = findings.assign(message=["1 value(s) outside 1..5", f"late entry of {email}"])
+    report = _check(tmp_path, real, {"results/checks/findings.csv": leaked})
+    assert list(report.blocking["check"]) == ["identifier value"]

@@ -328,7 +328,13 @@ def test_report_shows_the_numbers_of_the_result_tables(built):
     assert seeds == [["check_data", "\u2014", str(job_seed(20261202, "check_data", {}))],
                      ["fit_growth", "\u2014", str(job_seed(20261202, "fit_growth", {}))],
                      ["grow_forest_shard", "shard=1", str(job_seed(20261202, "grow_forest_shard", {"shard": "1"}))]]
-    assert f"{COMMIT}</code> (clean)" in page and "uncommitted" not in page
+    # the code is named by a fingerprint of its bytes, not by the commit (a rebuild copy has another)
+    from wavetrail.report.inputs import code_fingerprint
+
+    files, digest = code_fingerprint(root)
+    assert "workflow/notebooks/report.ipynb" in files and "config/config.yaml" in files
+    assert digest in page and COMMIT not in page
+    assert "one committed revision without uncommitted changes" in page and "not all built" not in page
     env = dict(map(tuple, _cells(page, "environment")))
     assert env["Python"] == "CPython 3.11.7" and env["numpy"] == "2.4.0" and env["scipy"] == "1.17.0"
 

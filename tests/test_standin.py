@@ -149,3 +149,72 @@ def test_normal_scores_and_correlation_repair():
     y[rng.random(4000) < 0.3, 1] = np.nan
     r = pairwise_corr(y)
     assert abs(r[0, 1] - np.corrcoef(y[~np.isnan(y[:, 1])].T)[0, 1]) < 1e-12
+
+
+# ---------------------------------------------------------------- wide raw data
+WIDE_CODEBOOK = CODEBOOK.replace("  wave: wave\n", '  wide: "{name}_w{wave}"\n').replace(
+    "  - {name: wave, label: Wave, type: integer}\n", "")
+
+
+def _to_wide(raw: pd.DataFrame, cb) -> pd.DataFrame:
+    """The invented long rows as a wide file: one row per person, ``{name}_w{wave}`` columns."""
+    out = pd.DataFrame({"pid": pd.unique(raw["pid"])}).set_index("pid")
+    for w in cb.study.waves:
+        at = raw[raw["wave"] == w].set_index("pid")
+        for v in cb.data_variables():
+            if v.name != "pid" and v.measured_at(w):
+                out[cb.study.wide_column(v.name, w)] = at[v.name]
+    return out.reset_index()
+
+
+@pytest.fixture(scope="module")
+def made_wide(tmp_path_factory):
+    from wavetrail._io import write_table
+
+    cb = parse_codebook(WIDE_CODEBOOK)
+    assert cb.layout == "wide"
+    raw = _to_wide(make_panel(N, seed=5), cb)
+    real = load_panel(raw, cb)
+    stand = synthesize(real, seed=99)
+    # written as packing writes it, and read back through the normal loader in the wide layout
+    path = tmp_path_factory.mktemp("wide") / "panel-standin.csv"
+    write_table(path, stand.frame)
+    again = load_panel(path, cb)
+    return cb, raw, real, stand, again
+
+
+def test_wide_stand_in_keeps_the_layout_and_never_a_real_row_or_id(made_wide):
+    cb, raw, real, stand, again = made_wide
+    assert list(stand.frame.columns)[0] == "pid" and "wave" not in stand.frame.columns
+    assert set(stand.frame.columns) == set(raw.columns)
+    assert stand.frame["pid"].is_unique and len(stand.frame) == real.long["pid"].nunique()
+    assert set(real.long["pid"]) & set(again.long["pid"]) == set()
+    assert stand.frame["email_w1"].dropna().str.contains(LABEL).all()
+    names = ["wave", *ITEMS, "screen", "start", "sex"]
+    assert _keys(real.long, names) & _keys(again.long, names) == set()
+    # nor does a whole wide row repeat a real person's row
+    cols = [c for c in raw.columns if c != "pid" and not c.startswith("email")]
+    real_rows = set(raw[cols].astype(str).itertuples(index=False, name=None))
+    assert not real_rows & set(stand.frame[cols].astype(str).itertuples(index=False, name=None))
+
+
+def test_wide_stand_in_ranges_rates_waves_and_correlations(made_wide):
+    cb, raw, real, stand, again = made_wide
+    for w in (1, 2, 3):
+        r = real.long[real.long["wave"] == w]
+        s = again.long[again.long["wave"] == w]
+        # participation share per wave within 0.05
+        assert abs(len(r) / real.long["pid"].nunique() - len(s) / again.long["pid"].nunique()) <= 0.05
+        for item in ITEMS:
+            values = s[item].dropna()
+            assert values.between(1, 5).all() and (values == values.round()).all()
+            # same tolerances as for long data: missing share 0.02, item mean 0.15
+            assert abs(r[item].isna().mean() - s[item].isna().mean()) <= 0.02, (w, item)
+            assert abs(r[item].mean() - s[item].mean()) <= 0.15, (w, item)
+    assert again.long.loc[again.long["wave"] != 1, ["screen", "start"]].isna().all().all()
+    a = _wide(real.long).corr(method="spearman").to_numpy()
+    b = _wide(again.long).corr(method="spearman").to_numpy()
+    off = ~np.eye(len(a), dtype=bool)
+    diff = np.abs(a - b)[off]
+    # tolerance as for long data: mean absolute difference <= 0.05, largest <= 0.2
+    assert diff.mean() <= 0.05 and diff.max() <= 0.2

@@ -24,7 +24,10 @@ Four checks, each finding naming the file, the column and the row:
     threshold such as 5 or 10 is common practice in statistical disclosure
     control) in a count column — ``n``, ``count``, ``frequency`` or a column
     starting with ``n_`` — of an output table (blocks). Zero is not a small
-    cell.
+    cell. A diagnostics table (the data checks' findings: columns ``check``,
+    ``severity``, ``count`` and ``message``) counts problem records, not people
+    in a cell of a cross-tabulation, so its counts are not cells (``note``);
+    it is still searched for identifier values, identifier columns and ids.
 
 References
 ----------
@@ -47,6 +50,8 @@ TEXT_SUFFIXES = {".csv", ".tsv", ".json", ".ipynb", ".html", ".htm", ".md", ".tx
 #: per-person count columns that are not counts of people
 NOT_COUNTS = {"n_items", "n_iter", "n_leaves", "n_params", "n_parameters", "n_waves"}
 _MIN_SHARED = 3
+#: columns that make a table a diagnostics table (the data checks' findings)
+DIAGNOSTIC_COLUMNS = frozenset({"check", "severity", "count", "message"})
 
 
 @dataclass
@@ -77,6 +82,11 @@ def is_count_column(name: str) -> bool:
     if low in NOT_COUNTS:
         return False
     return low in ("n", "count", "frequency", "freq") or low.startswith("n_") or low.endswith("_count")
+
+
+def is_diagnostics_table(table: pd.DataFrame) -> bool:
+    """True for a table of check findings (problem counts), whose counts are not cells of people."""
+    return DIAGNOSTIC_COLUMNS <= {str(c).lower() for c in table.columns}
 
 
 def _read_table(path: Path) -> pd.DataFrame | None:
@@ -240,6 +250,12 @@ def check_outputs(files: dict, codebook, long: pd.DataFrame, min_cell: int = 5,
                             f"{', '.join(key)}; " + ("the raw data are in the archive, so this adds nothing"
                                                      if data_included else "aggregate or drop these rows")))
                         break
+        if rel not in person_level and is_diagnostics_table(table):
+            findings.append(_finding(
+                "small cell", NOTE, rel, "count", "",
+                f"{rel}: a diagnostics table (check findings); its counts are numbers of problem "
+                "records, not cells of a table of people, and are not held to report.min_cell"))
+            continue
         for col in table.columns:
             if rel in person_level or not is_count_column(col):
                 continue

@@ -432,9 +432,6 @@ def _write_standin(root: Path, staging: Path, config: dict, panel, raw_paths: li
     from wavetrail.registry import write_registry
     from wavetrail.seeds import derive_seed
 
-    if panel.codebook.layout != "long":
-        raise ArchiveError("--data stand-in needs long data (a wave column named in the codebook's study block)",
-                           hint="pack with --data exclude, or reshape the raw data to long form")
     seed = derive_seed(int(config.get("seed", 0)), "stand-in")
     made = standin_mod.synthesize(panel, seed)
     rel = _standin_name(raw_paths)

@@ -32,6 +32,12 @@ Method
    level for an unordered category), repeated until no row equals a real row.
    Redrawing whole people instead would favour untypical answer patterns and
    weaken the correlations; a one-step move changes them least.
+6. For wide raw data (the codebook's ``study.wide`` naming pattern, one row
+   per person) the rows are written back in that layout: one row per stand-in
+   person, one column per (variable, wave) the codebook measures, named by the
+   pattern (``{name}_w{wave}`` -> ``sleep1_w2``); a wave the person did not
+   take part in is left empty, as the loader reads a wave with no answer as a
+   missed wave.
 
 References
 ----------
@@ -71,8 +77,10 @@ class StandIn:
     Attributes
     ----------
     frame : DataFrame
-        Raw-coded long rows (id, wave, every codebook variable; missing cells
-        hold the codebook's missing codes or are empty), ready to be written.
+        Raw-coded rows in the layout of the real data, ready to be written:
+        long (id, wave, every codebook variable) or, for a wide codebook, one
+        row per person with the pattern's column names; missing cells hold
+        the codebook's missing codes or are empty.
     long : DataFrame
         The same rows in the cleaned form of ``Panel.long`` (codes as NaN).
     target_corr, achieved_corr : ndarray
@@ -463,6 +471,8 @@ def synthesize(panel, seed: int, missing_reasons: pd.DataFrame | None = None) ->
 
     coded = _coded_share(long, reasons, vars_out, wave_col)
     frame = _raw_coded(draft, codebook, vars_out, id_col, wave_col, reasons, coded, rng)
+    if codebook.layout == "wide":
+        frame = wide_frame(frame, codebook, id_col, wave_col)
     decoded = _encoded_long(draft, codebook, vars_out, id_col, wave_col)
     achieved_cols = _panel_columns(decoded, codebook, id_col, wave_col)[2]
     achieved = _match_corr(achieved_cols, cols)
@@ -596,3 +606,28 @@ def _raw_coded(draft, codebook, vars_out, id_col, wave_col, reasons, coded, rng)
                 continue
         out[v.name] = values.to_numpy()
     return out
+
+
+def wide_frame(frame: pd.DataFrame, codebook, id_col: str, wave_col: str) -> pd.DataFrame:
+    """Raw-coded long rows -> the wide layout of ``codebook.study.wide``.
+
+    One row per person (in order of first appearance), the id column first,
+    then for each wave the variables measured at it, in codebook order, named
+    ``study.wide_column(name, wave)``. A person's cells at a wave they did not
+    take part in are empty. Column dtypes (e.g. nullable integers) are kept.
+    """
+    study = codebook.study
+    ids = pd.unique(frame[id_col])
+    out = {id_col: pd.Series(ids, dtype=frame[id_col].dtype)}
+    position = {pid: i for i, pid in enumerate(ids)}
+    names = [v.name for v in codebook.data_variables() if v.name in frame.columns and v.name not in (id_col, wave_col)]
+    for w in study.waves:
+        at = frame[frame[wave_col] == w]
+        rows = at[id_col].map(position).to_numpy(dtype=int)
+        for name in names:
+            if not codebook.variables[name].measured_at(w):
+                continue
+            col = pd.Series(pd.array([None] * len(ids), dtype=frame[name].dtype))
+            col.iloc[rows] = at[name].to_numpy()
+            out[study.wide_column(name, w)] = col
+    return pd.DataFrame(out)

@@ -732,20 +732,28 @@ class Report:
         return "".join(parts)
 
     def _revision(self, records: list[dict]) -> str:
-        commits: dict[str, set[str]] = {}
-        for r in records:
-            g = r.get("git") or {}
-            if g.get("commit"):
-                commits.setdefault(str(g["commit"]), set()).add("uncommitted changes" if g.get("dirty") else "clean")
+        """The code the outputs were built from, as a function of its bytes.
+
+        The git commit itself is left to the ledger and the archive's ``bag-info.txt``:
+        a rebuild from an archive runs in a fresh repository whose commit differs,
+        and the report's bytes must depend on the inputs only.
+        """
+        files, digest = _in.code_fingerprint(self.root)
+        text = _p(f"Code fingerprint: SHA-256 <code class=\"wt-hash\">{esc(digest)}</code> over the "
+                  f"{fmt_count(len(files))} files of <code>config/</code> and <code>workflow/</code> "
+                  "(each file's path and SHA-256, one per line, sorted by path). A rebuild from the same "
+                  "code gives the same fingerprint. The git commit each job ran at is in its ledger record "
+                  "(<code>wavetrail ledger</code>) and an archive's <code>bag-info.txt</code>.")
+        states = {("uncommitted changes" if (r.get("git") or {}).get("dirty") else "clean")
+                  for r in records if (r.get("git") or {}).get("commit")}
+        commits = {str((r.get("git") or {}).get("commit")) for r in records if (r.get("git") or {}).get("commit")}
         if not commits:
-            return _absent("No code revision is recorded (no ledger records, or the project is not a git repository).")
-        items = "".join(f'<li><code class="wt-hash">{esc(c)}</code> ({esc(", ".join(sorted(s)))})</li>'
-                        for c, s in sorted(commits.items()))
-        warn = ""
-        if len(commits) > 1 or any("uncommitted changes" in s for s in commits.values()):
-            warn = _p("The outputs were not all built from one committed revision; commit and rebuild before "
-                      "sharing the results.", "wt-absent")
-        return _p("Git commits the recorded jobs ran at:") + f"<ul>{items}</ul>" + warn
+            return text + _absent("No code revision is recorded (no ledger records, or the project is not a "
+                                  "git repository).")
+        if len(commits) > 1 or "uncommitted changes" in states:
+            return text + _p("The outputs were not all built from one committed revision; commit and rebuild "
+                             "before sharing the results.", "wt-absent")
+        return text + _p("All recorded jobs ran at one committed revision without uncommitted changes.")
 
     def _plan(self) -> str:
         changes = _in.read_plan_changes(self.root)

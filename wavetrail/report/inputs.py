@@ -195,3 +195,36 @@ def read_plan_changes(root: Path) -> pd.DataFrame:
     from wavetrail import plan
 
     return plan.plan_changes(root, missing_ok=True)
+
+
+#: folders whose files decide what the workflow computes (the report's code fingerprint)
+CODE_FOLDERS = ("config", "workflow")
+_NOT_CODE_PARTS = {"__pycache__", ".ipynb_checkpoints", ".snakemake"}
+
+
+def code_fingerprint(root: Path) -> tuple[list[str], str]:
+    """The code files of a project and one SHA-256 over them.
+
+    Files under ``config/`` and ``workflow/`` (not hidden, no byte-code caches,
+    no ``*.tmp``), sorted by project-relative path; the digest is the SHA-256
+    of the lines ``<sha256>  <path>`` (sha256sum format), so it depends on the
+    files' bytes and names only, never on times or on the git history.
+    """
+    from wavetrail._io import sha256_bytes, sha256_file
+
+    files = []
+    for folder in CODE_FOLDERS:
+        base = Path(root) / folder
+        if not base.is_dir():
+            continue
+        for path in base.rglob("*"):
+            rel = path.relative_to(root)
+            if not path.is_file() or path.is_symlink() or any(
+                    part.startswith(".") or part in _NOT_CODE_PARTS for part in rel.parts):
+                continue
+            if path.suffix in (".pyc", ".tmp"):
+                continue
+            files.append(rel.as_posix())
+    files.sort()
+    lines = "".join(f"{sha256_file(Path(root) / rel)}  {rel}\n" for rel in files)
+    return files, sha256_bytes(lines.encode("utf-8"))
