@@ -97,6 +97,29 @@ def test_new_with_data_copies_registers_and_drafts(tmp_path, bare_home):
     assert "data/SHA256SUMS" in tracked and "data/raw/waves.csv" not in tracked
 
 
+def test_new_cli_takes_several_per_wave_files(tmp_path, bare_home):
+    from wavetrail.cli import main
+    from wavetrail.codebook import load_codebook
+    from wavetrail.panel import load_panel
+
+    w1, w2 = tmp_path / "wave1.csv", tmp_path / "wave2.csv"
+    w1.write_text("pid,slp1,slp2\n1,3,4\n2,2,5\n3,1,1\n", encoding="utf-8")
+    w2.write_text("pid,slp1,slp2\n1,4,4\n3,2,2\n", encoding="utf-8")
+    assert main(["new", str(tmp_path / "p"), "--data", str(w1), "--data", str(w2)]) == 0
+    root = tmp_path / "p"
+    config = yaml.safe_load((root / "config" / "config.yaml").read_text())
+    assert config["data"] == ["data/raw/wave1.csv", "data/raw/wave2.csv"]
+    sums = (root / "data" / "SHA256SUMS").read_text().splitlines()
+    assert sums == [f"{hashlib.sha256(f.read_bytes()).hexdigest()}  raw/{f.name}" for f in (w1, w2)]
+    codebook = load_codebook(root / "config" / "codebook.yaml")
+    assert list(codebook.study.waves) == [1, 2]  # one file per wave, in the order given
+    panel = load_panel([root / "data" / "raw" / f.name for f in (w1, w2)], codebook)
+    # 3 people at wave 1, 2 at wave 2; person 2 is absent at wave 2, not invented
+    assert len(panel.long) == 5
+    assert sorted(panel.long.loc[panel.long["wave"] == 2, "pid"].tolist()) == [1, 3]
+    assert panel.long.loc[(panel.long["pid"] == 3) & (panel.long["wave"] == 2), "slp1"].item() == 2
+
+
 def test_new_with_a_missing_data_file_writes_nothing(tmp_path, bare_home):
     with pytest.raises(DataError, match="does not exist"):
         new_project(tmp_path / "p", data=[tmp_path / "nope.csv"])
