@@ -71,6 +71,8 @@ def fit_indices(loglik, k, n, p, loglik_sat, loglik_base, sample_cov=None, impli
     d_m = max(chisq - df, 0.0)
     d_b = max(chisq_b - df_b, d_m)
     cfi = 1.0 - d_m / d_b if d_b > 0 else 1.0
+    if not (np.isfinite(chisq) and np.isfinite(chisq_b)):
+        cfi = np.nan  # no chi-square, no comparative index
     tli = ((chisq_b / df_b - chisq / df) / (chisq_b / df_b - 1.0)) if df > 0 and df_b > 0 else np.nan
     r, r_lo, r_hi = rmsea_ci(chisq, df, n)
     out = {
