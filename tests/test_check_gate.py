@@ -16,16 +16,6 @@ from wavetrail.project import check_project, make_demo
 FINDINGS = "results/checks/findings.csv"
 
 
-@pytest.fixture
-def bare_git(tmp_path, monkeypatch):
-    home = tmp_path / "home"
-    home.mkdir()
-    monkeypatch.setenv("HOME", str(home))
-    monkeypatch.setenv("GIT_CONFIG_GLOBAL", str(home / "no-gitconfig"))
-    monkeypatch.setenv("GIT_CONFIG_NOSYSTEM", "1")
-    return home
-
-
 def run(args, cwd):
     """`wavetrail ARGS` in a fresh interpreter, as a user's shell runs it."""
     return subprocess.run([sys.executable, "-m", "wavetrail.cli", *args], capture_output=True, text=True, cwd=cwd)

@@ -13,16 +13,6 @@ from wavetrail.cli import main
 from wavetrail.project import make_demo, new_project
 
 
-@pytest.fixture
-def bare_git(tmp_path, monkeypatch):
-    home = tmp_path / "home"
-    home.mkdir()
-    monkeypatch.setenv("HOME", str(home))
-    monkeypatch.setenv("GIT_CONFIG_GLOBAL", str(home / "no-gitconfig"))
-    monkeypatch.setenv("GIT_CONFIG_NOSYSTEM", "1")
-    return home
-
-
 def run(args, cwd=None):
     """Run `wavetrail ARGS` in a fresh interpreter (what a user's shell does)."""
     return subprocess.run([sys.executable, "-m", "wavetrail.cli", *args], capture_output=True, text=True, cwd=cwd)
