@@ -31,8 +31,18 @@ LOG2PI = np.log(2.0 * np.pi)
 MOMENT_PATH_MAX_P = 12
 
 
+#: largest matrix size factorised by the element-wise loops of :func:`_spd_small`
+SMALL_P = 12
+
+
 def _chol_logdet_inv(S):
-    """Batched (logdet, inverse, ok) of symmetric matrices (B, q, q); ok False = not PD."""
+    """Batched (logdet, inverse, ok) of symmetric matrices (B, q, q); ok False = not PD.
+
+    Matrices that are not positive definite are replaced by the identity (so
+    every output stays finite) and flagged in ``ok``.
+    """
+    if S.shape[-1] <= SMALL_P:
+        return _spd_small(S)
     B, q = S.shape[0], S.shape[-1]
     try:
         L = np.linalg.cholesky(S)
@@ -54,6 +64,72 @@ def _chol_logdet_inv(S):
     return logdet, W, ok
 
 
+def _spd_small(S):
+    """:func:`_chol_logdet_inv` for many small matrices: Cholesky, triangular
+    inverse and ``L^-T L^-1`` written as loops over the entries, each step one
+    vector operation across the whole batch (LAPACK pays a call per matrix,
+    which dominates for thousands of 5 x 5 matrices)."""
+    N, q = S.shape[0], S.shape[-1]
+    A = np.ascontiguousarray(np.moveaxis(S, 0, -1))  # (q, q, N): entry-major, batch contiguous per entry
+    tiny = 1e-12 * np.maximum(1.0, np.maximum.reduce([np.abs(A[j, j]) for j in range(q)]))
+    L = np.zeros((q, q, N))
+    ok = np.ones(N, dtype=bool)
+    for j in range(q):
+        acc = A[j, j].copy()
+        for k in range(j):
+            acc -= L[j, k] * L[j, k]
+        good = acc > tiny
+        ok &= good
+        L[j, j] = np.sqrt(np.where(good, acc, 1.0))
+        for i in range(j + 1, q):
+            a = A[i, j].copy()
+            for k in range(j):
+                a -= L[i, k] * L[j, k]
+            L[i, j] = a / L[j, j]
+    if not ok.all():  # start the failed ones again from the identity
+        bad = ~ok
+        L[:, :, bad] = np.eye(q)[:, :, None]
+    dinv = 1.0 / np.array([L[i, i] for i in range(q)])
+    logdet = -2.0 * np.log(dinv).sum(axis=0)
+    X = np.zeros((q, q, N))  # X = L^-1 (lower)
+    for i in range(q):
+        X[i, i] = dinv[i]
+        for k in range(i):
+            acc = L[i, k] * X[k, k]
+            for j in range(k + 1, i):
+                acc += L[i, j] * X[j, k]
+            X[i, k] = -acc * dinv[i]
+    W = np.empty((q, q, N))
+    for i in range(q):
+        for j in range(i + 1):
+            acc = X[i, i] * X[i, j]
+            for k in range(i + 1, q):
+                acc += X[k, i] * X[k, j]
+            W[i, j] = acc
+            W[j, i] = acc
+    return logdet, np.ascontiguousarray(np.moveaxis(W, -1, 0)), ok
+
+
+def masked_moments(sigma, masks):
+    """Each pattern's covariance with its unobserved block replaced by the identity.
+
+    ``sigma`` (B, p, p), ``masks`` (P, p) -> (B, P, p, p) and the 0/1 outer
+    products of the masks (P, p, p). The inverse of the result, times that
+    outer product, is ``Sigma_oo^-1`` embedded in a p x p matrix of zeros, and
+    its log-determinant is that of ``Sigma_oo``: so every pattern becomes the
+    same p x p operation and all patterns of all models go through one batched
+    factorisation instead of a loop over patterns.
+    """
+    M = masks.astype(float)
+    MM = M[:, :, None] * M[:, None, :]
+    D = np.eye(masks.shape[1])[None] * (1.0 - M)[:, :, None]
+    return sigma[:, None] * MM[None] + D[None], MM
+
+
+#: elements per stacked (models x patterns x ...) array before patterns are taken in blocks
+BLOCK_ELEMENTS = 3_000_000
+
+
 def evaluate(cm, theta, stats, grad=True, info=True, base=None):
     """Log-likelihood (B,), gradient (B, k) and expected information (B, k, k).
 
@@ -61,10 +137,12 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
     get a log-likelihood of ``-inf`` (gradient and information are then
     meaningless for them).
 
-    The covariance derivatives are used in low-rank form (each free entry adds
-    ``w (u v^T + v u^T)``): the gradient is ``2 w u^T G v`` per entry, and the
-    information is accumulated either over the saturated moments (small ``p``:
-    ``B p^4`` per pattern) or over entry pairs (``B E^2 q`` per pattern).
+    All patterns are handled at once through :func:`masked_moments` (in blocks
+    of patterns when models x patterns is large). The covariance derivatives
+    are used in low-rank form (each free entry adds ``w (u v^T + v u^T)``): the
+    gradient is ``2 w u^T G v`` per entry, and the information is accumulated
+    either over the saturated moments (small ``p``: ``B p^4`` per pattern) or
+    over entry pairs (``B E^2 p`` per pattern).
     """
     theta = np.atleast_2d(np.asarray(theta, dtype=float))
     B = theta.shape[0]
@@ -76,63 +154,75 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
         Cinc[np.arange(E), prm] = 1.0
     else:
         mu, sigma = cm.implied(theta, base)
+        E = 0
     p = sigma.shape[-1]
+    nB = stats.n
+    if nB.shape[0] not in (1, B):
+        raise ValueError(f"statistics hold {nB.shape[0]} samples but {B} parameter vectors were given")
+    via_moments = info and p <= MOMENT_PATH_MAX_P
     ll = np.zeros(B)
     ok_all = np.ones(B, dtype=bool)
-    G = np.zeros(sigma.shape) if grad else None
-    g = np.zeros(mu.shape) if grad else None
-    via_moments = info and p <= MOMENT_PATH_MAX_P
+    if grad:
+        G = np.zeros(sigma.shape)
+        g = np.zeros(mu.shape)
     if info and via_moments:
-        H = np.zeros((B, p * p, p * p))
+        H = np.zeros((B, p, p, p, p))
         Hm = np.zeros((B, p, p))
     elif info:
         Ie = np.zeros((B, E, E))
         Im = np.zeros((B, k, k))
-    nB = stats.n
-    if nB.shape[0] not in (1, B):
-        raise ValueError(f"statistics hold {nB.shape[0]} samples but {B} parameter vectors were given")
-    for j, mask in enumerate(stats.masks):
-        n = nB[:, j]
-        if not np.any(n > 0):
+    live = np.nonzero((nB > 0).any(axis=0))[0]
+    width = p * p if (via_moments or not info) else max(p * p, E * p, E * E)
+    per = max(1, int(BLOCK_ELEMENTS // max(1, B * width)))
+    for lo in range(0, len(live), per):
+        js = live[lo:lo + per]
+        if len(js) and js[-1] - js[0] == len(js) - 1:
+            js = slice(int(js[0]), int(js[-1]) + 1)  # a view, not a copy, of the statistics
+        Sg, MM = masked_moments(sigma, stats.masks[js])
+        Pb = MM.shape[0]
+        logdet, W, ok = _chol_logdet_inv(Sg.reshape(B * Pb, p, p))
+        logdet, ok = logdet.reshape(B, Pb), ok.reshape(B, Pb)
+        W = W.reshape(B, Pb, p, p) * MM[None]
+        n = nB[:, js]
+        q = stats.masks[js].sum(axis=1)
+        ok_all &= (ok | (n == 0)).all(axis=1)
+        s = stats.sums[:, js]
+        C = stats.cross[:, js]
+        # with a = W s and b = W mu, tr(W S) = tr(W C) - 2 s^T b + n mu^T b and
+        # W S W = W C W - a b^T - b a^T + n b b^T: S itself is never formed
+        a = (W @ s[..., None])[..., 0]
+        b = (W @ mu[:, None, :, None])[..., 0]
+        trWS = (W * C).reshape(B, Pb, p * p).sum(axis=-1) - 2.0 * (s * b).sum(axis=-1) + n * (b * mu[:, None]).sum(axis=-1)
+        ll += -0.5 * (n * (q * LOG2PI) + n * logdet + trWS).sum(axis=1)
+        if not grad and not info:
             continue
-        o = np.nonzero(mask)[0]
-        q = len(o)
-        Sg = sigma[:, o][:, :, o]
-        m = mu[:, o]
-        s = stats.sums[:, j][:, o]
-        C = stats.cross[:, j][:, o][:, :, o]
-        logdet, W, ok = _chol_logdet_inv(Sg)
-        ok_all &= ok | (n == 0)
-        sm = s[:, :, None] * m[:, None, :]
-        S = C - sm - np.swapaxes(sm, -1, -2) + n[:, None, None] * m[:, :, None] * m[:, None, :]
-        WS = W @ S
-        ll += -0.5 * (n * q * LOG2PI + n * logdet + np.trace(WS, axis1=-2, axis2=-1))
+        nW = n[..., None, None] * W
+        nWsum = nW.sum(axis=1)
         if grad:
-            gm = np.einsum("bij,bj->bi", W, s - n[:, None] * m)
-            Gs = 0.5 * (WS @ W - n[:, None, None] * W)
-            g[:, o] += gm
-            G[:, o[:, None], o[None, :]] += Gs
+            g += a.sum(axis=1) - (nWsum @ mu[..., None])[..., 0]
+            ab = np.swapaxes(a, 1, 2) @ b
+            G += 0.5 * ((W @ C @ W).sum(axis=1) - ab - np.swapaxes(ab, 1, 2)
+                        + np.swapaxes(n[..., None] * b, 1, 2) @ b - nWsum)
         if info and via_moments:
-            Wf = np.zeros((B, p, p))
-            Wf[:, o[:, None], o[None, :]] = W
-            Hm += n[:, None, None] * Wf
-            Wn = (0.5 * n)[:, None, None] * Wf
-            H += (Wn[:, :, None, :, None] * Wf[:, None, :, None, :]).reshape(B, p * p, p * p)
+            Hm += nWsum
+            Wr = W.reshape(B, Pb, p * p)
+            H += (0.5 * np.swapaxes(nW.reshape(B, Pb, p * p), 1, 2) @ Wr).reshape(B, p, p, p, p)
         elif info:
-            Uo, Vo = U[:, :, o], V[:, :, o]
-            WU = Uo @ W
-            WV = Vo @ W
-            Xuv = WU @ np.swapaxes(Vo, -1, -2)
-            Ie += n[:, None, None] * (Xuv * np.swapaxes(Xuv, -1, -2)
-                                      + (WU @ np.swapaxes(Uo, -1, -2)) * (WV @ np.swapaxes(Vo, -1, -2)))
-            Dm = dmu[:, :, o]
-            Im += n[:, None, None] * (Dm @ W @ np.swapaxes(Dm, -1, -2))
+            WU = U[:, None] @ W
+            WV = V[:, None] @ W
+            Ut, Vt = np.swapaxes(U, -1, -2)[:, None], np.swapaxes(V, -1, -2)[:, None]
+            Xuv = WU @ Vt
+            nn = n[..., None, None]
+            Ie += (nn * (Xuv * np.swapaxes(Xuv, -1, -2) + (WU @ Ut) * (WV @ Vt))).sum(axis=1)
+            Im += np.einsum("bj,bki,bjil,bml->bkm", n, dmu, W, dmu, optimize=True)
     ll = np.where(ok_all, ll, -np.inf)
     out = [ll]
     if grad:
         ge = 2.0 * w * np.einsum("bei,bij,bej->be", U, G, V)
         out.append(ge @ Cinc + np.einsum("bi,bki->bk", g, dmu))
     if info and via_moments:
+        # H[a, c, d, e] summed n W_ac W_de / 2; the information needs the (a d), (c e) pairing
+        H = np.transpose(H, (0, 1, 3, 2, 4)).reshape(B, p * p, p * p)
         R = np.einsum("ek,bei,bej->bkij", Cinc * w[:, None], U, V, optimize=True)
         dsig = R + np.swapaxes(R, -1, -2)
         Df = dsig.reshape(B, k, p * p)

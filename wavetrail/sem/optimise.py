@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from wavetrail.sem.likelihood import evaluate
+from wavetrail.sem.likelihood import _chol_logdet_inv, evaluate
 from wavetrail.sem.spec import ALPHA, BETA, LAMBDA, NU, PSI, THETA
 
 
@@ -47,12 +47,12 @@ def _solve(I, g):
     """Batched solve of I d = g with a ridge / pseudo-inverse fallback for singular models."""
     k = I.shape[-1]
     scale = np.maximum(np.abs(np.diagonal(I, axis1=-2, axis2=-1)).mean(axis=-1), 1e-300)
-    try:
-        L = np.linalg.cholesky(I + (1e-12 * scale)[:, None, None] * np.eye(k))
-        y = np.linalg.solve(L, g[..., None])
-        return np.linalg.solve(np.swapaxes(L, -1, -2), y)[..., 0]
-    except np.linalg.LinAlgError:
-        return np.einsum("bij,bj->bi", np.linalg.pinv(I, hermitian=True), g)
+    _, Iinv, ok = _chol_logdet_inv(I + (1e-12 * scale)[:, None, None] * np.eye(k))
+    d = np.einsum("bij,bj->bi", Iinv, g)
+    if not ok.all():
+        bad = ~ok
+        d[bad] = np.einsum("bij,bj->bi", np.linalg.pinv(I[bad], hermitian=True), g[bad])
+    return d
 
 
 def fit_batch(spec, stats, start=None, max_iter=200, tol=1e-9, base=None, max_halvings=30):
@@ -108,16 +108,25 @@ def fit_batch(spec, stats, start=None, max_iter=200, tol=1e-9, base=None, max_ha
         th0, ll0 = theta[ia], ll[ia]
         todo = ~done
         new_th, new_ll = th0.copy(), ll0.copy()
-        for _ in range(max_halvings):
+        fresh = np.zeros(len(ia), dtype=bool)  # accepted at the full step: gradient known
+        new_g, new_I = g[ia], I[ia]
+        for h in range(max_halvings):
             if not todo.any():
                 break
             cand = th0 + step[:, None] * d
-            l_c = evaluate(cm, cand[todo], _sub(sub, todo), grad=False, info=False, base=_take_base(bsub, todo))
+            st_t, b_t = _sub(sub, todo), _take_base(bsub, todo)
+            if h == 0:  # the full step is usually taken: evaluate everything there at once
+                l_c, g_c, I_c = evaluate(cm, cand[todo], st_t, base=b_t)
+            else:
+                l_c = evaluate(cm, cand[todo], st_t, grad=False, info=False, base=b_t)
             acc = np.isfinite(l_c) & (l_c >= ll0[todo] + 1e-4 * step[todo] * np.maximum(dec_a[todo], 0)
                                       - 1e-12 * np.abs(ll0[todo]))
             w = np.nonzero(todo)[0]
             new_th[w[acc]] = cand[todo][acc]
             new_ll[w[acc]] = l_c[acc]
+            if h == 0:
+                fresh[w[acc]] = True
+                new_g[w[acc]], new_I[w[acc]] = g_c[acc], I_c[acc]
             todo[w[acc]] = False
             step[todo] *= 0.5
         stuck = todo  # no step of any length improved: at the optimum to machine precision, or stuck
@@ -125,10 +134,12 @@ def fit_batch(spec, stats, start=None, max_iter=200, tol=1e-9, base=None, max_ha
         moved = ~done & ~stuck
         theta[ia] = new_th
         ll[ia] = new_ll
+        g[ia[fresh]], I[ia[fresh]] = new_g[fresh], new_I[fresh]
         iters[ia[moved]] = it
         active[ia[done | stuck]] = False
-        if moved.any():
-            im = ia[moved]
+        late = moved & ~fresh
+        if late.any():
+            im = ia[late]
             l2, g2, I2 = evaluate(cm, theta[im], stats.take(im), base=_take_base(base, _mask(B, im)))
             ll[im], g[im], I[im] = l2, g2, I2
     return BatchFit(theta=theta, loglik=ll, converged=converged, n_iter=it, iterations=iters, decrement=dec)
