@@ -26,15 +26,7 @@ import numpy as np
 from wavetrail.growth import growth_spec
 from wavetrail.sem import SuffStats, fit_batch, pattern_index, person_terms, split_stats
 
-
-def simulate(n=1000, waves=5, miss=0.2, seed=20261202):
-    rng = np.random.default_rng(seed)
-    t = np.arange(float(waves))
-    L = np.c_[np.ones(waves), t, t ** 2]
-    eta = rng.multivariate_normal([2.0, 0.4, -0.04], [[0.8, 0.05, 0.0], [0.05, 0.1, 0.0], [0.0, 0.0, 0.004]], n)
-    Y = eta @ L.T + rng.normal(0, 0.5, (n, waves))
-    Y[rng.random((n, waves)) < miss] = np.nan
-    return t, Y
+from _panels import simulate
 
 
 def candidate_children(Y, pairs, seed=7):

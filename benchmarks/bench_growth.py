@@ -26,7 +26,7 @@ import pandas as pd
 from wavetrail.sem import ModelSpec, SuffStats, fit_batch
 from wavetrail.sem.fitting import fit
 
-from bench_batch import simulate
+from _panels import simulate
 
 
 def our_spec(t, cols):
@@ -105,5 +105,4 @@ def main(quick=False):
 
 
 if __name__ == "__main__":
-    sys.path.insert(0, __file__.rsplit("/", 1)[0])
     main(quick="--quick" in sys.argv[1:])

@@ -11,3 +11,11 @@ def bare_git(tmp_path, monkeypatch):
     monkeypatch.setenv("GIT_CONFIG_GLOBAL", str(home / "no-gitconfig"))
     monkeypatch.setenv("GIT_CONFIG_NOSYSTEM", "1")
     return home
+
+
+@pytest.fixture
+def no_git_identity(bare_git, monkeypatch):
+    """A new user's machine: `bare_git`, and no git identity in the environment either."""
+    for var in ("GIT_AUTHOR_NAME", "GIT_AUTHOR_EMAIL", "GIT_COMMITTER_NAME", "GIT_COMMITTER_EMAIL", "EMAIL"):
+        monkeypatch.delenv(var, raising=False)
+    return bare_git

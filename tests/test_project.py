@@ -15,20 +15,7 @@ from wavetrail.project import DEFAULT_AUTHOR, find_project, is_project, new_proj
 from wavetrail.resources import rules_dir, template_dir
 
 
-@pytest.fixture
-def bare_home(tmp_path, monkeypatch):
-    """A new user's machine: empty home, no git identity anywhere."""
-    home = tmp_path / "home"
-    home.mkdir()
-    monkeypatch.setenv("HOME", str(home))
-    monkeypatch.setenv("GIT_CONFIG_GLOBAL", str(home / "no-gitconfig"))
-    monkeypatch.setenv("GIT_CONFIG_NOSYSTEM", "1")
-    for var in ("GIT_AUTHOR_NAME", "GIT_AUTHOR_EMAIL", "GIT_COMMITTER_NAME", "GIT_COMMITTER_EMAIL", "EMAIL"):
-        monkeypatch.delenv(var, raising=False)
-    return home
-
-
-def test_new_makes_a_project_with_one_commit_without_git_identity(tmp_path, bare_home):
+def test_new_makes_a_project_with_one_commit_without_git_identity(tmp_path, no_git_identity):
     root = new_project(tmp_path / "my-panel", title="Sleep over adolescence")
     assert root == (tmp_path / "my-panel").resolve()
     assert is_project(root)
@@ -51,10 +38,10 @@ def test_new_makes_a_project_with_one_commit_without_git_identity(tmp_path, bare
         assert path in tracked, path
     assert "Sleep over adolescence" in (root / "README.md").read_text()
     # cookiecutter left nothing in the user's home (no replay file)
-    assert list(bare_home.iterdir()) == []
+    assert list(no_git_identity.iterdir()) == []
 
 
-def test_new_uses_author_for_the_commit(tmp_path, bare_home):
+def test_new_uses_author_for_the_commit(tmp_path, no_git_identity):
     root = new_project(tmp_path / "p", author="Ada Example <ada@example.org>")
     with git.Repo(root) as repo:
         head = repo.head.commit
@@ -62,7 +49,7 @@ def test_new_uses_author_for_the_commit(tmp_path, bare_home):
         assert (head.committer.name, head.committer.email) == ("Ada Example", "ada@example.org")
 
 
-def test_new_refuses_a_non_empty_folder_and_leaves_it_alone(tmp_path, bare_home):
+def test_new_refuses_a_non_empty_folder_and_leaves_it_alone(tmp_path, no_git_identity):
     target = tmp_path / "busy"
     target.mkdir()
     (target / "notes.txt").write_text("keep me")
@@ -72,13 +59,13 @@ def test_new_refuses_a_non_empty_folder_and_leaves_it_alone(tmp_path, bare_home)
     assert (target / "notes.txt").read_text() == "keep me"
 
 
-def test_new_accepts_an_empty_existing_folder(tmp_path, bare_home):
+def test_new_accepts_an_empty_existing_folder(tmp_path, no_git_identity):
     target = tmp_path / "empty"
     target.mkdir()
     assert is_project(new_project(target))
 
 
-def test_new_with_data_copies_registers_and_drafts(tmp_path, bare_home):
+def test_new_with_data_copies_registers_and_drafts(tmp_path, no_git_identity):
     src = tmp_path / "waves.csv"
     src.write_text("pid,wave,slp1\n1,1,3\n1,2,4\n2,1,-99\n2,2,2\n", encoding="utf-8")
     root = new_project(tmp_path / "p", data=[src])
@@ -97,7 +84,7 @@ def test_new_with_data_copies_registers_and_drafts(tmp_path, bare_home):
     assert "data/SHA256SUMS" in tracked and "data/raw/waves.csv" not in tracked
 
 
-def test_new_cli_takes_several_per_wave_files(tmp_path, bare_home):
+def test_new_cli_takes_several_per_wave_files(tmp_path, no_git_identity):
     from wavetrail.cli import main
     from wavetrail.codebook import load_codebook
     from wavetrail.panel import load_panel
@@ -120,13 +107,13 @@ def test_new_cli_takes_several_per_wave_files(tmp_path, bare_home):
     assert panel.long.loc[(panel.long["pid"] == 3) & (panel.long["wave"] == 2), "slp1"].item() == 2
 
 
-def test_new_with_a_missing_data_file_writes_nothing(tmp_path, bare_home):
+def test_new_with_a_missing_data_file_writes_nothing(tmp_path, no_git_identity):
     with pytest.raises(DataError, match="does not exist"):
         new_project(tmp_path / "p", data=[tmp_path / "nope.csv"])
     assert not (tmp_path / "p").exists()
 
 
-def test_gitignore_keeps_closed_raw_data_out_and_says_how_to_track_it(tmp_path, bare_home):
+def test_gitignore_keeps_closed_raw_data_out_and_says_how_to_track_it(tmp_path, no_git_identity):
     root = new_project(tmp_path / "p")
     text = (root / ".gitignore").read_text()
     assert "data/raw/" in text.splitlines()
@@ -134,7 +121,7 @@ def test_gitignore_keeps_closed_raw_data_out_and_says_how_to_track_it(tmp_path, 
     assert ".snakemake/" in text.splitlines()
 
 
-def test_find_project_walks_up_and_refuses_other_folders(tmp_path, bare_home):
+def test_find_project_walks_up_and_refuses_other_folders(tmp_path, no_git_identity):
     root = new_project(tmp_path / "p")
     assert find_project(root / "workflow" / "rules") == root
     assert find_project(root / "config" / "config.yaml") == root
@@ -156,7 +143,7 @@ def test_template_does_not_render_notebooks_and_has_the_documented_keys():
     assert (project / "workflow" / "profiles" / "slurm" / "config.yaml").is_file()
 
 
-def test_rendered_settings_are_valid(tmp_path, bare_home):
+def test_rendered_settings_are_valid(tmp_path, no_git_identity):
     from wavetrail.config import load_config
 
     root = new_project(tmp_path / "p", seed=7)

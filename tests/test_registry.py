@@ -29,18 +29,6 @@ def make_project(root):
     return root
 
 
-@pytest.fixture
-def no_git_identity(tmp_path, monkeypatch):
-    """A git without user.name / user.email, as on a new user's machine."""
-    home = tmp_path / "home"
-    home.mkdir()
-    monkeypatch.setenv("HOME", str(home))
-    monkeypatch.setenv("GIT_CONFIG_GLOBAL", str(home / "gitconfig"))
-    monkeypatch.setenv("GIT_CONFIG_NOSYSTEM", "1")
-    for var in ("GIT_AUTHOR_NAME", "GIT_AUTHOR_EMAIL", "GIT_COMMITTER_NAME", "GIT_COMMITTER_EMAIL", "EMAIL"):
-        monkeypatch.delenv(var, raising=False)
-
-
 def test_register_writes_sha256sum_format(tmp_path, monkeypatch):
     project = make_project(tmp_path / "p")
     monkeypatch.chdir(project)

@@ -19,6 +19,7 @@ import os
 import stat
 import tarfile
 import zipfile
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
 
@@ -238,6 +239,37 @@ def _target(dest: Path, parts: tuple, name: str) -> Path:
     return target
 
 
+def _tar_file(tf: tarfile.TarFile, m: _Member):
+    src = tf.extractfile(m.handle)
+    if src is None:
+        raise ArchiveError(f"member {m.name!r}: not a regular file (refused)")
+    return src
+
+
+def _write_members(members: list[_Member], dest: Path, open_member: Callable, read_errors: tuple) -> list[str]:
+    """Write checked members below ``dest``: folders made, files copied from ``open_member(m)``.
+
+    ``read_errors`` are the exceptions of the archive format that mean a member cannot be
+    read; each is turned into an ArchiveError naming the member. Returns the file names.
+    """
+    written = []
+    for m in members:
+        target = _target(dest, m.parts, m.name)
+        if m.is_dir:
+            _mkdir(target, m.name)
+            continue
+        _mkdir(target.parent, m.name)
+        try:
+            with open_member(m) as src:
+                _copy(src, target, m.size, m.name)
+        except _OverBudget:  # only a tar stream has a budget
+            raise ArchiveError(f"member {m.name!r}: decompressed stream exceeds the limits (refused)") from None
+        except read_errors as err:
+            raise ArchiveError(f"member {m.name!r}: cannot be read ({err})") from None
+        written.append("/".join(m.parts))
+    return written
+
+
 def safe_extract(archive: str | os.PathLike, dest: str | os.PathLike, limits: Limits = DEFAULT_LIMITS) -> list[str]:
     """Extract ``archive`` into the empty or new folder ``dest`` after checking every member.
 
@@ -269,7 +301,6 @@ def safe_extract(archive: str | os.PathLike, dest: str | os.PathLike, limits: Li
     dest.mkdir(parents=True, exist_ok=True)
     if any(dest.iterdir()):
         raise ArchiveError(f"extraction folder {dest} is not empty")
-    written: list[str] = []
     if kind == "zip":
         try:
             zf = zipfile.ZipFile(archive)
@@ -278,18 +309,8 @@ def safe_extract(archive: str | os.PathLike, dest: str | os.PathLike, limits: Li
         with zf:
             members = _zip_members(zf, limits)
             _check_totals(members, archive, limits)
-            for m in members:
-                target = _target(dest, m.parts, m.name)
-                if m.is_dir:
-                    _mkdir(target, m.name)
-                    continue
-                _mkdir(target.parent, m.name)
-                try:
-                    with zf.open(m.handle) as src:
-                        _copy(src, target, m.size, m.name)
-                except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, EOFError) as err:
-                    raise ArchiveError(f"member {m.name!r}: cannot be read ({err})") from None
-                written.append("/".join(m.parts))
+            written = _write_members(members, dest, lambda m: zf.open(m.handle),
+                                     (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, EOFError))
     else:
         packed = archive.stat().st_size
         budget = int(min(limits.max_total_bytes, max(limits.ratio_floor_bytes, limits.max_ratio * packed))) + 1024**2
@@ -305,23 +326,8 @@ def safe_extract(archive: str | os.PathLike, dest: str | os.PathLike, limits: Li
             except (tarfile.TarError, EOFError, OSError) as err:
                 raise ArchiveError(f"{archive.name}: damaged tar stream ({err})") from None
             _check_totals(members, archive, limits)
-            for m in members:
-                target = _target(dest, m.parts, m.name)
-                if m.is_dir:
-                    _mkdir(target, m.name)
-                    continue
-                _mkdir(target.parent, m.name)
-                try:
-                    src = tf.extractfile(m.handle)
-                    if src is None:
-                        raise ArchiveError(f"member {m.name!r}: not a regular file (refused)")
-                    with src:
-                        _copy(src, target, m.size, m.name)
-                except _OverBudget:
-                    raise ArchiveError(f"member {m.name!r}: decompressed stream exceeds the limits (refused)") from None
-                except (tarfile.TarError, OSError, EOFError) as err:
-                    raise ArchiveError(f"member {m.name!r}: cannot be read ({err})") from None
-                written.append("/".join(m.parts))
+            written = _write_members(members, dest, lambda m: _tar_file(tf, m),
+                                     (tarfile.TarError, OSError, EOFError))
     for path in dest.rglob("*"):
         if path.is_symlink():  # cannot happen by construction; checked all the same
             raise ArchiveError(f"member {path.relative_to(dest).as_posix()!r}: link found after extraction")
