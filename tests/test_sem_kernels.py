@@ -13,6 +13,7 @@ import pytest
 
 from wavetrail.growth import growth_spec
 from wavetrail.sem import SuffStats
+from wavetrail.sem import pattern_index as lik_pattern_index
 from wavetrail.sem import likelihood as lik
 from wavetrail.sem import saturated as sat
 from wavetrail.sem.optimise import start_values
@@ -80,3 +81,44 @@ def test_saturated_by_scoring_reaches_the_em_maximum(monkeypatch):
     assert ll_s >= ll_e - 1e-9 * abs(ll_e)
     np.testing.assert_allclose(mu_s, mu_e, atol=1e-5)
     np.testing.assert_allclose(sig_s, sig_e, atol=1e-5)
+
+
+@pytest.mark.parametrize("shape, residuals", [("quadratic", "free"), ("linear", "equal"), ("basis", "free")])
+def test_pattern_size_groups_equal_the_single_masked_pass(shape, residuals, monkeypatch):
+    """Large batches go through the patterns grouped by observed size, small ones through
+    one masked pass: the log-likelihood, gradient and information must not depend on which
+    (latent-basis loadings exercise the parameter-dependent derivative maps)."""
+    from wavetrail.sem import person_terms, split_stats
+
+    t, Y = _panel(n=500, miss=0.3, seed=5)
+    spec = growth_spec(t, shape, residuals)
+    cm = spec.compile()
+    masks, idx = lik_pattern_index(Y)
+    idx, x, xx = person_terms(Y, masks, idx)
+    rng = np.random.default_rng(1)
+    left, right = split_stats(masks, idx, x, xx, rng.permutation(len(Y)), np.arange(60, 440, 10))
+    stats = SuffStats.stack([left, right])
+    theta = start_values(spec, stats) * (1.0 + 0.05 * rng.normal(size=(stats.B, cm.k)))
+    monkeypatch.setattr(lik, "COMPACT_MIN_CELLS", 0)
+    monkeypatch.setattr(lik, "MODEL_CHUNK_CELLS", 10 ** 9)
+    ll_c, g_c, I_c = lik.evaluate(cm, theta, stats)
+    ll_only = lik.evaluate(cm, theta, stats, grad=False, info=False)
+    monkeypatch.setattr(lik, "MODEL_CHUNK_CELLS", 100)  # and in slices of a few models
+    ll_s, g_s, I_s = lik.evaluate(cm, theta, stats)
+    monkeypatch.setattr(lik, "MODEL_CHUNK_CELLS", 10 ** 9)
+    monkeypatch.setattr(lik, "COMPACT_MIN_CELLS", 10 ** 9)
+    ll_m, g_m, I_m = lik.evaluate(cm, theta, stats)
+    np.testing.assert_allclose(ll_s, ll_c, rtol=1e-13)  # BLAS may sum in another order per slice size
+    np.testing.assert_allclose(g_s, g_c, rtol=1e-11, atol=1e-10 * np.abs(g_c).max())
+    np.testing.assert_allclose(I_s, I_c, rtol=1e-11)
+    assert np.isfinite(ll_m).all()
+    np.testing.assert_allclose(ll_c, ll_m, rtol=1e-12)
+    np.testing.assert_allclose(ll_only, ll_m, rtol=1e-12)
+    np.testing.assert_allclose(g_c, g_m, rtol=1e-9, atol=1e-8 * np.abs(g_m).max())
+    np.testing.assert_allclose(I_c, I_m, rtol=1e-9, atol=1e-10 * np.abs(I_m).max())
+    # and the gradient is the derivative of the log-likelihood (central differences)
+    b, h = 3, 1e-6
+    num = [(lik.evaluate(cm, theta[b] + h * e, stats.take([b]), grad=False, info=False)[0]
+            - lik.evaluate(cm, theta[b] - h * e, stats.take([b]), grad=False, info=False)[0]) / (2 * h)
+           for e in np.eye(cm.k)]
+    np.testing.assert_allclose(g_c[b], num, rtol=1e-5, atol=1e-4)

@@ -43,15 +43,33 @@ class BatchFit:
     decrement: np.ndarray
 
 
+#: smallest batch solved by triangular sweeps across the batch rather than per matrix
+SWEEP_MIN_BATCH = 64
+
+
 def _solve(I, g):
-    """Batched solve of I d = g with a ridge / pseudo-inverse fallback for singular models."""
-    k = I.shape[-1]
+    """Batched solve of I d = g (Cholesky, then two triangular sweeps across the
+    batch), with a ridge / pseudo-inverse fallback for singular models."""
+    B, k = g.shape
     scale = np.maximum(np.abs(np.diagonal(I, axis1=-2, axis2=-1)).mean(axis=-1), 1e-300)
-    _, Iinv, ok = _chol_logdet_inv(I + (1e-12 * scale)[:, None, None] * np.eye(k))
-    d = np.einsum("bij,bj->bi", Iinv, g)
-    if not ok.all():
+    A = I + (1e-12 * scale)[:, None, None] * np.eye(k)
+    try:
+        L = np.linalg.cholesky(A)
+    except np.linalg.LinAlgError:
+        _, Iinv, ok = _chol_logdet_inv(A)
+        d = np.einsum("bij,bj->bi", Iinv, g)
         bad = ~ok
         d[bad] = np.einsum("bij,bj->bi", np.linalg.pinv(I[bad], hermitian=True), g[bad])
+        return d
+    if B < SWEEP_MIN_BATCH:  # few models: LAPACK per matrix costs less than the sweeps
+        return np.linalg.solve(A, g[..., None])[..., 0]
+    diag = np.diagonal(L, axis1=-2, axis2=-1)
+    y = np.empty((B, k))
+    for i in range(k):  # L y = g
+        y[:, i] = (g[:, i] - np.einsum("bj,bj->b", L[:, i, :i], y[:, :i])) / diag[:, i]
+    d = np.empty((B, k))
+    for i in range(k - 1, -1, -1):  # L^T d = y
+        d[:, i] = (y[:, i] - np.einsum("bj,bj->b", L[:, i + 1:, i], d[:, i + 1:])) / diag[:, i]
     return d
 
 
