@@ -66,6 +66,7 @@ def report_inputs(wildcards=None):
             importance="results/forest/importance.csv",
             dependence="results/forest/dependence.csv",
             interactions="results/forest/interactions.csv",
+            dependence_pairs="results/forest/dependence_pairs.csv",
             importance_figure="results/forest/importance_plot.png",
             trajectories_figure="results/forest/trajectories.png",
         )

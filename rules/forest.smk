@@ -50,6 +50,7 @@ rule summarise_forest:
         importance="results/forest/importance.csv",
         dependence="results/forest/dependence.csv",
         interactions="results/forest/interactions.csv",
+        dependence_pairs="results/forest/dependence_pairs.csv",
         importance_figure="results/forest/importance_plot.png",
         importance_figure_svg="results/forest/importance_plot.svg",
         importance_figure_csv="results/forest/importance_plot.csv",

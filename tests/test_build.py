@@ -136,7 +136,8 @@ def test_new_project_builds_end_to_end_and_a_second_build_runs_nothing(built_dem
                 "results/growth/fit.csv", "results/growth/estimates.csv", "results/growth/comparison.csv",
                 "results/growth/trajectories.png", "results/forest/forest.json",
                 "results/forest/importance.csv", "results/forest/dependence.csv",
-                "results/forest/interactions.csv", "results/forest/importance_plot.png",
+                "results/forest/interactions.csv", "results/forest/dependence_pairs.csv",
+                "results/forest/importance_plot.png",
                 "results/reports/report.html", "results/reports/report.ipynb",
                 "environment/requirements.lock"):
         assert (root / rel).is_file() and (root / rel).stat().st_size > 0, rel

@@ -112,13 +112,14 @@ def test_threshold_moderator_bends_the_trajectories(ols):
 
 
 def test_interaction_pair_moves_the_intercept_most_without_rules(ols):
-    # truth: intercept += 0.03 per conflict point everywhere, 0.10 where house_rules == 1
+    # truth: intercept += 0.02 per conflict point everywhere, 0.14 where house_rules == 1
+    # (the answers' loadings below 1 and rounding shrink the observed slopes a little)
     none = ols["house_rules"] == 1
     with_none = np.polyfit(ols.loc[none, "family_conflict"], ols.loc[none, "intercept"], 1)[0]
     with_rules = np.polyfit(ols.loc[~none, "family_conflict"], ols.loc[~none, "intercept"], 1)[0]
-    assert 0.06 < with_none < 0.14
-    assert 0.01 < with_rules < 0.05
-    assert with_none - with_rules > 0.04
+    assert 0.09 < with_none < 0.19
+    assert -0.01 < with_rules < 0.05
+    assert with_none - with_rules > 0.07
 
 
 def test_spread_moderator_changes_variance_not_mean(ols):

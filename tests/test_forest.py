@@ -238,6 +238,27 @@ def test_dependence_and_prediction(small_forest):
         forest.dependence("cat", ["zz"])
 
 
+def test_pair_table_of_the_forest_stage(small_forest):
+    from wavetrail.errors import ConfigError
+    from wavetrail.stages.forest import PAIR_COLUMNS, _check_pairs, pair_table
+
+    wide, X, forest = small_forest
+    inter = pd.DataFrame({"predictor_a": ["cat", "x1"], "predictor_b": ["x1", "x2"], "h": [0.2, 0.0]})
+    chosen = pair_table(forest, X, [("x1", "cat")], inter)
+    assert list(chosen.columns) == PAIR_COLUMNS
+    assert len(chosen) == 3 * 4 * 3  # low / average / high x four categories x three waves
+    assert list(dict.fromkeys(chosen["level_a"])) == ["low", "average", "high"]
+    x1 = X["x1"]
+    np.testing.assert_allclose(sorted(set(chosen["value_a"])), [x1.mean() - x1.std(), x1.mean(), x1.mean() + x1.std()])
+    two = forest.dependence2("x1", "cat", sorted(set(chosen["value_a"])), ["a", "b", "c", "d"])
+    np.testing.assert_array_equal(chosen["expected"].to_numpy(), two["expected"].to_numpy())
+    # no pair named: the strongest probed pair; nothing when no pair interacts
+    assert set(pair_table(forest, X, [], inter)["predictor_a"]) == {"cat"}
+    assert pair_table(forest, X, [], inter.assign(h=0.0)).empty
+    with pytest.raises(ConfigError, match="'nope'"):
+        _check_pairs([("x1", "nope")], forest.info_.names)
+
+
 def test_h_statistic_zero_for_additive_and_positive_for_interacting():
     rng = np.random.default_rng(9)
     n = 1500

@@ -179,6 +179,14 @@ def make_project(root: Path, *, forest: str = "found") -> Path:
     write_table(r / "forest" / "dependence.csv", pd.DataFrame(dep))
     write_table(r / "forest" / "interactions.csv", pd.DataFrame({
         "predictor_a": ["screen", "chrono"], "predictor_b": ["chrono", "rules"], "h": [0.3141, 0.0271]}))
+    pair = []
+    for ka, (la, va) in enumerate([("low", 1.0), ("high", 5.5)]):
+        for kb, lb in enumerate(["1", "2"]):
+            for t in range(5):
+                pair.append({"predictor_a": "screen", "level_a": la, "value_a": va, "predictor_b": "rules",
+                             "level_b": lb, "value_b": lb, "time": t,
+                             "expected": 2.0 + 0.1 * ka * kb + 0.05 * (1 + ka) * t})
+    write_table(r / "forest" / "dependence_pairs.csv", pd.DataFrame(pair))
     return root
 
 
@@ -306,6 +314,10 @@ def test_report_shows_the_numbers_of_the_result_tables(built):
     assert "Top moderator (exploratory)</dt><dd>Evening screen time" in page
     # interactions sorted by H; H printed without leading zero
     assert _cells(page, "interactions")[0] == ["Evening screen time", "Chronotype", ".31"]
+    # two-way expected trajectories: a numeric grid point with its value, a category by its label
+    pairs = _cells(page, "dependence_pairs")
+    assert len(pairs) == 4
+    assert pairs[0][3] == "none" and pairs[3][1] == "high (5.5)" and pairs[3][4:] == ["2.10", "2.50", "0.40"]
     # small cells suppressed: 3 valid answers for house rules, min_cell 5
     desc = {r[0]: r for r in _cells(page, "descriptives")}
     assert desc["House rules on bedtime"][2] == "< 5" and desc["Evening screen time"][2] == "118"

@@ -79,8 +79,8 @@ TRUTH = {
          "rule": "curvature += 0.03 where chronotype >= 25",
          "size": 0.03, "cut": 25, "unit": "per wave squared"},
         {"predictor": "family_conflict x house_rules", "kind": "interaction", "target": "intercept",
-         "rule": "intercept += 0.03 * (family_conflict - 8), plus 0.07 * (family_conflict - 8) more where house_rules == 1 (no rules)",
-         "size": 0.07, "unit": "extra per conflict point without house rules"},
+         "rule": "intercept += 0.02 * (family_conflict - 8), plus 0.12 * (family_conflict - 8) more where house_rules == 1 (no rules)",
+         "size": 0.12, "unit": "extra per conflict point without house rules"},
         {"predictor": "physical_activity", "kind": "spread", "target": "slope variance",
          "rule": "slope SD 0.16 where physical_activity < 4 days, 0.05 otherwise; mean slope unchanged",
          "size": 0.11, "cut": 4, "unit": "difference in slope SD"},
@@ -195,7 +195,7 @@ def simulate_people(n: int = N_PEOPLE, seed: int = SEED) -> pd.DataFrame:
     d["peer_support"] = _clip_round(g.normal(14, 3.5, n), 0, 20).astype(int)
     conflict = _clip_round(g.normal(8, 4, n), 0, 20).astype(int)
     d["family_conflict"] = conflict
-    rules = g.choice([1, 2, 3], size=n, p=[0.30, 0.45, 0.25])
+    rules = g.choice([1, 2, 3], size=n, p=[0.40, 0.37, 0.23])
     d["house_rules"] = rules
     d["school_start"] = g.choice([1, 2, 3], size=n, p=[0.35, 0.45, 0.20])
     d["commute_min"] = _clip_round(g.gamma(2.0, 10.0, n), 0, 120).astype(int)
@@ -225,7 +225,7 @@ def simulate_people(n: int = N_PEOPLE, seed: int = SEED) -> pd.DataFrame:
     r = pop["intercept_slope_correlation"]
     slope_sd = np.where(activity < 4, pop["slope_sd_inactive"], pop["slope_sd_active"])
     d["intercept"] = (pop["intercept_mean"] + pop["intercept_sd"] * z_i
-                      + (0.03 + 0.07 * (rules == 1)) * (conflict - 8))
+                      + (0.02 + 0.12 * (rules == 1)) * (conflict - 8))
     d["slope"] = (pop["slope_mean"] + 0.05 * (screen - 2.2)
                   + slope_sd * (r * z_i + np.sqrt(1 - r * r) * z_s))
     d["curvature"] = (pop["curvature_mean"] + pop["curvature_sd"] * z_q
@@ -378,6 +378,8 @@ forest:
   shape: quadratic            # the node model: intercept, slope and curvature
   predictors: wave1           # the 36 first-wave predictors and age
   trees: {trees}                  # small, so that the demo builds in minutes
+  min_size: 70                # 5 people per model parameter: each tree sees 505 of the 800 people,
+                              # and the default of 10 per parameter (140) stops most trees after one split
   shards: {shards}                   # two jobs: one per core on a laptop
   threads: 1
   runtime: 60

@@ -588,7 +588,7 @@ class Report:
             return Fragment(caution + _p(esc(text)), "moderators")
         out = [caution, "<h3>Variable importance</h3>", self._importance(imp)]
         out += ["<h3>Expected trajectories of the top predictors</h3>", self._dependence(imp)]
-        out += ["<h3>Interactions between predictors</h3>", self._interactions()]
+        out += ["<h3>Interactions between predictors</h3>", self._interactions(), self._pair_table()]
         return Fragment("".join(out), "moderators")
 
     def _importance(self, imp: pd.DataFrame) -> str:
@@ -667,6 +667,38 @@ class Report:
                                  note="H: Friedman and Popescu's (2008) H statistic, the share of the joint effect of "
                                       "the pair on the expected trajectory that the two single effects do not explain "
                                       "(0 = none). " + self._source("interactions")))
+
+    def _level_text(self, name, level, value) -> str:
+        """A category's label, or 'low (4.1)' for a numeric predictor's grid point."""
+        if str(level) == str(value):
+            return self.study.level_label(name, level)
+        return f"{level} ({_value_text(value)})"
+
+    def _pair_table(self) -> str:
+        df = self.tables.get("dependence_pairs")
+        if df is None or not len(df):
+            return ""
+        times = _sorted_waves(df["time"])
+        first, last = times[0], times[-1]
+        rows = []
+        keys = ["predictor_a", "level_a", "predictor_b", "level_b"]
+        for (pa, la, pb, lb), curve in df.groupby(keys, sort=False):
+            a = curve.loc[curve["time"] == first, "expected"]
+            b = curve.loc[curve["time"] == last, "expected"]
+            a = float(a.iloc[0]) if len(a) else np.nan
+            b = float(b.iloc[0]) if len(b) else np.nan
+            rows.append([self.study.label(pa), self._level_text(pa, la, curve["value_a"].iloc[0]),
+                         self.study.label(pb), self._level_text(pb, lb, curve["value_b"].iloc[0]),
+                         fmt_number(a), fmt_number(b), fmt_number(b - a)])
+        return self._table(Table("Expected outcome for a pair of predictors set together",
+                                 ["Predictor A", "Level A", "Predictor B", "Level B", f"Wave {self._wave_at(first)}",
+                                  f"Wave {self._wave_at(last)}", "Change"], rows, numeric=[4, 5, 6],
+                                 key="dependence_pairs",
+                                 note="Two-way partial dependence: the forest's average expected trajectory with both "
+                                      "predictors set to the levels shown (numeric ones at mean - 1 SD, mean, "
+                                      "mean + 1 SD), the pair named in forest.interaction_pairs or else the pair with "
+                                      "the largest H. Forest averages are shrunk towards the overall trajectory. "
+                                      + self._source("dependence_pairs")))
 
     # ------------------------------------------------------------------ provenance
     def provenance(self) -> Fragment:

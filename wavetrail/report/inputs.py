@@ -30,6 +30,7 @@ TABLE_PATHS: dict[str, str] = {
     "importance": "results/forest/importance.csv",
     "dependence": "results/forest/dependence.csv",
     "interactions": "results/forest/interactions.csv",
+    "dependence_pairs": "results/forest/dependence_pairs.csv",
 }
 #: other named inputs of the report step
 OTHER_PATHS: dict[str, str] = {"lock": "environment/requirements.lock"}

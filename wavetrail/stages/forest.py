@@ -5,7 +5,7 @@ for ``K = forest.shards``; tree ``i`` is seeded by
 ``derive_seed(config["seed"], "forest", i)``, so the merged forest is the same
 for any ``K``. ``merge_forest`` joins the shards into ``forest.json``;
 ``summarise_forest`` writes the importance, expected-trajectory and interaction
-tables and the two figures.
+tables, the two-way expected trajectories of a pair and the two figures.
 """
 
 from __future__ import annotations
@@ -175,10 +175,54 @@ def summarise_forest(job) -> None:
     dep = (pd.concat(parts, ignore_index=True) if parts
            else pd.DataFrame(columns=["predictor", "level", "value", "time", "expected"]))
     write_table(job.path(job.output["dependence"]), dep)
-    pairs = cfg.get("interaction_pairs")
-    inter = forest.interactions(pairs=None if pairs is None else [tuple(p) for p in pairs], top=top)
+    chosen = [tuple(p) for p in (cfg.get("interaction_pairs") or [])]
+    _check_pairs(chosen, forest.info_.names)
+    probed = [(names[i], names[k]) for i in range(len(names)) for k in range(i + 1, len(names))]
+    probed += [p for p in chosen if p not in probed and p[::-1] not in probed]
+    inter = forest.interactions(pairs=probed)
     write_table(job.path(job.output["interactions"]), inter)
+    if "dependence_pairs" in job.output.keys():
+        write_table(job.path(job.output["dependence_pairs"]), pair_table(forest, predictors, chosen, inter))
     _figures(job, imp.head(max(top, 10)), dep, names[:FIGURE_PANELS])
+
+
+PAIR_COLUMNS = ["predictor_a", "level_a", "value_a", "predictor_b", "level_b", "value_b", "time", "expected"]
+
+
+def _check_pairs(pairs, names) -> None:
+    for pair in pairs:
+        for name in pair:
+            if name not in names:
+                raise ConfigError(f"forest.interaction_pairs names {name!r}, which is not a predictor of the forest",
+                                  hint="use predictor names from config/codebook.yaml (see results/forest/importance.csv)")
+        if pair[0] == pair[1]:
+            raise ConfigError(f"forest.interaction_pairs pairs {pair[0]!r} with itself",
+                              hint="name two different predictors")
+
+
+def pair_table(forest, predictors: pd.DataFrame, chosen, inter: pd.DataFrame) -> pd.DataFrame:
+    """Two-way expected trajectories of the chosen pairs, or of the strongest probed pair.
+
+    Numeric predictors at low / average / high (mean - 1 SD, mean, mean + 1 SD),
+    categorical ones at each level.
+    """
+    pairs = list(chosen)
+    if not pairs and len(inter) and float(inter["h"].fillna(0.0).iloc[0]) > 0:
+        pairs = [(inter["predictor_a"].iloc[0], inter["predictor_b"].iloc[0])]
+    parts = []
+    for a, b in pairs:
+        labels_a, values_a = _levels(forest, predictors, a)
+        labels_b, values_b = _levels(forest, predictors, b)
+        if not values_a or not values_b:
+            continue
+        two = forest.dependence2(a, b, values_a, values_b)
+        nt = len(forest.times_)
+        two.insert(0, "level_b", np.tile(np.repeat(labels_b, nt), len(labels_a)))
+        two.insert(0, "predictor_b", b)
+        two.insert(0, "level_a", np.repeat(labels_a, len(labels_b) * nt))
+        two.insert(0, "predictor_a", a)
+        parts.append(two[PAIR_COLUMNS])
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=PAIR_COLUMNS)
 
 
 def _figures(job, imp: pd.DataFrame, dep: pd.DataFrame, names: list[str]) -> None:
