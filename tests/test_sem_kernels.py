@@ -122,3 +122,27 @@ def test_pattern_size_groups_equal_the_single_masked_pass(shape, residuals, monk
             - lik.evaluate(cm, theta[b] - h * e, stats.take([b]), grad=False, info=False)[0]) / (2 * h)
            for e in np.eye(cm.k)]
     np.testing.assert_allclose(g_c[b], num, rtol=1e-5, atol=1e-4)
+
+
+def test_statistics_by_sorted_segments_equal_the_per_person_sums():
+    """SuffStats.from_data sums rows segment by segment after sorting by pattern; it must equal
+    the per-person route (x x^T for every row, added per pattern) that the tree splits use."""
+    from wavetrail.sem import person_terms
+
+    rng = np.random.default_rng(4)
+    Y = rng.normal(size=(3000, 12))
+    Y[rng.random(Y.shape) < 0.15] = np.nan
+    Y[:5] = np.nan  # rows with nothing observed are left out
+    a = SuffStats.from_data(Y)
+    masks, idx = lik_pattern_index(Y)
+    _, x, xx = person_terms(Y, masks, idx)
+    b = SuffStats.from_groups(masks, idx, x, xx, np.zeros(len(idx), dtype=int), 1)
+    assert np.array_equal(a.masks, b.masks) and np.array_equal(a.n, b.n)
+    assert a.total[0] == 2995
+    np.testing.assert_allclose(a.sums, b.sums, rtol=1e-12, atol=1e-10)
+    np.testing.assert_allclose(a.cross, b.cross, rtol=1e-12, atol=1e-9)
+    # the patterns in np.unique(axis=0) order, every row's pattern index pointing at its own mask
+    obs = ~np.isnan(Y)
+    ref = np.unique(obs[obs.any(axis=1)], axis=0)
+    assert np.array_equal(masks, ref)
+    assert (masks[idx[5:]] == obs[5:]).all()
