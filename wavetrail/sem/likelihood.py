@@ -216,7 +216,8 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
     theta = np.atleast_2d(np.asarray(theta, dtype=float))
     B = theta.shape[0]
     k = cm.k
-    cells = B * int((stats.n > 0).any(axis=0).sum())
+    live = np.nonzero((stats.n > 0).any(axis=0))[0]
+    cells = B * len(live)
     if cells > 2 * MODEL_CHUNK_CELLS and stats.B == B:
         # large batches in slices of models whose arrays stay in cache
         step = max(1, MODEL_CHUNK_CELLS * B // cells)
@@ -250,11 +251,10 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
     elif info:
         acc["Ie"] = np.zeros((B, E, E))
         acc["Im"] = np.zeros((B, k, k))
-    live = np.nonzero((nB > 0).any(axis=0))[0]
     width = p * p if (via_moments or not info) else max(p * p, E * p, E * E)
     per = max(1, int(BLOCK_ELEMENTS // max(1, B * width)))
     terms = (mu, sigma, U, V, dmu)
-    if p <= MOMENT_PATH_MAX_P and (via_moments or not info) and B * len(live) >= COMPACT_MIN_CELLS:
+    if p <= MOMENT_PATH_MAX_P and cells >= COMPACT_MIN_CELLS:
         for part, groups in _blocks(stats.masks, live, per):
             _compact_chunk(acc, terms, stats, part, groups, grad, info)
     else:

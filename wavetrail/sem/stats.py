@@ -115,7 +115,8 @@ class SuffStats:
         order = keep[np.argsort(idx[keep], kind="stable")]
         bounds = np.searchsorted(idx[order], np.arange(P + 1))
         n = np.diff(bounds).astype(float)
-        xt = np.where(np.isnan(Y[order]), 0.0, Y[order]).T.copy()  # (p, rows sorted by pattern)
+        Yo = Y[order]
+        xt = np.where(np.isnan(Yo), 0.0, Yo).T.copy()  # (p, rows sorted by pattern), missing = 0
         sums = np.zeros((P, p))
         cross = np.zeros((P, p, p))
         if P:
