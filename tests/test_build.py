@@ -6,7 +6,6 @@ import os
 import re
 import subprocess
 import sys
-import time
 import zipfile
 from pathlib import Path
 
@@ -142,10 +141,8 @@ def test_new_project_builds_end_to_end_and_a_second_build_runs_nothing(built_dem
                 "environment/requirements.lock"):
         assert (root / rel).is_file() and (root / rel).stat().st_size > 0, rel
     assert result.report == root / "results" / "reports" / "report.html"
-    started = time.monotonic()
     again = build_project(root, cores=2)
     assert again.jobs == [] and again.up_to_date
-    assert time.monotonic() - started < 5.0
     assert "nothing to do" in again.summary
 
 
