@@ -109,7 +109,7 @@ def parse_wave_label(text) -> Label:
         return Label(s, None)
     if word in _OCCASION_WORDS:
         return Label(s, num, None, "occasion")
-    if word in _UNITS:  # "month 6", "day 3", "week 2"
+    if word in _UNITS and len(word) > 2:  # "month 6", "day 3", "week 2" (not "y2010")
         return Label(s, num, _UNITS[word], "delay")
     return Label(s, None)
 
@@ -276,7 +276,14 @@ def find_long(frame: pd.DataFrame, id: str | None = None, wave: str | None = Non
             if frame.groupby(w, sort=False)[i].nunique().max() < 0.3 * nunique[i]:
                 continue
             pairs.append((i, w))
-    if not pairs:
+    if not pairs:  # few repeats: accept a pair that reads as id and wave by name
+        for w in ([wave] if wave is not None else [c for c in cols if _norm(c) in _WAVE_NAMES]):
+            for i in ([id] if id is not None else [c for c in cols if _hinted_id(c)]):
+                if (i != w and i in cols and w in cols and frame[i].notna().all() and frame[w].notna().all()
+                        and 1 <= nunique[w] <= MAX_WAVES and not frame.duplicated([i, w]).any()):
+                    lay = Layout(kind="long", id=i, wave=w, row_numbers=rows)  # a wide pattern wins
+                    lay.id_note = "few people appear at more than one wave: check the id and wave columns"
+                    return lay
         return None
     others = [c for c in cols if c not in rows]
 
