@@ -163,7 +163,9 @@ def test_draft_from_wide_frame():
     df = pd.DataFrame({"id": [1, 2, 3, 4], "x_w1": [1, 2, 3, 4], "x_w2": [2, 3, 4, 5], "age": [12, 13, 12, 14]})
     cb = parse_codebook(draft_codebook(df))
     assert cb.layout == "wide" and cb.study.wide == "{name}_w{wave}" and cb.study.waves == (1, 2)
-    assert set(cb.variables) == {"id", "x", "age"}
+    # the id column is not a variable; a column without a wave suffix is measured once
+    assert set(cb.variables) == {"x", "age"}
+    assert cb.variables["age"].waves == (1,)
 
 
 def test_draft_from_labelled_sav_carries_labels(tmp_path):

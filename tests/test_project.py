@@ -76,7 +76,9 @@ def test_new_with_data_copies_registers_and_drafts(tmp_path, no_git_identity):
     config = yaml.safe_load((root / "config" / "config.yaml").read_text())
     assert config["data"] == ["data/raw/waves.csv"]
     codebook = yaml.safe_load((root / "config" / "codebook.yaml").read_text())
-    assert [v["name"] for v in codebook["variables"]][:1] == ["pid"]
+    # the id and wave columns are found from the data and not drafted as variables
+    assert codebook["study"]["id"] == "pid" and codebook["study"]["wave"] == "wave"
+    assert [v["name"] for v in codebook["variables"]] == ["slp1"]
     assert codebook["study"]["waves"] == [1, 2]
     with git.Repo(root) as repo:
         tracked = set(repo.git.ls_files().splitlines())

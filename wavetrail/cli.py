@@ -76,14 +76,27 @@ def new(
     title: Optional[str] = typer.Option(None, "--title", help="Project title."),
     author: Optional[str] = typer.Option(None, "--author", help="Author for the first commit and the docs."),
     data: Optional[List[Path]] = typer.Option(None, "--data", help="Raw data file(s) to copy in and draft a codebook from."),
+    outcome: Optional[List[str]] = typer.Option(
+        None, "--outcome",
+        help="A scale or numeric repeated variable to model over the waves (repeatable); the first is "
+             "also the forest's outcome."),
 ):
     """Scaffold a new panel-study project."""
+    from wavetrail.drafting import GUESS_MARK, unchecked_guesses
     from wavetrail.project import new_project
 
-    root = new_project(path, title=title, author=author, data=list(data or []))
+    root = new_project(path, title=title, author=author, data=list(data or []), outcomes=list(outcome or []))
     console.print(f"created project {root}")
     console.print(_first_commit_note(root, author))
-    console.print("next: edit config/codebook.yaml and config/config.yaml, then `wavetrail build`")
+    codebook = root / "config" / "codebook.yaml"
+    guesses = unchecked_guesses(codebook.read_text(encoding="utf-8")) if data else []
+    if guesses:
+        console.print(f"the drafted codebook holds {len(guesses)} guess(es) to check before a build "
+                      f"(each marked '# {GUESS_MARK}'; delete the comment once checked):")
+        for line, note in guesses:
+            console.print(f"  config/codebook.yaml:{line}: {note}")
+    console.print("next: review config/codebook.yaml and config/config.yaml, run `wavetrail check`, "
+                  "then `wavetrail build`")
 
 
 @app.command()

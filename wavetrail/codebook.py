@@ -147,13 +147,16 @@ def codebook_schema() -> dict:
         return json.load(fh)
 
 
-def load_codebook(path: str | os.PathLike) -> Codebook:
+def load_codebook(path: str | os.PathLike, *, allow_guesses: bool = False) -> Codebook:
     """Load and validate a codebook YAML file.
 
     Parameters
     ----------
     path : path-like
         The codebook file (usually ``config/codebook.yaml``).
+    allow_guesses : bool
+        Accept a drafted guess that is still marked ``UNCHECKED GUESS`` (only
+        for reading a fresh draft; every check and build refuses one).
 
     Returns
     -------
@@ -163,8 +166,9 @@ def load_codebook(path: str | os.PathLike) -> Codebook:
     ------
     CodebookError
         The file is missing, is not YAML, breaks the schema, or is inconsistent
-        (a variable named twice, a reverse item without a range, ...); the
-        message names the file and line.
+        (a variable named twice, a reverse item without a range, ...) or
+        still holds an unchecked drafted guess; the message names the file
+        and line.
     """
     path = Path(path)
     try:
@@ -180,12 +184,15 @@ def load_codebook(path: str | os.PathLike) -> Codebook:
         line = raw[: exc.start].count(b"\n") + 1
         raise CodebookError(f"{path}:{line}: the codebook is not UTF-8 text",
                             hint="save it as UTF-8") from None
-    return parse_codebook(text, source=path)
+    return parse_codebook(text, source=path, allow_guesses=allow_guesses)
 
 
-def parse_codebook(text: str, source: str | os.PathLike | None = None) -> Codebook:
+def parse_codebook(text: str, source: str | os.PathLike | None = None, *,
+                   allow_guesses: bool = False) -> Codebook:
     """Parse codebook YAML text (see :func:`load_codebook`)."""
     where = str(source) if source is not None else "codebook"
+    if not allow_guesses:
+        _refuse_guesses(text, where)
     try:
         node = yaml.compose(text, Loader=yaml.SafeLoader)
         data = yaml.safe_load(text)
@@ -203,6 +210,21 @@ def parse_codebook(text: str, source: str | os.PathLike | None = None) -> Codebo
     lines = _LineIndex(node)
     _validate_schema(data, lines, where)
     return _build(data, lines, Path(source) if source is not None else None, where)
+
+
+def _refuse_guesses(text: str, where: str) -> None:
+    """Refuse a drafted guess that nobody has checked yet (its marker comment is still there)."""
+    from wavetrail.drafting import GUESS_MARK, unchecked_guesses
+
+    found = unchecked_guesses(text)
+    if not found:
+        return
+    shown = "\n  ".join(f"{where}:{line}: {note or 'a drafted guess'}" for line, note in found[:5])
+    more = f"\n  ({len(found) - 5} more)" if len(found) > 5 else ""
+    raise CodebookError(
+        f"the codebook still holds {len(found)} drafted guess(es) nobody has checked:\n  {shown}{more}",
+        hint=f"check the value on each line named, correct it if needed, then delete its "
+             f"'# {GUESS_MARK}' comment (docs/codebook.md, drafting)")
 
 
 class _LineIndex:
@@ -298,11 +320,18 @@ def _key_text(path: list, data) -> str:
         if depth == 0 and key == "variables":
             node = node.get("variables") if isinstance(node, dict) else None
             continue
-        if isinstance(node, list) and isinstance(key, int):
+        if depth == 1 and path[0] == "variables" and isinstance(node, list) and isinstance(key, int):
             item = node[key] if key < len(node) else None
             name = item.get("name") if isinstance(item, dict) else None
             parts.append(f"variable {name}" if isinstance(name, str) else f"variables[{key}]")
             node = item
+            continue
+        if isinstance(node, list) and isinstance(key, int):  # an entry of a list: key[i]
+            if parts:
+                parts[-1] += f"[{key}]"
+            else:
+                parts.append(f"[{key}]")
+            node = node[key] if key < len(node) else None
             continue
         parts.append(str(key))
         if isinstance(node, dict):
@@ -444,205 +473,37 @@ def draft_codebook(frames_or_paths, *, id: str | None = None, wave: str | None =
         Data files (any format :func:`wavetrail.readers.read_table` reads) or
         DataFrames. Several files are taken as one file per wave, in order.
     id, wave : str, optional
-        The id and wave columns; guessed from the names when not given.
+        The id and wave columns; found from the data when not given (the pair
+        that identifies the rows, the wave column having few distinct values).
     waves : list, optional
-        The wave labels; taken from the wave column, else from the file count.
+        The wave labels; taken from the wave column or the wide naming pattern,
+        else from the file count.
 
     Returns
     -------
     str
-        YAML text: the study block, one entry per column with type, observed
-        range or levels, and guessed missing codes marked for review with a
-        ``# review`` comment. Labelled SPSS / Stata files give their variable
-        labels, value labels (as levels) and user-defined missing values.
+        YAML text: the study block (time scores keep the spacing of numeric wave
+        labels; text labels with a number and a unit are read), one entry per
+        variable with type, observed range or levels and waves (a value that
+        never changes within a person is measured once, at the first wave).
+        Harmless guesses carry a ``# review`` note; a guess that changes results
+        if wrong carries a comment with ``UNCHECKED GUESS``, which
+        :func:`load_codebook` refuses until it is deleted. Labelled SPSS /
+        Stata files give their variable labels, value labels (as levels, when
+        they cover every value present) and user-defined or extended missing
+        values as declared missing codes. See :mod:`wavetrail.drafting`.
     """
     return _draft_text(frames_or_paths, id=id, wave=wave, waves=waves)
 
 
-_ID_NAMES = ("id", "pid", "person", "person_id", "participant", "subject", "case", "caseid", "respondent")
-_WAVE_NAMES = ("wave", "occasion", "round", "visit", "time", "w")
-_WIDE_PATTERNS = ("{name}_w{wave}", "{name}_t{wave}", "{name}_wave{wave}", "{name}.{wave}", "{name}_{wave}",
-                  "{name}w{wave}")
-_IDENTIFYING = ("email", "e_mail", "mail", "name", "phone", "address", "street", "postcode", "zip",
-                "birth", "dob", "ssn")
-#: most distinct text values for a text column to be drafted as a category
-_MAX_TEXT_LEVELS = 12
-
-
-def _y(value) -> str:
-    """One YAML flow scalar or collection."""
-    text = yaml.safe_dump(value, default_flow_style=True, allow_unicode=True, width=10_000).strip()
-    if text.endswith("\n..."):
-        text = text[:-4].strip()
-    if text.endswith("..."):
-        text = text[:-3].strip()
-    return text
-
-
 def _draft_text(frames_or_paths, *, id=None, wave=None, waves=None) -> str:
-    import re
-
-    import numpy as np
     import pandas as pd
 
+    from wavetrail.drafting import draft_text
     from wavetrail.readers import read_table, table_from_frame
 
     items = list(frames_or_paths) if isinstance(frames_or_paths, (list, tuple)) else [frames_or_paths]
     if not items:
         raise CodebookError("draft_codebook needs at least one data file or table")
     tables = [table_from_frame(x) if isinstance(x, pd.DataFrame) else read_table(x) for x in items]
-    first = tables[0].frame
-    columns = list(dict.fromkeys(c for t in tables for c in t.frame.columns))
-    lower = {c.lower(): c for c in columns}
-    if id is None:
-        id = next((lower[n] for n in _ID_NAMES if n in lower), None)
-        if id is None:
-            id = next((c for c in columns if c.lower().endswith("_id") or c.lower().endswith("id")), columns[0])
-    if wave is None:
-        wave = next((lower[n] for n in _WAVE_NAMES if n in lower and lower[n] != id), None)
-
-    # layout: long (a wave column), wide (a naming pattern) or one file per wave
-    pattern, wide_map = None, {}
-    if wave is None:
-        best = (0, None, {})
-        for pat in _WIDE_PATTERNS:
-            rx = re.compile("^" + re.escape(pat).replace(re.escape("{name}"), "(?P<name>.+?)")
-                            .replace(re.escape("{wave}"), "(?P<wave>[0-9]+)") + "$")
-            found = {}
-            for c in columns:
-                m = rx.match(c)
-                if m and c != id:
-                    found[c] = (m.group("name"), int(m.group("wave")))
-            n_waves = len({w for _, w in found.values()})
-            if n_waves >= 2 and len(found) > best[0]:
-                best = (len(found), pat, found)
-        pattern, wide_map = best[1], best[2]
-    comments = []
-    if wave is not None:
-        observed = pd.concat([t.frame[wave] for t in tables if wave in t.frame.columns], ignore_index=True)
-        found_waves = sorted({_num(v) if not isinstance(v, str) else v for v in observed.dropna()},
-                             key=lambda v: (isinstance(v, str), v))
-        layout = "long"
-    elif pattern is not None:
-        found_waves = sorted({w for _, w in wide_map.values()})
-        layout = "wide"
-    else:
-        found_waves = list(range(1, len(tables) + 1))
-        wave = "wave"
-        layout = "per-wave"
-        comments.append("one file per wave, in wave order; no file holds a wave column")
-    if waves is None:
-        waves = found_waves
-
-    # values of each variable over every file and wave
-    values: dict[str, list] = {}
-    for t in tables:
-        for c in t.frame.columns:
-            if c in (id, wave):
-                continue
-            base = wide_map[c][0] if c in wide_map else c
-            values.setdefault(base, []).append(t.frame[c])
-    labels, value_labels, user_missing = {}, {}, {}
-    for t in tables:
-        for c, lab in t.labels.items():
-            base = wide_map[c][0] if c in wide_map else c
-            labels.setdefault(base, lab)
-        for c, vl in t.value_labels.items():
-            base = wide_map[c][0] if c in wide_map else c
-            value_labels.setdefault(base, {}).update(vl)
-        for c, um in t.user_missing.items():
-            base = wide_map[c][0] if c in wide_map else c
-            user_missing.setdefault(base, {}).update(um)
-    var_waves = {}
-    for c, (base, w) in wide_map.items():
-        var_waves.setdefault(base, set()).add(w)
-
-    out = ["# Draft codebook written by wavetrail from: "
-           + ", ".join(t.name for t in tables),
-           "# Review every line marked `review` before the first build (docs/codebook.md).", "study:",
-           f"  id: {_y(id)}"]
-    if layout == "wide":
-        out.append(f"  wide: {_y(pattern)}")
-    else:
-        out.append(f"  wave: {_y(wave)}" + (f"  # {comments[0]}" if comments else ""))
-    out.append(f"  waves: {_y(list(waves))}")
-    out.append(f"  time_scores: {_y(list(range(len(waves))))}  # review: one per wave, in the growth model's time unit")
-    out.append("variables:")
-    id_values = pd.concat([t.frame[id] for t in tables if id in t.frame.columns], ignore_index=True)
-    out += _draft_variable(id, id_values, labels.get(id, ""), {}, {}, None, is_id=True)
-    for name, cols in values.items():
-        series = pd.concat(cols, ignore_index=True)
-        vw = sorted(var_waves[name]) if name in var_waves and len(var_waves[name]) < len(waves) else None
-        out += _draft_variable(name, series, labels.get(name, ""), value_labels.get(name, {}),
-                               user_missing.get(name, {}), vw)
-    out.append("# scales:  (name each scale here and set `scale:` on its items)")
-    out.append("#   my_scale: {label: My scale, min_share: 0.8}")
-    return "\n".join(out) + "\n"
-
-
-def _draft_variable(name, series, label, value_labels, user_missing, var_waves, is_id=False) -> list[str]:
-    import numpy as np
-    import pandas as pd
-
-    from wavetrail.checks import looks_like_missing_code
-
-    lines = [f"  - name: {_y(name)}", f"    label: {_y(str(label or ''))}"]
-    filled = series.dropna()
-    numeric = pd.api.types.is_numeric_dtype(series)
-    missing = {k: (v or "missing (user-defined in the file)") for k, v in user_missing.items()}
-    guessed = {}
-    if numeric and len(filled):
-        x = filled.to_numpy(dtype=float)
-        declared = np.isin(x, [float(k) for k in missing if isinstance(k, (int, float))])
-        codelike = looks_like_missing_code(x) & ~declared
-        rest = x[~declared & ~codelike]
-        if len(rest) and not is_id:
-            lo, hi = rest.min(), rest.max()
-            span = max(hi - lo, 1.0)
-            for v in np.unique(x[codelike]):
-                if (v < 0 and lo >= 0) or v > hi + span:
-                    guessed[_num(v)] = "unknown"
-        keep = ~declared & ~np.isin(x, [float(g) for g in guessed])
-        x = x[keep]
-    if is_id:
-        lines.append(f"    type: {'integer' if numeric else 'text'}")
-        return lines
-    levels = {k: v for k, v in (value_labels or {}).items() if k not in missing}
-    if levels:
-        lines.append("    type: category  # review: from value labels; integer if it is a scale item")
-        lines.append(f"    levels: {_y(levels)}")
-    elif numeric:
-        if len(filled) == 0:
-            lines.append("    type: number  # review: no values seen")
-        else:
-            integral = bool(np.all(x == np.round(x))) if len(x) else True
-            lines.append(f"    type: {'integer' if integral else 'number'}")
-            if len(x):
-                lines.append(f"    range: {_y([_num(x.min()), _num(x.max())])}  # review: observed range")
-    else:
-        text = filled.astype(str)
-        uniq = sorted(set(text))
-        if len(uniq) and all(_is_date(v) for v in uniq[:50]):
-            lines.append("    type: date")
-        elif 0 < len(uniq) <= _MAX_TEXT_LEVELS and len(text) >= 2 * len(uniq):
-            lines.append("    type: category  # review: guessed from few distinct values")
-            lines.append(f"    levels: {_y({u: u for u in uniq})}")
-        else:
-            lines.append("    type: text")
-    if missing or guessed:
-        lines.append("    missing:")
-        for code, reason in missing.items():
-            lines.append(f"      {_y(_num(code) if isinstance(code, float) else code)}: {_y(str(reason))}")
-        for code, reason in guessed.items():
-            lines.append(f"      {_y(code)}: {_y(reason)}  # review: guessed missing code, not declared in the file")
-    if var_waves:
-        lines.append(f"    waves: {_y(var_waves)}")
-    if any(part in name.lower() for part in _IDENTIFYING) and not numeric:
-        lines.append("    identifier: true  # review: looks like a direct identifier")
-    return lines
-
-
-def _is_date(text: str) -> bool:
-    import re
-
-    return bool(re.fullmatch(r"\d{4}-\d{2}-\d{2}", text))
+    return draft_text(tables, id=id, wave=wave, waves=waves)

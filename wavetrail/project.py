@@ -17,6 +17,7 @@ import tempfile
 from pathlib import Path
 from typing import Callable, Iterable
 
+from wavetrail._io import atomic_write_text
 from wavetrail.errors import DataError, ProjectError
 
 __all__ = [
@@ -28,6 +29,7 @@ __all__ = [
     "is_project",
     "make_demo",
     "new_project",
+    "outcome_choices",
 ]
 
 #: name and e-mail used for the first commit when neither --author nor git gives one
@@ -102,6 +104,7 @@ def new_project(
     data: Iterable[str | Path] = (),
     *,
     seed: int = 20261202,
+    outcomes: Iterable[str] = (),
     populate: Callable[[Path], None] | None = None,
     commit_message: str = "New wavetrail project",
 ) -> Path:
@@ -120,6 +123,14 @@ def new_project(
         draft ``config/codebook.yaml`` from.
     seed
         Master seed written into ``config/config.yaml``.
+    outcomes
+        Growth outcomes: names of scales or of numeric variables measured at
+        several waves in the drafted codebook. They become ``growth.outcomes``
+        and the first becomes ``forest.outcome``. Without them the settings name
+        every scale (the forest splits the first); when the codebook has no
+        scale, growth fits nothing and the forest is off, and a comment in
+        ``config/config.yaml`` lists the numeric repeated variables to choose
+        from. Either way the settings never stop a build half way.
     populate
         Called with the project root after scaffolding and before the commit (the demo
         uses it to write its data and settings).
@@ -132,7 +143,8 @@ def new_project(
     Raises
     ------
     ProjectError
-        The target is not empty or cannot be created.
+        The target is not empty or cannot be created, or an outcome is not a
+        scale or numeric repeated variable of the drafted codebook.
     DataError
         A data file is missing or two have the same name.
     """
@@ -153,6 +165,15 @@ def new_project(
             raise DataError(f"two data files are called {src.name}", hint="rename one of them before adding it")
         names.add(src.name)
 
+    # draft first: a wrong --outcome is refused before anything is written
+    draft, codebook = None, None
+    if sources:
+        from wavetrail.codebook import draft_codebook, parse_codebook
+
+        draft = draft_codebook([str(src) for src in sources])
+        codebook = parse_codebook(draft, source="config/codebook.yaml (drafted)", allow_guesses=True)
+    outcome_context = _outcome_settings(codebook, list(outcomes))
+
     title = title or target.name.replace("-", " ").replace("_", " ").strip().capitalize() or "Panel study"
     name, email = _parse_author(author)
     data_list = [f"data/raw/{src.name}" for src in sources] or ["data/raw/panel.csv"]
@@ -163,6 +184,7 @@ def new_project(
         "year": str(_dt.date.today().year),
         "seed": str(int(seed)),
         "data": json.dumps(data_list),
+        **outcome_context,
     }
     created_folder = not target.exists()
     target.parent.mkdir(parents=True, exist_ok=True)
@@ -179,7 +201,7 @@ def new_project(
                 shutil.copy2(src, dest)
                 copied.append(dest)
             _register(target, copied)
-            _draft_codebook(target, copied)
+            atomic_write_text(target / "config" / "codebook.yaml", draft)
         if populate is not None:
             populate(target)
         _first_commit(target, author=(name, email) if author else None, message=commit_message)
@@ -260,15 +282,67 @@ def _register(target: Path, files: list[Path]) -> None:
     register_files(target, files, commit=False)
 
 
-def _draft_codebook(target: Path, files: list[Path]) -> None:
-    from wavetrail._io import atomic_write_text
+def outcome_choices(codebook) -> tuple[list[str], list[str]]:
+    """(scales, numeric variables measured at two or more waves) of a codebook: the names
+    that ``growth.outcomes`` and ``forest.outcome`` may take."""
+    waves = list(codebook.study.waves)
+    scales = list(codebook.scales)
+    measures = []
+    for var in codebook.data_variables():
+        if not var.numeric or var.identifier:
+            continue
+        n = len(var.waves) if var.waves is not None else len(waves)
+        if n >= 2:
+            measures.append(var.name)
+    return scales, measures
 
-    try:
-        from wavetrail.codebook import draft_codebook
-    except ImportError:
-        return
-    text = draft_codebook([str(f) for f in files])
-    atomic_write_text(target / "config" / "codebook.yaml", text)
+
+def _outcome_settings(codebook, outcomes: list[str]) -> dict:
+    """Cookiecutter values of growth.outcomes, forest.outcome, forest.enabled and a note.
+
+    Named outcomes are checked against the codebook (a scale, or a numeric variable
+    measured at two or more waves). With none named: every scale, the forest on the
+    first; with no scale either: nothing fitted, forest off, and the candidates listed
+    in a comment, so that the settings never stop a build half way.
+    """
+    scales, measures = outcome_choices(codebook) if codebook is not None else ([], [])
+    choices = scales + [m for m in measures if m not in scales]
+    if outcomes and codebook is None:
+        raise ProjectError("--outcome needs --data: an outcome is checked against the codebook drafted from the data",
+                           hint="give the data file with --data, or set growth.outcomes in config/config.yaml later")
+    seen = set()
+    for name in outcomes:
+        if name in seen:
+            raise ProjectError(f"--outcome {name} is given twice", hint="name each outcome once")
+        seen.add(name)
+        if name not in choices:
+            listed = ", ".join(choices) if choices else "none (the drafted codebook has no numeric repeated variable)"
+            raise ProjectError(
+                f"--outcome {name}: not a scale or a numeric variable measured at two or more waves "
+                "in the codebook drafted from the data",
+                hint=f"choose among: {listed}")
+    note = ""
+    if outcomes:
+        growth, forest, enabled = list(outcomes), outcomes[0], True
+    elif scales:
+        growth, forest, enabled = [], scales[0], True
+        note = f"# No outcome was named: growth models every scale; the forest splits {scales[0]}."
+    else:
+        growth, forest, enabled = [], None, False
+        if measures:
+            note = ("# No outcome chosen yet, so growth fits nothing and the forest is off. Numeric\n"
+                    "# variables measured at several waves, to check and choose from (name them under\n"
+                    "# growth.outcomes, then set forest.enabled: true; forest.outcome null = the first):\n"
+                    + "\n".join(f"#   {m}" for m in measures))
+        else:
+            note = ("# No outcome chosen yet, so growth fits nothing and the forest is off: name a scale\n"
+                    "# or a numeric variable measured at several waves under growth.outcomes.")
+    return {
+        "outcomes": json.dumps(growth),
+        "forest_outcome": json.dumps(forest) if forest is not None else "null",
+        "forest_enabled": "true" if enabled else "false",
+        "outcome_note": note,
+    }
 
 
 def _first_commit(target: Path, author: tuple[str, str] | None, message: str) -> str:

