@@ -127,21 +127,11 @@ def state_problems(root: Path, repo, records: list[dict]) -> list[str]:
                     problems.append(f"{name}: input {e['path']} was rewritten after this job ran (stale)")
             elif f.is_file() and e.get("sha256") and sha256_file(f) != e["sha256"]:
                 problems.append(f"{name}: input {e['path']} has changed since this job ran (stale)")
-    head = repo.head.commit
-    checked: dict[str, list[str]] = {}
-    for rec in records:
-        commit = (rec.get("git") or {}).get("commit")
-        if not commit or commit == head.hexsha:
-            continue
-        if commit not in checked:
-            try:
-                diff = repo.commit(commit).diff(head, paths=list(CODE_PATHS))
-                checked[commit] = sorted({d.b_path or d.a_path for d in diff})
-            except Exception:
-                checked[commit] = ["(commit not in this repository)"]
-        if checked[commit]:
-            problems.append(f"{rec.get('_file', rec['step'])}: ran at commit {commit[:10]}; since then "
-                            f"{', '.join(checked[commit][:3])} changed")
+    from wavetrail.ledger import source_changes
+
+    for name, changed in sorted(source_changes(root, records, repo).items()):
+        problems.append(f"{name}: its settings, plan or workflow changed since the job ran "
+                        f"({', '.join(changed[:3])}{' ...' if len(changed) > 3 else ''})")
     return problems
 
 
@@ -270,8 +260,11 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
                            hint="build the project first with `wavetrail build`")
     problems = state_problems(root, repo, records)
     if problems and not allow_dirty:
+        uncommitted = any("uncommitted change" in p or "not committed" in p for p in problems)
+        hint = ("commit your changes, run `wavetrail build` (it reruns every job listed here), then pack again"
+                if uncommitted else "run `wavetrail build` (it reruns every job listed here), then pack again")
         raise ArchiveError("the project's committed state does not match its results:\n  " + _short(problems),
-                           hint="commit your changes and run `wavetrail build`, or pack anyway with --allow-dirty")
+                           hint=hint + "; or pack anyway with --allow-dirty")
     head = repo.head.commit
     commit = head.hexsha
     when = head.committed_datetime.astimezone(timezone.utc)
