@@ -66,7 +66,7 @@ class BuildResult:
     dry_run : bool
         Snakemake only listed the jobs (``-- --dry-run``): ``jobs`` would run, nothing was built.
     forced : list of str
-        Outputs rerun because the ledger says they no longer match the committed project
+        Steps rerun because the ledger says they no longer match the committed project
         (hand-edited, or recorded at a commit whose settings or workflow differ), with why.
     """
 
@@ -212,7 +212,7 @@ def build_project(
             # outputs Snakemake sees as up to date that the ledger says are not (hand-edited, or
             # computed before a committed change of settings, plan or workflow code): rerun their
             # jobs and everything downstream
-            extra += ["--forcerun", *sorted({p for p, _ in forced})]
+            extra += ["--forcerun", *[step for step, _ in forced]]
     cmd = snakemake_command(root, cores=cores, profile=profile, extra=extra)
     env = dict(os.environ)
     bindir = str(Path(sys.executable).parent)
@@ -230,7 +230,7 @@ def build_project(
                 progress(f"removed the Snakemake lock left by a build that was killed (pid {guard.stale_pid})")
         result = _run(root, cmd, env, log_path, progress, guard)
     result.dry_run = any(a in _DRY_RUN for a in extra)
-    result.forced = [f"{p} ({why})" for p, why in forced]
+    result.forced = [f"{step} ({why})" for step, why in forced]
     return result
 
 

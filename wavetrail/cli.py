@@ -244,13 +244,20 @@ def pack(
     output: Optional[Path] = typer.Option(None, "-o", "--output", help="Archive file (.zip or .tar.gz)."),
     allow_dirty: bool = typer.Option(False, "--allow-dirty", help="Pack even if the git tree has uncommitted changes."),
     allow_disclosure: bool = typer.Option(False, "--allow-disclosure", help="Pack even if the disclosure check finds something."),
+    min_cell: Optional[int] = typer.Option(None, "--min-cell", help="Smallest count of people a packed file may show (default: report.min_cell of the project, else 5)."),
 ):
     """Write the reviewer archive (BagIt bag with an RO-Crate)."""
     from wavetrail.archive import pack_project
 
     if data not in ("include", "exclude", "stand-in"):
         raise typer.BadParameter("--data must be include, exclude or stand-in")
-    out = pack_project(path, data=data, output=output, allow_dirty=allow_dirty, allow_disclosure=allow_disclosure)
+    notes: list = []
+    try:
+        out = pack_project(path, data=data, output=output, allow_dirty=allow_dirty,
+                           allow_disclosure=allow_disclosure, min_cell=min_cell, notes=notes)
+    finally:
+        for line in notes:
+            console.print(line, markup=False)
     console.print(f"archive written: {out}", markup=False)
 
 

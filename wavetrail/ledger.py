@@ -272,35 +272,30 @@ def source_changes(project: str | Path, records: list[dict[str, Any]], repo=None
 
 
 def rerun_targets(project: str | Path, repo=None) -> list[tuple[str, str]]:
-    """Outputs ``wavetrail build`` must rerun although Snakemake sees them as up to date.
+    """Steps ``wavetrail build`` must rerun although Snakemake sees their outputs as up to date.
 
-    ``[(output path, why)]``: outputs whose bytes differ from their ledger
-    record (edited by hand), and the outputs of jobs whose settings, plan or
-    workflow code changed since they ran (:func:`source_changes`).
+    ``[(step, why)]``, one entry per step (a rule name): steps with an output
+    whose bytes differ from its ledger record (edited by hand), and steps
+    whose settings, plan or workflow code changed since they ran
+    (:func:`source_changes`).
     """
     project = Path(project)
     try:
         records = read_records(project)
     except WavetrailError:
         return []
-    out: list[tuple[str, str]] = []
-    seen: set[str] = set()
+    out: dict[str, str] = {}
     for rec in records:
         for e in rec["outputs"]:
             f = project / e["path"]
-            if f.is_file() and sha256_file(f) != e["sha256"] and e["path"] not in seen:
-                out.append((e["path"], "bytes differ from its ledger record"))
-                seen.add(e["path"])
+            if f.is_file() and sha256_file(f) != e["sha256"] and rec["step"] not in out:
+                out[rec["step"]] = f"{e['path']}: bytes differ from its ledger record"
     changes = source_changes(project, records, repo)
     for rec in records:
         changed = changes.get(rec["_file"])
-        if not changed:
-            continue
-        for e in rec["outputs"]:
-            if e["path"] not in seen and (project / e["path"]).is_file():
-                out.append((e["path"], f"{', '.join(changed[:2])} changed since {rec['step']} ran"))
-                seen.add(e["path"])
-    return out
+        if changed and rec["step"] not in out:
+            out[rec["step"]] = f"{', '.join(changed[:2])} changed since it ran"
+    return sorted(out.items())
 
 
 # -- reading ------------------------------------------------------------------------------

@@ -214,7 +214,7 @@ def _readme(title: str, commit: str, mode: str, standin: dict | None, withheld: 
 
 
 def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool = False,
-                 allow_disclosure: bool = False) -> Path:
+                 allow_disclosure: bool = False, min_cell: int | None = None, notes: list | None = None) -> Path:
     """Write the reviewer archive of a project.
 
     Parameters
@@ -231,6 +231,13 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
     allow_disclosure : bool
         Pack even when the disclosure check finds something (the findings
         are written into the archive).
+    min_cell : int, optional
+        Smallest count of people a packed file may show. Default: the
+        project's ``report.min_cell`` (the threshold the report suppresses
+        with), else 5.
+    notes : list, optional
+        Lines for the person packing are appended here (the small-cell
+        threshold and where it came from, the stand-in closeness figures).
 
     Returns
     -------
@@ -319,11 +326,25 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             withheld[rel] = {"sha256": registry.get(rel), "size": (root / rel).stat().st_size
                              if (root / rel).is_file() else None, "reason": "raw data kept by the authors"}
 
-    # -------- disclosure check on what would go out
+    # -------- disclosure check on every file that would go out
     panel = _load_panel(root, config, codebook)
-    min_cell = int((config.get("report") or {}).get("min_cell", 5))
-    outputs = {rel: f for rel, f in files.items() if rel.startswith("results/")}
-    report = check_outputs(outputs, codebook, panel.long, min_cell=min_cell, data_included=(data == "include"))
+    if min_cell is not None:
+        threshold, source = int(min_cell), "pack --min-cell"
+    else:
+        import yaml
+
+        written = yaml.safe_load((root / "config/config.yaml").read_text(encoding="utf-8")) or {}
+        said = isinstance(written.get("report"), dict) and "min_cell" in written["report"]
+        threshold = int((config.get("report") or {}).get("min_cell", 5))
+        source = ("report.min_cell in config/config.yaml, the threshold the report suppresses with" if said
+                  else "report.min_cell's default; set it in config/config.yaml or use pack --min-cell")
+    if threshold < 1:
+        raise UsageError(f"--min-cell {threshold}: give a count of at least 1")
+    say = notes.append if notes is not None else (lambda line: None)
+    say(f"disclosure check: {len(files)} files; small cells are counts below {threshold} ({source})")
+    outgoing = {rel: f for rel, f in files.items() if rel not in raw_paths}
+    report = check_outputs(outgoing, codebook, panel.long, min_cell=threshold, data_included=(data == "include"),
+                           min_cell_source=source)
     findings = report.findings.to_dict("records")
     if data == "include":
         tables = {}
@@ -338,7 +359,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             del files[rel]
     blocking = [f for f in findings if f["severity"] == BLOCK]
     if blocking and not allow_disclosure:
-        raise ArchiveError("the disclosure check found what an archive must not show:\n  "
+        raise ArchiveError(f"the disclosure check found what an archive (--data {data}) must not show:\n  "
                            + _short([f["message"] for f in blocking]),
                            hint="fix the outputs and rebuild, or pack anyway with --allow-disclosure "
                                 "(the findings are then listed in the archive)")
@@ -359,7 +380,8 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             "committed": when.isoformat(timespec="seconds"), "wavetrail": __version__, "mode": data,
             "registry": {p: registry[p] for p in sorted(registry)},
             "withheld": withheld, "standin": standin, "altered": altered,
-            "disclosure": {"min_cell": min_cell, "findings": findings, "allowed": bool(blocking)},
+            "disclosure": {"min_cell": threshold, "min_cell_source": source, "findings": findings,
+                           "allowed": bool(blocking)},
             "state": {"problems": problems, "allowed": bool(problems)},
         }
         write_json(staging / MANIFEST, manifest)
