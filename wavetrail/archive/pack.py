@@ -192,6 +192,9 @@ def _readme(title: str, commit: str, mode: str, standin: dict | None, withheld: 
                   "the ids are invented. Numbers rebuilt from it are not the study's results; the "
                   "results in `results/` were computed from the real data, which stay with the authors.",
                   ""]
+        near = standin.get("closeness") or {}
+        if near:
+            lines += ["> " + standin_mod.closeness_line(near), ""]
     lines += ["## Check it", "",
               "    wavetrail verify THIS-ARCHIVE            # integrity and provenance; runs no code from it",
               "    wavetrail verify THIS-ARCHIVE --rebuild  # also reruns the workflow (runs the authors' code:",
@@ -375,6 +378,12 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
         altered: dict[str, dict] = {}
         if data == "stand-in":
             standin, altered = _write_standin(root, staging, config, panel, raw_paths, registry)
+            near = standin["closeness"]
+            say(standin_mod.closeness_line(near))
+            too_close = standin_mod.closeness_problems(near)
+            if too_close:
+                raise ArchiveError("the stand-in rows are too close to the real rows:\n  " + _short(too_close),
+                                   hint="pack with --data exclude")
         manifest = {
             "schema": SCHEMA, "title": _title(config, codebook, root), "commit": commit,
             "committed": when.isoformat(timespec="seconds"), "wavetrail": __version__, "mode": data,
@@ -467,5 +476,5 @@ def _write_standin(root: Path, staging: Path, config: dict, panel, raw_paths: li
     load_config(staging)  # the rewritten settings must still be valid
     info = {"path": rel, "sha256": digest, "size": (staging / rel).stat().st_size, "replaces": raw_paths,
             "seed": seed, "rows": int(len(made.frame)), "note": standin_mod.NOTE,
-            "row_moves": int(made.redrawn)}
+            "row_moves": int(made.redrawn), "closeness": made.closeness}
     return info, altered
