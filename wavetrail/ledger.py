@@ -37,7 +37,9 @@ PACKAGES = (
 )
 
 RECORD_KEYS = ("schema", "step", "wildcards", "inputs", "outputs", "params", "seed", "started",
-               "finished", "python", "platform", "packages", "lock_sha256", "git", "wavetrail")
+               "finished", "python", "platform", "packages", "lock_sha256", "git", "wavetrail", "sources")
+#: keys every record must have (``sources`` came later: older records lack it)
+REQUIRED_KEYS = tuple(k for k in RECORD_KEYS if k != "sources")
 
 _SAFE = re.compile(r"[^A-Za-z0-9._=+-]+")
 
@@ -329,7 +331,7 @@ def read_records(project: str | Path) -> list[dict[str, Any]]:
         if not isinstance(rec, dict) or rec.get("schema") != SCHEMA:
             raise WavetrailError(f"{rel}: not a {SCHEMA} record",
                                  hint="delete it and run `wavetrail build` to rerun that job")
-        missing = [k for k in RECORD_KEYS if k not in rec]
+        missing = [k for k in REQUIRED_KEYS if k not in rec]
         if missing:
             raise WavetrailError(f"{rel}: ledger record lacks {', '.join(missing)}",
                                  hint="delete it and run `wavetrail build` to rerun that job")
