@@ -32,7 +32,7 @@ from wavetrail.errors import ArchiveError, WavetrailError
 
 from wavetrail.archive import compare as cmp
 from wavetrail.archive.bag import find_bag, read_bag_info, validate_bag
-from wavetrail.archive.pack import MANIFEST, SCHEMA
+from wavetrail.archive.pack import MANIFEST
 from wavetrail.archive.safe_extract import DEFAULT_LIMITS, Limits, safe_extract
 from wavetrail.archive.schema import (ARCHIVE_SCHEMA, BAG_INFO_KEYS, LEDGER_SCHEMA, PathProblem, payload_file,
                                       schema_problems)
