@@ -216,7 +216,7 @@ def test_added_unlisted_file_fails(archives, tmp_path):
     target = f"{TOP}/data/results/extra.csv"
     report = verify_archive(_tampered(archives, tmp_path, lambda m: m.__setitem__(target, b"a\n1\n")))
     assert not report.ok
-    assert f"{target}: in the archive but not listed in the manifest" in report.summary
+    assert f"{target}: in the archive but listed in no manifest" in report.summary
 
 
 def test_fetch_txt_is_rejected(archives, tmp_path):

@@ -43,6 +43,8 @@ def test_demo_archive_verifies(archives, mode):
     report = verify_archive(archives[mode])
     assert report.ok, report.summary
     assert (report.table["status"] == "fail").sum() == 0
+    # the demo's workflow is the one wavetrail ships, and verify says so before any rebuild
+    assert "code a rebuild would run: stock" in report.summary
 
 
 def test_demo_include_rebuild_is_identical(archives):
@@ -64,6 +66,7 @@ def test_demo_stand_in_rebuilds_end_to_end(archives):
     statuses = _rebuild_statuses(report)
     assert statuses.pop("workflow") == "ok"
     assert set(statuses.values()) == {"rebuilt on stand-in"}
+    assert "stand-in: the outputs were rebuilt on the STAND-IN rows and not compared" in report.summary
 
 
 def test_demo_report_shows_the_numbers_of_its_tables(demo):

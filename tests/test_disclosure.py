@@ -62,7 +62,7 @@ def test_cell_of_two_blocks_and_zero_does_not(tmp_path, real):
     small = report.blocking[report.blocking["check"] == "small cell"]
     assert len(small) == 1
     assert small.iloc[0]["row"] == 2 and small.iloc[0]["column"] == "n"
-    assert "count 2 is below report.min_cell = 5" in small.iloc[0]["message"]
+    assert "count 2 is below 5 (min_cell;" in small.iloc[0]["message"]
     # the threshold comes from the settings
     assert _check(tmp_path, real, {"results/checks/counts.csv": table}, min_cell=2).ok
     assert not _check(tmp_path, real, {"results/checks/counts.csv": table.assign(n=[40, 9, 0])},
@@ -159,3 +159,100 @@ def test_check_findings_table_is_diagnostics_not_cells(tmp_path, real):
     leaked = findings.assign(message=["1 value(s) outside 1..5", f"late entry of {email}"])
     report = _check(tmp_path, real, {"results/checks/findings.csv": leaked})
     assert list(report.blocking["check"]) == ["identifier value"]
+
+
+# ----------------------------------------------------------------------------- every packed file
+
+
+def _commit(root, files: dict) -> None:
+    import git
+
+    for rel, content in files.items():
+        path = root / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        if isinstance(content, pd.DataFrame):
+            write_table(path, content)
+        else:
+            path.write_text(content, encoding="utf-8")
+    repo = git.Repo(root)
+    repo.git.add("-A")
+    with repo.git.custom_environment(GIT_AUTHOR_NAME="t", GIT_AUTHOR_EMAIL="t@localhost",
+                                     GIT_COMMITTER_NAME="t", GIT_COMMITTER_EMAIL="t@localhost"):
+        repo.git.commit("-q", "-m", "add files", "--no-gpg-sign")
+
+
+def _refused(root, mode, tmp_path, capsys, *expected):
+    """pack refuses through the command line: exit 1, every expected text, no traceback."""
+    from wavetrail.cli import main
+
+    code = main(["pack", str(root), "--data", mode, "-o", str(tmp_path / f"{mode}.zip")])
+    out = capsys.readouterr()
+    text = " ".join((out.out + out.err).split())
+    assert code == 1 and "Traceback" not in text
+    for e in expected:
+        assert e in text, (e, text)
+    assert not (tmp_path / f"{mode}.zip").exists()
+    return text
+
+
+@pytest.mark.parametrize("mode", ["exclude", "stand-in"])
+def test_committed_raw_copy_outside_results_is_refused(tmp_path, capsys, mode):
+    root = make_project(tmp_path / "proj", n=120, email=True)
+    raw = pd.read_csv(root / "data/raw/panel.csv")
+    _commit(root, {"data/interim/cleaned.csv": raw})
+    _refused(root, mode, tmp_path, capsys, "data/interim/cleaned.csv",
+             "holds a value of an identifier variable", "column 'pid' holds",
+             "real person ids", "git rm --cached")
+
+
+@pytest.mark.parametrize("mode", ["exclude", "stand-in"])
+def test_near_copy_of_raw_rows_without_ids_is_refused(tmp_path, capsys, mode):
+    root = make_project(tmp_path / "proj", n=120, email=True)
+    raw = pd.read_csv(root / "data/raw/panel.csv").drop(columns=["pid", "email"])
+    near = raw.head(40).copy()
+    near["it2"] = near["it2"].map(lambda v: 1 if v != 1 else 2)  # one cell of every row changed
+    _commit(root, {"docs/appendix-rows.csv": near})
+    _refused(root, mode, tmp_path, capsys, "docs/appendix-rows.csv, row 1:", "differ in one cell",
+             "aggregate or drop these rows")
+
+
+def test_identifier_in_other_letter_case_is_refused(tmp_path, capsys):
+    root = make_project(tmp_path / "proj", n=120, email=True)
+    email = pd.read_csv(root / "data/raw/panel.csv")["email"].iloc[5]
+    _commit(root, {"docs/notes.md": f"# Notes\n\nfollow up {email.upper()} after wave 2\n"})
+    _refused(root, "exclude", tmp_path, capsys, "docs/notes.md, line 3: holds a value of an identifier")
+
+
+@pytest.mark.parametrize("mode", ["exclude", "stand-in"])
+def test_packed_small_cells_and_missing_counts_are_refused(tmp_path, capsys, mode):
+    desc = ("variable,wave,n,missing,levels\nstart,1,300,0,1:138; 2:160; 3:2\n"
+            "screen,1,299,1,\n")
+    root = make_project(tmp_path / "proj", n=120, email=False,
+                        extra_outputs={"results/checks/levels.csv": desc})
+    text = _refused(root, mode, tmp_path, capsys, "results/checks/levels.csv, row 1, column 'levels': packed count 3:2",
+                    "results/checks/levels.csv, row 2, column 'missing': count 1 is below 5",
+                    "report.min_cell in config/config.yaml")
+    assert "disclosure check:" in text and "small cells are counts below 5" in text
+    # the threshold can be set for packing alone, and the message says so
+    from wavetrail.cli import main
+
+    assert main(["pack", str(root), "--data", mode, "--min-cell", "1", "-o", str(tmp_path / "ok.zip")]) == 0
+    assert "counts below 1 (pack --min-cell)" in capsys.readouterr().out
+
+
+def test_packed_counts_parser():
+    from wavetrail.archive.disclosure import packed_counts
+
+    assert packed_counts("1:138; 2:160; 3:2") == [("1", 138), ("2", 160), ("3", 2)]
+    assert packed_counts("girl: 40, boy: 3") == [("girl", 40), ("boy", 3)]
+    assert packed_counts("12:30") is None  # a time, not a packed cell
+    assert packed_counts("see note 3") is None
+
+
+def test_raw_coded_copy_is_matched_with_missing_codes(tmp_path, real):
+    cb, panel = real
+    raw = make_panel(150, seed=2)  # the raw coding: -99 / -98 where the clean data hold NaN
+    rows = raw[["wave", "it1", "it2", "it3", "it4", "it5", "it6"]].head(60)
+    report = _check(tmp_path, real, {"docs/rows.csv": rows}, data_included=False)
+    hit = report.blocking[report.blocking["check"] == "raw row"]
+    assert len(hit) == 1 and hit.iloc[0]["file"] == "docs/rows.csv"

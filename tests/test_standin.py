@@ -3,6 +3,8 @@ structure and (within stated tolerances) the real correlations are kept."""
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -218,3 +220,110 @@ def test_wide_stand_in_ranges_rates_waves_and_correlations(made_wide):
     diff = np.abs(a - b)[off]
     # tolerance as for long data: mean absolute difference <= 0.05, largest <= 0.2
     assert diff.mean() <= 0.05 and diff.max() <= 0.2
+
+
+# ----------------------------------------------------------------------------- closeness to real rows
+
+
+def _brute_nearest(real_enc: pd.DataFrame, fake_enc: pd.DataFrame, wave: str = "wave") -> np.ndarray:
+    """Each stand-in row's distance (differing cells) to its nearest real row of the same wave, by loops."""
+    cols = [c for c in real_enc.columns if c not in (wave, "__row")]
+    out = []
+    for _, f in fake_enc.iterrows():
+        same = real_enc[real_enc[wave] == f[wave]]
+        out.append(min(int(sum(f[c] != r[c] for c in cols)) for _, r in same.iterrows()))
+    return np.array(out)
+
+
+def test_closeness_recovers_known_distances():
+    from wavetrail.archive.standin import closeness
+
+    # wave 1: real rows 0 and 1 lie one cell apart (not isolated); wave 2: one real row (isolated)
+    real = pd.DataFrame({"wave": ["1", "1", "2"], "a": ["1", "2", "3"], "b": ["1", "1", "NA"], "c": ["5", "5", "5"]})
+    fake = pd.DataFrame({"wave": ["1", "1", "2", "2"], "a": ["1", "3", "3", "1"], "b": ["2", "2", "NA", "1"],
+                         "c": ["5", "4", "4", "5"]})
+    near = closeness(real, fake, "wave")
+    expected = _brute_nearest(real, fake)
+    assert list(expected) == [1, 3, 1, 2]
+    assert near["within_one"] == 2 and near["share_within_one"] == 0.5
+    assert near["min_distance"] == 1 and near["median_distance"] == 1.5 and near["cells"] == 3
+    assert near["equal"] == 0
+    assert closeness(real, real.iloc[[0, 2]], "wave")["equal"] == 2
+    # real rows within one cell of another real row: 2 of 3; allowance = 0.10 + 3 binomial SEs over 4 rows
+    assert near["real_share_within_one"] == pytest.approx(2 / 3)
+    assert near["allowed_share"] == pytest.approx(min(1.0, 2 / 3 + 0.10 + 3 * np.sqrt(2 / 9 / 4)))
+
+
+def test_stand_in_rows_are_not_closer_to_real_rows_than_real_rows_are_to_each_other(made):
+    from wavetrail.archive.standin import _comparable_real, _encoded_frame, closeness, closeness_problems
+
+    cb, real, stand, again = made
+    vars_out = [v for v in cb.variables.values() if v.name not in ("pid", "wave")]
+    real_enc = _comparable_real(real.long, cb, "pid", "wave", vars_out)
+    fake_enc = _encoded_frame(again.long, cb, vars_out, "wave")
+    near = closeness(real_enc, fake_enc, "wave")
+    assert near == {k: stand.closeness[k] for k in near}  # the figures pack prints are these
+    assert near["equal"] == 0 and near["min_distance"] >= 1
+    assert near["share_within_one"] <= near["allowed_share"]
+    assert closeness_problems(near) == []
+    # an independent count by loops over a sample of stand-in rows: the same distances
+    sample = fake_enc.sample(60, random_state=3)
+    nearest = _brute_nearest(real_enc, sample)
+    assert nearest.min() >= near["min_distance"]
+    # with 7 to 9 five-level cells per row, closeness is natural: real rows are often one cell apart
+    assert near["real_share_within_one"] > 0.2
+    # a copy of real rows is refused by the same measure
+    copy = closeness(real_enc, real_enc.drop(columns="__row", errors="ignore"), "wave")
+    assert copy["equal"] == len(real_enc)
+    assert any("copy the real ones" in p for p in closeness_problems(copy))
+
+
+CODEBOOK_TEXT = CODEBOOK.replace(
+    "  - {name: email, label: Email, type: text, identifier: true}\n",
+    "  - {name: email, label: Email, type: text, identifier: true}\n"
+    "  - {name: remark, label: Remark at intake, type: text, waves: [1]}\n")
+
+
+def test_placeholders_follow_the_real_waves_and_fill_rates():
+    cb = parse_codebook(CODEBOOK_TEXT)
+    raw = make_panel(400, seed=8)
+    rng = np.random.default_rng(4)
+    first = raw["wave"] == 1
+    raw["remark"] = None
+    pick = raw.index[first][rng.random(int(first.sum())) < 0.10]
+    raw.loc[pick, "remark"] = "asked to skip item 3"
+    gone = rng.random(len(raw)) < 0.3
+    raw.loc[gone, "email"] = None
+    real = load_panel(raw, cb)
+    stand = synthesize(real, seed=5).frame
+    w = stand["wave"].to_numpy()
+    remark = stand["remark"].notna().to_numpy()
+    assert not remark[w != 1].any()  # measured once: written once
+    real_share = float(raw.loc[first, "remark"].notna().mean())
+    assert abs(remark[w == 1].mean() - real_share) < 1.0 / (w == 1).sum() + 1e-9
+    for wave in (1, 2, 3):
+        real_rate = float(raw.loc[raw["wave"] == wave, "email"].notna().mean())
+        made_rate = float(stand.loc[w == wave, "email"].notna().mean())
+        assert abs(made_rate - real_rate) <= 1.0 / (w == wave).sum() + 1e-9, (wave, made_rate, real_rate)
+    assert stand["remark"].dropna().str.startswith("[STAND-IN text").all()
+
+
+def test_pack_prints_the_closeness_and_refuses_above_the_threshold(tmp_path, capsys, monkeypatch):
+    import zipfile
+
+    from test_archive_helpers import make_project
+    from wavetrail.archive import standin as standin_mod
+    from wavetrail.cli import main
+
+    root = make_project(tmp_path / "proj", n=150, email=False)
+    assert main(["pack", str(root), "--data", "stand-in", "-o", str(tmp_path / "s.zip")]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    assert re.search(r"stand-in closeness: \d+ of \d+ stand-in rows", out) and "0 equal a real row" in out
+    with zipfile.ZipFile(tmp_path / "s.zip") as zf:
+        readme = zf.read("proj-stand-in/data/ARCHIVE-README.md").decode()
+    assert "stand-in closeness:" in readme and "0 equal a real row" in readme
+    monkeypatch.setattr(standin_mod, "FIT_MARGIN", -1.0)  # the allowance now lies below any share
+    code = main(["pack", str(root), "--data", "stand-in", "-o", str(tmp_path / "t.zip")])
+    text = " ".join(capsys.readouterr().err.split())
+    assert code == 1 and "too close to the real rows" in text and "Traceback" not in text
+    assert not (tmp_path / "t.zip").exists()

@@ -38,6 +38,10 @@ _LOG_LINE = re.compile(r"^\s*log:\s*(\S+)")
 _TOTAL = re.compile(r"^total\s+(\d+)\s*$")
 _FINISHED = re.compile(r"Finished jobid: \d+ \(Rule: (\w+)\)")
 _STEP_FAILED = re.compile(r"wavetrail step (\w+) failed: (.*)")
+#: Snakemake options that mean "list the jobs, run nothing"
+_DRY_RUN = ("-n", "--dry-run", "--dryrun")
+#: Snakemake options with which build does not add reruns of its own
+_NO_FORCE = ("--unlock", "--forceall", "-F", "--cleanup-metadata", "--list-rules", "--lint", "--delete-all-output")
 #: words of the message with which a step refuses findings that hold an error
 _CHECKS_FAILED = "with severity error, listed in"
 
@@ -59,6 +63,11 @@ class BuildResult:
         Snakemake's exit status (0 here; a failure raises :class:`BuildError`).
     log : Path
         The full Snakemake output (``logs/wavetrail-build.log``).
+    dry_run : bool
+        Snakemake only listed the jobs (``-- --dry-run``): ``jobs`` would run, nothing was built.
+    forced : list of str
+        Steps rerun because the ledger says they no longer match the committed project
+        (hand-edited, or recorded at a commit whose settings or workflow differ), with why.
     """
 
     project: Path
@@ -66,6 +75,8 @@ class BuildResult:
     seconds: float = 0.0
     returncode: int = 0
     log: Path | None = None
+    dry_run: bool = False
+    forced: list = field(default_factory=list)
 
     @property
     def up_to_date(self) -> bool:
@@ -81,6 +92,13 @@ class BuildResult:
         """A few lines for the terminal."""
         if self.up_to_date:
             head = f"nothing to do: every output of {self.project} is up to date ({self.seconds:.1f} s)"
+        elif self.dry_run:
+            counts = {}
+            for rule in self.jobs:
+                counts[rule] = counts.get(rule, 0) + 1
+            ran = ", ".join(f"{r}" + (f" x{c}" if c > 1 else "") for r, c in counts.items())
+            head = (f"dry run: nothing was built; {len(self.jobs)} job{'s' if len(self.jobs) != 1 else ''} "
+                    f"would run: {ran}")
         else:
             counts: dict[str, int] = {}
             for rule in self.jobs:
@@ -88,7 +106,10 @@ class BuildResult:
             ran = ", ".join(f"{r}" + (f" x{c}" if c > 1 else "") for r, c in counts.items())
             head = f"built {len(self.jobs)} job{'s' if len(self.jobs) != 1 else ''} in {self.seconds:.1f} s: {ran}"
         lines = [head]
-        if self.report is not None:
+        if self.forced:
+            lines.append("rerun because the ledger no longer matched the committed project: "
+                         + "; ".join(self.forced[:5]) + (" ..." if len(self.forced) > 5 else ""))
+        if self.report is not None and not self.dry_run:
             lines.append(f"report: {self.report}")
         return "\n".join(lines)
 
@@ -180,6 +201,18 @@ def build_project(
         raise UsageError(f"--cores must be at least 1, not {cores}")
     if check:
         _check_inputs(root)
+    extra = list(extra)
+    forced = []
+    if not any(a in _NO_FORCE for a in extra):
+        from wavetrail.ledger import rerun_targets
+        from wavetrail.registry import open_repo
+
+        forced = rerun_targets(root, open_repo(root))
+        if forced:
+            # outputs Snakemake sees as up to date that the ledger says are not (hand-edited, or
+            # computed before a committed change of settings, plan or workflow code): rerun their
+            # jobs and everything downstream
+            extra += ["--forcerun", *[step for step, _ in forced]]
     cmd = snakemake_command(root, cores=cores, profile=profile, extra=extra)
     env = dict(os.environ)
     bindir = str(Path(sys.executable).parent)
@@ -195,7 +228,10 @@ def build_project(
             _unlock(root, env)
             if progress:
                 progress(f"removed the Snakemake lock left by a build that was killed (pid {guard.stale_pid})")
-        return _run(root, cmd, env, log_path, progress, guard)
+        result = _run(root, cmd, env, log_path, progress, guard)
+    result.dry_run = any(a in _DRY_RUN for a in extra)
+    result.forced = [f"{step} ({why})" for step, why in forced]
+    return result
 
 
 def _run(root: Path, cmd: list[str], env: dict, log_path: Path, progress, guard) -> BuildResult:

@@ -38,12 +38,14 @@ ProjectArg = typer.Argument(Path("."), help="Project folder (default: the curren
 
 
 def print_table(df, title: str | None = None, max_rows: int = 60) -> None:
-    """Print a DataFrame as a plain rich table."""
-    table = Table(title=title, show_lines=False, header_style="bold")
+    """Print a DataFrame as a plain rich table (cells are text, never rich markup: ``[x]`` stays ``[x]``)."""
+    from rich.text import Text
+
+    table = Table(title=Text(title) if title else None, show_lines=False, header_style="bold")
     for col in df.columns:
-        table.add_column(str(col), overflow="fold")
+        table.add_column(Text(str(col)), overflow="fold")
     for _, row in df.head(max_rows).iterrows():
-        table.add_row(*["" if _isna(v) else str(v) for v in row.tolist()])
+        table.add_row(*[Text("" if _isna(v) else str(v)) for v in row.tolist()])
     console.print(table)
     if len(df) > max_rows:
         console.print(f"... {len(df) - max_rows} more rows")
@@ -111,7 +113,7 @@ def demo(
     root = make_demo(path)
     console.print(f"demo project written to {root} (the planted truth: docs/demo-truth.md); building ...")
     result = build_project(root, cores=cores, progress=_progress)
-    console.print(result.summary)
+    console.print(result.summary, markup=False)
 
 
 @app.command()
@@ -137,13 +139,19 @@ def build(
     """Rebuild every out-of-date output with Snakemake (extra arguments after -- go to Snakemake)."""
     from wavetrail.build import build_project
 
-    result = build_project(path, cores=cores, profile=profile, extra=list(ctx.args), progress=_progress)
-    console.print(result.summary)
+    extra = list(ctx.args)
+    if str(path).startswith("-"):
+        # `wavetrail build -- --dry-run`: after `--` the first word fills the path argument; it is
+        # a Snakemake option, not a folder, so the project is the current folder
+        extra = [str(path), *extra]
+        path = Path(".")
+    result = build_project(path, cores=cores, profile=profile, extra=extra, progress=_progress)
+    console.print(result.summary, markup=False)
 
 
 def _progress(line: str) -> None:
     """Print one progress line of a build."""
-    console.print(line)
+    console.print(line, markup=False)
 
 
 def _first_commit_note(root: Path, author: Optional[str]) -> str:
@@ -172,7 +180,7 @@ def data_add(
     from wavetrail.registry import register_files
 
     for line in register_files(project, files):
-        console.print(line)
+        console.print(line, markup=False)
 
 
 @data_app.command("status")
@@ -227,7 +235,7 @@ def plan_freeze(
     """Record the hashes of config and codebook as the analysis plan."""
     from wavetrail.plan import freeze_plan
 
-    console.print(freeze_plan(project, replace=replace))
+    console.print(freeze_plan(project, replace=replace), markup=False)
 
 
 @plan_app.command("diff")
@@ -249,14 +257,21 @@ def pack(
     output: Optional[Path] = typer.Option(None, "-o", "--output", help="Archive file (.zip or .tar.gz)."),
     allow_dirty: bool = typer.Option(False, "--allow-dirty", help="Pack even if the git tree has uncommitted changes."),
     allow_disclosure: bool = typer.Option(False, "--allow-disclosure", help="Pack even if the disclosure check finds something."),
+    min_cell: Optional[int] = typer.Option(None, "--min-cell", help="Smallest count of people a packed file may show (default: report.min_cell of the project, else 5)."),
 ):
     """Write the reviewer archive (BagIt bag with an RO-Crate)."""
     from wavetrail.archive import pack_project
 
     if data not in ("include", "exclude", "stand-in"):
         raise typer.BadParameter("--data must be include, exclude or stand-in")
-    out = pack_project(path, data=data, output=output, allow_dirty=allow_dirty, allow_disclosure=allow_disclosure)
-    console.print(f"archive written: {out}")
+    notes: list = []
+    try:
+        out = pack_project(path, data=data, output=output, allow_dirty=allow_dirty,
+                           allow_disclosure=allow_disclosure, min_cell=min_cell, notes=notes)
+    finally:
+        for line in notes:
+            console.print(line, markup=False)
+    console.print(f"archive written: {out}", markup=False)
 
 
 @app.command()
@@ -271,9 +286,10 @@ def verify(
 
     if rebuild:
         err_console.print(f"warning: {REBUILD_WARNING}")
-    report = verify_archive(archive, rebuild=rebuild, json_path=json_out, rtol=rtol)
+    report = verify_archive(archive, rebuild=rebuild, json_path=json_out, rtol=rtol,
+                            progress=lambda line: console.print(line, markup=False))
     print_table(report.table, title="Verification")
-    console.print(report.summary)
+    console.print(report.summary, markup=False)
     raise typer.Exit(0 if report.ok else 1)
 
 

@@ -37,7 +37,9 @@ PACKAGES = (
 )
 
 RECORD_KEYS = ("schema", "step", "wildcards", "inputs", "outputs", "params", "seed", "started",
-               "finished", "python", "platform", "packages", "lock_sha256", "git", "wavetrail")
+               "finished", "python", "platform", "packages", "lock_sha256", "git", "wavetrail", "sources")
+#: keys every record must have (``sources`` came later: older records lack it)
+REQUIRED_KEYS = tuple(k for k in RECORD_KEYS if k != "sources")
 
 _SAFE = re.compile(r"[^A-Za-z0-9._=+-]+")
 
@@ -173,6 +175,7 @@ def build_record(job, finished: str | None = None, facts: dict[str, Any] | None 
         "lock_sha256": facts["lock_sha256"],
         "git": git_state(project),
         "wavetrail": __version__,
+        "sources": source_files(project),
     }
 
 
@@ -184,6 +187,117 @@ def record_job(job) -> Path:
     record = build_record(job)
     path = Path(job.project) / LEDGER_DIR / record_name(job.step, job.wildcards)
     return write_json(path, record)
+
+
+# -- sources: the hand-written files a job's result may depend on ---------------------------
+
+#: folders of hand-written files (settings, codebook, plan, workflow code)
+SOURCE_FOLDERS = ("config", "workflow")
+#: sources that change how jobs are run, never what they compute
+NOT_RESULT_SOURCES = ("workflow/profiles/",)
+#: the analysis plan, and the steps that read it (the report shows deviations from the plan)
+PLAN_SOURCE = "config/plan.lock.json"
+PLAN_READERS = ("render_report",)
+
+
+def source_files(project: str | Path) -> dict[str, str]:
+    """``{path: sha256}`` of every file under ``config/`` and ``workflow/`` (no caches, temporaries)."""
+    project = Path(project)
+    out: dict[str, str] = {}
+    for folder in SOURCE_FOLDERS:
+        base = project / folder
+        for f in sorted(base.rglob("*")) if base.is_dir() else []:
+            rel = f.relative_to(project).as_posix()
+            parts = f.relative_to(project).parts
+            if ("__pycache__" in parts or any(x.startswith(".") for x in parts) or rel.endswith((".tmp", ".pyc"))
+                    or not f.is_file() or f.is_symlink()):
+                continue
+            out[rel] = sha256_file(f)
+    return out
+
+
+def _matters(rel: str, rec: dict[str, Any], inputs_anywhere: set[str]) -> bool:
+    """Whether a change of the source ``rel`` can change what the job of ``rec`` computed."""
+    if rel.startswith(NOT_RESULT_SOURCES):
+        return False
+    if rel == PLAN_SOURCE:
+        return rec.get("step") in PLAN_READERS
+    if rel in inputs_anywhere:
+        # a declared input (codebook, notebook): its hash is checked for the jobs that read it
+        return False
+    return True
+
+
+def source_changes(project: str | Path, records: list[dict[str, Any]], repo=None) -> dict[str, list[str]]:
+    """``{record file: [changed sources]}`` for jobs whose hand-written sources changed since they ran.
+
+    A record written by this version lists the sha256 of every file under
+    ``config/`` and ``workflow/`` at run time (``sources``); those are compared
+    with the files now. For older records without that list, the git commit
+    the job ran at is compared with ``HEAD`` (needs ``repo``). Either way only
+    changes that can change the job's result count: profiles never do; the
+    analysis plan only for the report; a file that is a declared input of a
+    job only through that job's input hashes; everything else under
+    ``config/`` (the settings) and ``workflow/`` (the code) always.
+    """
+    project = Path(project)
+    current = source_files(project)
+    inputs_anywhere = {e["path"] for r in records for e in r.get("inputs", [])}
+    head = None
+    if repo is not None:
+        try:
+            head = repo.head.commit if repo.head.is_valid() else None
+        except Exception:
+            head = None
+    diffs: dict[str, list[str]] = {}
+    out: dict[str, list[str]] = {}
+    for rec in records:
+        name = rec.get("_file", rec.get("step", "?"))
+        recorded = rec.get("sources")
+        if isinstance(recorded, dict):
+            changed = sorted(p for p in set(recorded) | set(current)
+                             if recorded.get(p) != current.get(p) and _matters(p, rec, inputs_anywhere))
+        else:
+            commit = (rec.get("git") or {}).get("commit")
+            if head is None or not commit or commit == head.hexsha:
+                continue
+            if commit not in diffs:
+                try:
+                    diff = repo.commit(commit).diff(head, paths=list(SOURCE_FOLDERS))
+                    diffs[commit] = sorted({d.b_path or d.a_path for d in diff})
+                except Exception:
+                    diffs[commit] = ["(commit not in this repository)"]
+            changed = [p for p in diffs[commit] if p.startswith("(") or _matters(p, rec, inputs_anywhere)]
+        if changed:
+            out[name] = changed
+    return out
+
+
+def rerun_targets(project: str | Path, repo=None) -> list[tuple[str, str]]:
+    """Steps ``wavetrail build`` must rerun although Snakemake sees their outputs as up to date.
+
+    ``[(step, why)]``, one entry per step (a rule name): steps with an output
+    whose bytes differ from its ledger record (edited by hand), and steps
+    whose settings, plan or workflow code changed since they ran
+    (:func:`source_changes`).
+    """
+    project = Path(project)
+    try:
+        records = read_records(project)
+    except WavetrailError:
+        return []
+    out: dict[str, str] = {}
+    for rec in records:
+        for e in rec["outputs"]:
+            f = project / e["path"]
+            if f.is_file() and sha256_file(f) != e["sha256"] and rec["step"] not in out:
+                out[rec["step"]] = f"{e['path']}: bytes differ from its ledger record"
+    changes = source_changes(project, records, repo)
+    for rec in records:
+        changed = changes.get(rec["_file"])
+        if changed and rec["step"] not in out:
+            out[rec["step"]] = f"{', '.join(changed[:2])} changed since it ran"
+    return sorted(out.items())
 
 
 # -- reading ------------------------------------------------------------------------------
@@ -217,7 +331,7 @@ def read_records(project: str | Path) -> list[dict[str, Any]]:
         if not isinstance(rec, dict) or rec.get("schema") != SCHEMA:
             raise WavetrailError(f"{rel}: not a {SCHEMA} record",
                                  hint="delete it and run `wavetrail build` to rerun that job")
-        missing = [k for k in RECORD_KEYS if k not in rec]
+        missing = [k for k in REQUIRED_KEYS if k not in rec]
         if missing:
             raise WavetrailError(f"{rel}: ledger record lacks {', '.join(missing)}",
                                  hint="delete it and run `wavetrail build` to rerun that job")

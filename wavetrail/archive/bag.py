@@ -125,13 +125,20 @@ def _read_manifest(path: Path, top: str) -> dict[str, str]:
     return entries
 
 
+TAG_FILES = ("bagit.txt", "bag-info.txt", f"manifest-{ALGORITHM}.txt")
+
+
 def validate_bag(bag_dir: Path, top: str) -> list[dict]:
     """Every problem with the bag: ``[{"target": member, "detail": text}]`` (empty when valid).
 
-    Checks, in order: no ``fetch.txt``; a sha256 manifest exists; every
-    payload file is listed and every listed file exists (names each one);
-    then ``bagit``'s full validation (every checksum recomputed, tag
-    manifests included; never the fast Payload-Oxum check alone).
+    Checks, in order: no ``fetch.txt``; a sha256 payload manifest and a
+    sha256 tag manifest exist, and the tag manifest lists ``bagit.txt``,
+    ``bag-info.txt`` and the payload manifest; every file of the bag, at
+    any level, is listed in one of the two manifests (the tag manifest
+    itself excepted) and every listed file exists (names each one);
+    ``bag-info.txt`` is UTF-8; then ``bagit``'s full validation (every
+    checksum recomputed, tag manifests included; never the fast
+    Payload-Oxum check alone).
     """
     bag_dir = Path(bag_dir)
     problems: list[dict] = []
@@ -140,19 +147,39 @@ def validate_bag(bag_dir: Path, top: str) -> list[dict]:
                  "detail": "the bag lists files to fetch from elsewhere (fetch.txt); a reviewer archive "
                            "must hold every file itself"}]
     manifest = bag_dir / f"manifest-{ALGORITHM}.txt"
+    tagmanifest = bag_dir / f"tagmanifest-{ALGORITHM}.txt"
     if not manifest.is_file():
         return [{"target": f"{top}/manifest-{ALGORITHM}.txt", "detail": "no sha256 payload manifest"}]
+    if not tagmanifest.is_file():
+        return [{"target": f"{top}/tagmanifest-{ALGORITHM}.txt",
+                 "detail": "no sha256 tag manifest: bag-info.txt and the payload manifest could be edited "
+                           "unnoticed (an archive written by `wavetrail pack` always has one)"}]
     try:
         listed = _read_manifest(manifest, top)
+        tags = _read_manifest(tagmanifest, top)
     except (ArchiveError, UnicodeDecodeError) as err:
-        return [{"target": f"{top}/{manifest.name}", "detail": str(err)}]
-    present = {rel for rel, _ in _files(bag_dir / "data")} if (bag_dir / "data").is_dir() else set()
-    present = {f"data/{rel}" for rel in present}
+        return [{"target": f"{top}/{manifest.name}", "detail": f"not a readable manifest ({err})"}]
+    for name in TAG_FILES:
+        if name not in tags:
+            problems.append({"target": f"{top}/{name}", "detail": f"not listed in {tagmanifest.name}"})
+    try:
+        (bag_dir / "bag-info.txt").read_bytes().decode("utf-8")
+    except UnicodeDecodeError as err:
+        problems.append({"target": f"{top}/bag-info.txt", "detail": f"not UTF-8 text ({err.reason} at byte "
+                                                                    f"{err.start})"})
+    except OSError:
+        problems.append({"target": f"{top}/bag-info.txt", "detail": "missing"})
+    present = {rel for rel, _ in _files(bag_dir)}
+    allowed = set(listed) | set(tags) | {tagmanifest.name}
     for rel in sorted(set(listed) - present):
         problems.append({"target": f"{top}/{rel}", "detail": "listed in the manifest but missing from the archive"})
-    for rel in sorted(present - set(listed)):
-        problems.append({"target": f"{top}/{rel}", "detail": "in the archive but not listed in the manifest "
+    for rel in sorted(set(tags) - present):
+        problems.append({"target": f"{top}/{rel}", "detail": "listed in the tag manifest but missing from the archive"})
+    for rel in sorted(present - allowed):
+        problems.append({"target": f"{top}/{rel}", "detail": "in the archive but listed in no manifest "
                                                              "(added after packing?)"})
+    if problems:
+        return problems
     try:
         bag = bagit.Bag(str(bag_dir))
         bag.validate(processes=1, fast=False)
@@ -166,19 +193,29 @@ def validate_bag(bag_dir: Path, top: str) -> list[dict]:
             problems.append({"target": target, "detail": str(d)})
         if not details and not problems:
             problems.append({"target": top, "detail": f"bag validation failed: {err.message}"})
-    except bagit.BagError as err:
+    except (bagit.BagError, UnicodeDecodeError, OSError, ValueError) as err:
         problems.append({"target": top, "detail": f"not a valid bag: {err}"})
     return problems
 
 
 def read_bag_info(bag_dir: Path) -> dict[str, str]:
-    """``bag-info.txt`` as a dict (first value of each key)."""
+    """``bag-info.txt`` as a dict (first value of each key).
+
+    Raises
+    ------
+    ArchiveError
+        When the file is not UTF-8 text.
+    """
     path = Path(bag_dir) / "bag-info.txt"
     info: dict[str, str] = {}
     if not path.is_file():
         return info
+    try:
+        text = path.read_bytes().decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise ArchiveError(f"bag-info.txt: not UTF-8 text ({err.reason} at byte {err.start})") from None
     key = None
-    for line in path.read_text(encoding="utf-8").splitlines():
+    for line in text.splitlines():
         if line[:1] in (" ", "\t") and key:
             info[key] += " " + line.strip()
             continue

@@ -7,24 +7,31 @@ Four checks, each finding naming the file, the column and the row:
     ``identifier: true`` (always blocks).
 ``identifier value``
     A value of an identifier variable (an e-mail address, a name, ...)
-    appears anywhere in a text output: tables, JSON, notebooks, HTML, SVG
-    (always blocks).
+    appears anywhere in a text file, in any letter case: tables, JSON,
+    notebooks, HTML, SVG, Markdown, YAML (always blocks).
 ``raw row``
-    A row of an output table repeats a real data row that is unique in the
-    raw data over at least three of its variables (blocks when the raw data
-    stay out of the archive).
+    A row of a table repeats a real data row that is unique in the raw data
+    over at least three of its variables, or differs from such a row in one
+    cell only (a near-copy) when the table shares at least four variables
+    with the data; declared missing codes count as missing (blocks when the
+    raw data stay out of the archive).
 ``person ids``
     Text names real person ids after the id column's name (``pid 10186``;
     blocks when the raw data stay out of the archive), or an output table is
     keyed by the study's person ids (e.g. per-person scores). With the raw data in the archive this adds nothing (``note``);
-    without it, such tables are person-level data too and are withheld from
-    the archive (hash only), like the raw files.
+    without it, such outputs under ``results/`` are person-level data too and
+    are withheld from the archive (hash only), like the raw files; any other
+    file keyed by person ids (a copy of the data under ``docs/``,
+    ``data/interim/``, ...) blocks.
 ``small cell``
-    A count below ``report.min_cell`` (default 5; suppressing counts below a
+    A count below the threshold ``min_cell`` (``wavetrail pack --min-cell``,
+    else the project's ``report.min_cell``, else 5; suppressing counts below a
     threshold such as 5 or 10 is common practice in statistical disclosure
-    control) in a count column — ``n``, ``count``, ``frequency`` or a column
-    starting with ``n_`` — of an output table (blocks). Zero is not a small
-    cell. A diagnostics table (the data checks' findings: columns ``check``,
+    control) in a count column — ``n``, ``count``, ``frequency``,
+    ``missing``, a column starting with ``n_`` or ending in ``_count`` —
+    or inside a packed cell of counts (``"1:138; 2:160; 3:2"``, the
+    ``levels`` of a descriptives table) of a table (blocks). Zero is not a
+    small cell. A diagnostics table (the data checks' findings: columns ``check``,
     ``severity``, ``count`` and ``message``) counts problem records, not people
     in a cell of a cross-tabulation, so its counts are not cells (``note``);
     it is still searched for identifier values, identifier columns and ids.
@@ -81,7 +88,20 @@ def is_count_column(name: str) -> bool:
     low = str(name).lower()
     if low in NOT_COUNTS:
         return False
-    return low in ("n", "count", "frequency", "freq") or low.startswith("n_") or low.endswith("_count")
+    return (low in ("n", "count", "frequency", "freq", "missing", "n_missing") or low.startswith("n_")
+            or low.endswith("_count"))
+
+
+#: a cell holding several "label:count" pairs, e.g. "1:138; 2:160; 3:2"
+_PACKED = re.compile(r"^\s*[^:;]{1,60}:\s*\d+\s*(?:[;,|]\s*[^:;]{1,60}:\s*\d+\s*)+$")
+_PAIR = re.compile(r"([^:;,|]{1,60}):\s*(\d+)")
+
+
+def packed_counts(cell) -> list[tuple[str, int]] | None:
+    """The ``(label, count)`` pairs of a packed cell such as ``"1:138; 2:160; 3:2"`` (else None)."""
+    if not isinstance(cell, str) or not _PACKED.match(cell):
+        return None
+    return [(m.group(1).strip(), int(m.group(2))) for m in _PAIR.finditer(cell)]
 
 
 def is_diagnostics_table(table: pd.DataFrame) -> bool:
@@ -111,7 +131,7 @@ def _identifier_values(long: pd.DataFrame, names: list[str]) -> list[str]:
 def _value_pattern(values: list[str]) -> re.Pattern | None:
     if not values:
         return None
-    return re.compile("|".join(re.escape(v) for v in values))
+    return re.compile("|".join(re.escape(v) for v in values), re.IGNORECASE)
 
 
 def _cell_text(series: pd.Series) -> np.ndarray:
@@ -150,7 +170,7 @@ def _ids_named_in_text(text: str, sid: str, real_ids: set) -> tuple[int, list[st
 
 
 def check_outputs(files: dict, codebook, long: pd.DataFrame, min_cell: int = 5,
-                  data_included: bool = True) -> DisclosureReport:
+                  data_included: bool = True, min_cell_source: str = "min_cell") -> DisclosureReport:
     """Run the disclosure checks over output files.
 
     Parameters
@@ -167,6 +187,15 @@ def check_outputs(files: dict, codebook, long: pd.DataFrame, min_cell: int = 5,
     data_included : bool
         Whether the raw data go into the archive (then person-keyed tables
         are only noted, not withheld).
+    min_cell_source : str
+        Where ``min_cell`` came from, named in the small-cell findings
+        (e.g. ``"report.min_cell in config/config.yaml"``).
+
+    Notes
+    -----
+    Person-keyed tables under ``results/`` (recorded outputs) are listed in
+    ``person_level`` so that pack can withhold them; any other file keyed by
+    person ids blocks when the raw data stay out.
 
     Returns
     -------
@@ -220,6 +249,13 @@ def check_outputs(files: dict, codebook, long: pd.DataFrame, min_cell: int = 5,
             vals = [v for v in _cell_text(table[col]) if v is not None]
             overlap = sum(v in real_ids for v in vals)
             if vals and overlap >= max(1, len(vals) // 2) and overlap >= min(min_cell, len(real_ids)):
+                if not data_included and not rel.startswith("results/"):
+                    findings.append(_finding(
+                        "person ids", BLOCK, rel, str(col), "",
+                        f"{rel}: column {col!r} holds {overlap} real person ids; it is person-level data "
+                        "outside results/. Remove it from the repository (git rm --cached, list it in "
+                        ".gitignore), or register it as raw data, then commit"))
+                    break
                 person_level.append(rel)
                 if data_included:
                     msg = (f"{rel}: column {col!r} holds {overlap} person ids; the raw data are in the "
@@ -236,39 +272,93 @@ def check_outputs(files: dict, codebook, long: pd.DataFrame, min_cell: int = 5,
             key = tuple(sorted(map(str, shared)))
             if key not in unique_rows_cache:
                 real = pd.DataFrame({c: _real_text(long, c, codebook.variables.get(c)) for c in key})
-                counts = real.value_counts(dropna=False)
-                unique_rows_cache[key] = {tuple(idx) for idx, cnt in counts.items() if cnt == 1
-                                          and sum(x is not None and x == x for x in idx) >= _MIN_SHARED}
-            uniques = unique_rows_cache[key]
+                unique_rows_cache[key] = _unique_keys(real, key)
+            uniques, near = unique_rows_cache[key]
             if uniques:
-                out = pd.DataFrame({c: _cell_text(table[c]) for c in key})
+                out = pd.DataFrame({c: _cell_text(_without_codes(table[c], codebook.variables.get(c)))
+                                    for c in key})
+                exact, close, first = 0, 0, None
                 for i, row in enumerate(out.itertuples(index=False, name=None)):
                     if row in uniques:
-                        findings.append(_finding(
-                            "raw row", NOTE if data_included else BLOCK, rel, ", ".join(key), i + 1,
-                            f"{rel}, row {i + 1}: repeats a real data row that is unique over "
-                            f"{', '.join(key)}; " + ("the raw data are in the archive, so this adds nothing"
-                                                     if data_included else "aggregate or drop these rows")))
-                        break
+                        exact += 1
+                        first = first if first is not None else i
+                    elif near and any(row[:j] + row[j + 1:] in near[j] for j in range(len(key))):
+                        close += 1
+                        first = first if first is not None else i
+                if first is not None:
+                    findings.append(_finding(
+                        "raw row", NOTE if data_included else BLOCK, rel, ", ".join(key), first + 1,
+                        f"{rel}, row {first + 1}: {exact} row(s) repeat and {close} differ in one cell from "
+                        f"real data rows that are unique over {', '.join(key)}; "
+                        + ("the raw data are in the archive, so this adds nothing" if data_included
+                           else "aggregate or drop these rows, or remove the file from the repository")))
         if rel not in person_level and is_diagnostics_table(table):
             findings.append(_finding(
                 "small cell", NOTE, rel, "count", "",
                 f"{rel}: a diagnostics table (check findings); its counts are numbers of problem "
                 "records, not cells of a table of people, and are not held to report.min_cell"))
             continue
+        if rel in person_level:
+            continue
         for col in table.columns:
-            if rel in person_level or not is_count_column(col):
+            if is_count_column(col):
+                num = pd.to_numeric(table[col], errors="coerce").to_numpy(dtype=float)
+                whole = num[~np.isnan(num)]
+                if whole.size and not np.all(whole == np.round(whole)):
+                    continue  # shares or means, not counts
+                small = np.flatnonzero((num > 0) & (num < min_cell))
+                if small.size:
+                    i = int(small[0])
+                    findings.append(_finding("small cell", BLOCK, rel, str(col), i + 1,
+                                             f"{rel}, row {i + 1}, column {col!r}: count {num[i]:g} is below "
+                                             f"{min_cell} ({min_cell_source}; {small.size} such cell(s)); "
+                                             "suppress or merge them, then rebuild"))
                 continue
-            num = pd.to_numeric(table[col], errors="coerce").to_numpy(dtype=float)
-            small = np.flatnonzero((num > 0) & (num < min_cell))
-            if small.size:
-                i = int(small[0])
-                findings.append(_finding("small cell", BLOCK, rel, str(col), i + 1,
-                                         f"{rel}, row {i + 1}, column {col!r}: count {num[i]:g} is below "
-                                         f"report.min_cell = {min_cell} ({small.size} such cell(s)); "
-                                         "suppress or merge them"))
+            if table[col].dtype == object or pd.api.types.is_string_dtype(table[col].dtype):
+                hits = []
+                for i, cell in enumerate(table[col].tolist()):
+                    pairs = packed_counts(cell)
+                    if pairs:
+                        hits += [(i, label, n) for label, n in pairs if 0 < n < min_cell]
+                if hits:
+                    i, label, n = hits[0]
+                    findings.append(_finding("small cell", BLOCK, rel, str(col), i + 1,
+                                             f"{rel}, row {i + 1}, column {col!r}: packed count {label}:{n} is "
+                                             f"below {min_cell} ({min_cell_source}; {len(hits)} such count(s) "
+                                             "in packed cells); suppress or merge those categories, then "
+                                             "rebuild"))
     frame = pd.DataFrame(findings, columns=FINDING_COLUMNS)
     return DisclosureReport(findings=frame, person_level=sorted(set(person_level)))
+
+
+def _without_codes(series: pd.Series, var) -> pd.Series:
+    """Declared missing codes of ``var`` as missing, so a raw-coded copy compares with the clean data."""
+    if var is None or not getattr(var, "missing", None):
+        return series
+    codes = {str(k) for k in var.missing} | {f"{float(k):.10g}" for k in var.missing
+                                             if isinstance(k, (int, float)) and not isinstance(k, bool)}
+    text = series.astype(object).map(lambda v: None if v is None or v != v else str(v).strip())
+    num = pd.to_numeric(series, errors="coerce")
+    as_num = num.map(lambda v: None if v != v else f"{v:.10g}")
+    hit = text.isin(codes) | as_num.isin(codes)
+    return series.where(~hit.to_numpy(), None)
+
+
+def _unique_keys(real: pd.DataFrame, key: tuple) -> tuple[set, list]:
+    """Real rows unique over ``key`` (with at least three observed cells) and, per left-out column,
+    the rows unique over the others (for near-copies; only with four or more columns)."""
+    def uniques(frame: pd.DataFrame, min_seen: int) -> set:
+        counts = frame.value_counts(dropna=False)
+        return {tuple(idx) for idx, cnt in counts.items() if cnt == 1
+                and sum(x is not None and x == x for x in idx) >= min_seen}
+
+    exact = uniques(real, _MIN_SHARED)
+    near: list = []
+    if len(key) >= _MIN_SHARED + 1:
+        for j in range(len(key)):
+            sub = real.drop(columns=[key[j]])
+            near.append(uniques(sub, _MIN_SHARED))
+    return exact, near
 
 
 def check_raw_files(files: dict, codebook, tables: dict) -> list[dict]:

@@ -127,21 +127,11 @@ def state_problems(root: Path, repo, records: list[dict]) -> list[str]:
                     problems.append(f"{name}: input {e['path']} was rewritten after this job ran (stale)")
             elif f.is_file() and e.get("sha256") and sha256_file(f) != e["sha256"]:
                 problems.append(f"{name}: input {e['path']} has changed since this job ran (stale)")
-    head = repo.head.commit
-    checked: dict[str, list[str]] = {}
-    for rec in records:
-        commit = (rec.get("git") or {}).get("commit")
-        if not commit or commit == head.hexsha:
-            continue
-        if commit not in checked:
-            try:
-                diff = repo.commit(commit).diff(head, paths=list(CODE_PATHS))
-                checked[commit] = sorted({d.b_path or d.a_path for d in diff})
-            except Exception:
-                checked[commit] = ["(commit not in this repository)"]
-        if checked[commit]:
-            problems.append(f"{rec.get('_file', rec['step'])}: ran at commit {commit[:10]}; since then "
-                            f"{', '.join(checked[commit][:3])} changed")
+    from wavetrail.ledger import source_changes
+
+    for name, changed in sorted(source_changes(root, records, repo).items()):
+        problems.append(f"{name}: its settings, plan or workflow changed since the job ran "
+                        f"({', '.join(changed[:3])}{' ...' if len(changed) > 3 else ''})")
     return problems
 
 
@@ -202,6 +192,9 @@ def _readme(title: str, commit: str, mode: str, standin: dict | None, withheld: 
                   "the ids are invented. Numbers rebuilt from it are not the study's results; the "
                   "results in `results/` were computed from the real data, which stay with the authors.",
                   ""]
+        near = standin.get("closeness") or {}
+        if near:
+            lines += ["> " + standin_mod.closeness_line(near), ""]
     lines += ["## Check it", "",
               "    wavetrail verify THIS-ARCHIVE            # integrity and provenance; runs no code from it",
               "    wavetrail verify THIS-ARCHIVE --rebuild  # also reruns the workflow (runs the authors' code:",
@@ -224,7 +217,7 @@ def _readme(title: str, commit: str, mode: str, standin: dict | None, withheld: 
 
 
 def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool = False,
-                 allow_disclosure: bool = False) -> Path:
+                 allow_disclosure: bool = False, min_cell: int | None = None, notes: list | None = None) -> Path:
     """Write the reviewer archive of a project.
 
     Parameters
@@ -241,6 +234,13 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
     allow_disclosure : bool
         Pack even when the disclosure check finds something (the findings
         are written into the archive).
+    min_cell : int, optional
+        Smallest count of people a packed file may show. Default: the
+        project's ``report.min_cell`` (the threshold the report suppresses
+        with), else 5.
+    notes : list, optional
+        Lines for the person packing are appended here (the small-cell
+        threshold and where it came from, the stand-in closeness figures).
 
     Returns
     -------
@@ -270,8 +270,11 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
                            hint="build the project first with `wavetrail build`")
     problems = state_problems(root, repo, records)
     if problems and not allow_dirty:
+        uncommitted = any("uncommitted change" in p or "not committed" in p for p in problems)
+        hint = ("commit your changes, run `wavetrail build` (it reruns every job listed here), then pack again"
+                if uncommitted else "run `wavetrail build` (it reruns every job listed here), then pack again")
         raise ArchiveError("the project's committed state does not match its results:\n  " + _short(problems),
-                           hint="commit your changes and run `wavetrail build`, or pack anyway with --allow-dirty")
+                           hint=hint + "; or pack anyway with --allow-dirty")
     head = repo.head.commit
     commit = head.hexsha
     when = head.committed_datetime.astimezone(timezone.utc)
@@ -326,11 +329,25 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             withheld[rel] = {"sha256": registry.get(rel), "size": (root / rel).stat().st_size
                              if (root / rel).is_file() else None, "reason": "raw data kept by the authors"}
 
-    # -------- disclosure check on what would go out
+    # -------- disclosure check on every file that would go out
     panel = _load_panel(root, config, codebook)
-    min_cell = int((config.get("report") or {}).get("min_cell", 5))
-    outputs = {rel: f for rel, f in files.items() if rel.startswith("results/")}
-    report = check_outputs(outputs, codebook, panel.long, min_cell=min_cell, data_included=(data == "include"))
+    if min_cell is not None:
+        threshold, source = int(min_cell), "pack --min-cell"
+    else:
+        import yaml
+
+        written = yaml.safe_load((root / "config/config.yaml").read_text(encoding="utf-8")) or {}
+        said = isinstance(written.get("report"), dict) and "min_cell" in written["report"]
+        threshold = int((config.get("report") or {}).get("min_cell", 5))
+        source = ("report.min_cell in config/config.yaml, the threshold the report suppresses with" if said
+                  else "report.min_cell's default; set it in config/config.yaml or use pack --min-cell")
+    if threshold < 1:
+        raise UsageError(f"--min-cell {threshold}: give a count of at least 1")
+    say = notes.append if notes is not None else (lambda line: None)
+    say(f"disclosure check: {len(files)} files; small cells are counts below {threshold} ({source})")
+    outgoing = {rel: f for rel, f in files.items() if rel not in raw_paths}
+    report = check_outputs(outgoing, codebook, panel.long, min_cell=threshold, data_included=(data == "include"),
+                           min_cell_source=source)
     findings = report.findings.to_dict("records")
     if data == "include":
         tables = {}
@@ -345,7 +362,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             del files[rel]
     blocking = [f for f in findings if f["severity"] == BLOCK]
     if blocking and not allow_disclosure:
-        raise ArchiveError("the disclosure check found what an archive must not show:\n  "
+        raise ArchiveError(f"the disclosure check found what an archive (--data {data}) must not show:\n  "
                            + _short([f["message"] for f in blocking]),
                            hint="fix the outputs and rebuild, or pack anyway with --allow-disclosure "
                                 "(the findings are then listed in the archive)")
@@ -361,12 +378,19 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
         altered: dict[str, dict] = {}
         if data == "stand-in":
             standin, altered = _write_standin(root, staging, config, panel, raw_paths, registry)
+            near = standin["closeness"]
+            say(standin_mod.closeness_line(near))
+            too_close = standin_mod.closeness_problems(near)
+            if too_close:
+                raise ArchiveError("the stand-in rows are too close to the real rows:\n  " + _short(too_close),
+                                   hint="pack with --data exclude")
         manifest = {
             "schema": SCHEMA, "title": _title(config, codebook, root), "commit": commit,
             "committed": when.isoformat(timespec="seconds"), "wavetrail": __version__, "mode": data,
             "registry": {p: registry[p] for p in sorted(registry)},
             "withheld": withheld, "standin": standin, "altered": altered,
-            "disclosure": {"min_cell": min_cell, "findings": findings, "allowed": bool(blocking)},
+            "disclosure": {"min_cell": threshold, "min_cell_source": source, "findings": findings,
+                           "allowed": bool(blocking)},
             "state": {"problems": problems, "allowed": bool(problems)},
         }
         write_json(staging / MANIFEST, manifest)
@@ -452,5 +476,5 @@ def _write_standin(root: Path, staging: Path, config: dict, panel, raw_paths: li
     load_config(staging)  # the rewritten settings must still be valid
     info = {"path": rel, "sha256": digest, "size": (staging / rel).stat().st_size, "replaces": raw_paths,
             "seed": seed, "rows": int(len(made.frame)), "note": standin_mod.NOTE,
-            "row_moves": int(made.redrawn)}
+            "row_moves": int(made.redrawn), "closeness": made.closeness}
     return info, altered

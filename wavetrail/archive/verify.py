@@ -32,8 +32,10 @@ from wavetrail.errors import ArchiveError, WavetrailError
 
 from wavetrail.archive import compare as cmp
 from wavetrail.archive.bag import find_bag, read_bag_info, validate_bag
-from wavetrail.archive.pack import MANIFEST, SCHEMA
+from wavetrail.archive.pack import MANIFEST
 from wavetrail.archive.safe_extract import DEFAULT_LIMITS, Limits, safe_extract
+from wavetrail.archive.schema import (ARCHIVE_SCHEMA, BAG_INFO_KEYS, LEDGER_SCHEMA, PathProblem, payload_file,
+                                      schema_problems)
 
 OK, FAIL, WARN, NOTE = "ok", "fail", "warn", "note"
 COLUMNS = ["check", "target", "status", "detail"]
@@ -97,6 +99,12 @@ def _finish(rows: _Rows, json_path, details: dict, rebuild: bool, archive: Path)
         lines.append(f"  {r['status']}: {r['target']}: {r['detail']}")
     if len(bad) > 10:
         lines.append(f"  ... and {len(bad) - 10} more")
+    if details.get("code"):
+        lines.append(details["code"]["headline"])
+    if details.get("standin_rebuilt"):
+        lines.append("stand-in: the outputs were rebuilt on the STAND-IN rows and not compared with the "
+                     "archived results (those come from the real data); the rebuild shows only that the "
+                     "workflow runs end to end")
     if rebuild:
         lines.append("note: " + REBUILD_WARNING)
     report = VerifyReport(table=table, summary="\n".join(lines), ok=ok, details=details)
@@ -106,7 +114,7 @@ def _finish(rows: _Rows, json_path, details: dict, rebuild: bool, archive: Path)
 
 
 def verify_archive(archive, rebuild: bool = False, json_path=None, rtol: float = 1e-6,
-                   limits: Limits = DEFAULT_LIMITS, cores: int = 1) -> VerifyReport:
+                   limits: Limits = DEFAULT_LIMITS, cores: int = 1, progress=None) -> VerifyReport:
     """Verify a reviewer archive.
 
     Parameters
@@ -124,6 +132,9 @@ def verify_archive(archive, rebuild: bool = False, json_path=None, rtol: float =
         Extraction limits (members, bytes, compression ratio).
     cores : int
         Cores for the rebuild.
+    progress : callable, optional
+        Called with a line of text before the rebuild starts (what code it
+        would run: stock, or the files the authors added or changed).
 
     Returns
     -------
@@ -164,42 +175,156 @@ def verify_archive(archive, rebuild: bool = False, json_path=None, rtol: float =
         manifest = _read_manifest(payload, rows)
         if manifest is None:
             return _finish(rows, json_path, details, rebuild, archive)
-        info = read_bag_info(bag)
+        try:
+            info = read_bag_info(bag)
+        except ArchiveError as err:
+            rows.add("bag", "bag-info.txt", FAIL, str(err))
+            return _finish(rows, json_path, details, rebuild, archive)
         rows.add("archive", top, NOTE,
-                 f"{manifest.get('title')} at commit {str(manifest.get('commit'))[:10]}, raw data mode "
-                 f"{manifest.get('mode')}, packed by wavetrail {manifest.get('wavetrail')}")
-        if manifest.get("mode") == "stand-in" and "Stand-In-Data" not in info:
-            rows.add("archive", "bag-info.txt", FAIL, "stand-in archive without the Stand-In-Data label")
-        if info.get("Raw-Data-Mode") != manifest.get("mode"):
-            rows.add("archive", "bag-info.txt", FAIL, f"Raw-Data-Mode {info.get('Raw-Data-Mode')!r} differs from "
-                                                      f"the archive description ({manifest.get('mode')!r})")
-        records = _check_ledger(payload, manifest, rows)
-        _check_crate(payload, records, rows)
-        _check_environment(payload, records, rows, details)
-        for f in (manifest.get("disclosure") or {}).get("findings", []):
+                 f"{manifest['title']} at commit {manifest['commit'][:10]}, raw data mode "
+                 f"{manifest['mode']}, packed by wavetrail {manifest['wavetrail']}")
+        _check_bag_info(info, manifest, rows)
+        details["packed_by"] = manifest["wavetrail"]
+        records = _guarded(rows, "ledger", lambda: _check_ledger(payload, manifest, rows), [])
+        _guarded(rows, "crate", lambda: _check_crate(payload, records, rows), None)
+        _guarded(rows, "environment", lambda: _check_environment(payload, records, rows, details), None)
+        code = _guarded(rows, "code", lambda: _check_code(payload, manifest, rows, details), None)
+        for f in manifest["disclosure"].get("findings", []):
             if f.get("severity") == "block":
-                rows.add("disclosure", f.get("file") or "", WARN, "accepted by the authors: " + f.get("message", ""))
-        if manifest.get("state", {}).get("allowed"):
-            rows.add("state", top, WARN, "packed with --allow-dirty: " + "; ".join(manifest["state"]["problems"][:3]))
+                rows.add("disclosure", str(f.get("file") or ""), WARN,
+                         "accepted by the authors: " + str(f.get("message", "")))
+        if manifest["state"].get("allowed"):
+            rows.add("state", top, WARN, "packed with --allow-dirty: "
+                     + "; ".join(manifest["state"].get("problems", [])[:3]))
         if rebuild:
-            _rebuild(payload, manifest, records, Path(tmp), rows, rtol, cores)
+            if progress is not None and code is not None:
+                progress(code.headline())
+            _guarded(rows, "rebuild", lambda: _rebuild(payload, manifest, records, Path(tmp), rows, rtol, cores),
+                     None)
+            details["standin_rebuilt"] = any(r["status"] == "rebuilt on stand-in" for r in rows.rows)
     return _finish(rows, json_path, details, rebuild, archive)
 
 
 def _read_manifest(payload: Path, rows: _Rows) -> dict | None:
-    path = payload / MANIFEST
-    if not path.is_file():
+    try:
+        path = payload_file(payload, MANIFEST)
+    except PathProblem as err:
+        rows.add("archive", f"data/{MANIFEST}", FAIL, str(err))
+        return None
+    if path is None:
         rows.add("archive", f"data/{MANIFEST}", FAIL, "missing: not an archive written by `wavetrail pack`")
         return None
     try:
-        manifest = json.loads(path.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as err:
+        manifest = json.loads(path.read_bytes().decode("utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError, RecursionError) as err:
         rows.add("archive", f"data/{MANIFEST}", FAIL, f"not readable JSON ({err})")
         return None
-    if not isinstance(manifest, dict) or manifest.get("schema") != SCHEMA:
-        rows.add("archive", f"data/{MANIFEST}", FAIL, f"not a {SCHEMA} description")
+    problems = schema_problems(manifest, ARCHIVE_SCHEMA, f"data/{MANIFEST}")
+    if problems:
+        for text in problems[:20]:
+            rows.add("archive", f"data/{MANIFEST}", FAIL, f"malformed archive description: {text}")
+        return None
+    for kind in ("registry", "withheld", "altered"):
+        for rel in manifest[kind]:
+            if _unsafe(rel, rows, "archive", f"data/{MANIFEST} ({kind})"):
+                return None
+    standin = manifest["standin"]
+    if standin is not None:
+        for rel in [standin["path"], *standin.get("replaces", [])]:
+            if _unsafe(rel, rows, "archive", f"data/{MANIFEST} (standin)"):
+                return None
+    if (manifest["mode"] == "stand-in") != (standin is not None):
+        rows.add("archive", f"data/{MANIFEST}", FAIL, f"mode {manifest['mode']!r} does not fit its stand-in entry")
         return None
     return manifest
+
+
+def _unsafe(rel, rows: _Rows, check: str, where: str) -> bool:
+    """Record a FAIL row when ``rel`` is not a safe path inside the archive."""
+    from wavetrail.archive.schema import check_rel
+
+    try:
+        check_rel(rel)
+    except PathProblem as err:
+        rows.add(check, str(rel)[:200], FAIL, f"{where}: {err}")
+        return True
+    return False
+
+
+def _check_bag_info(info: dict, manifest: dict, rows: _Rows) -> None:
+    """bag-info.txt must say what the archive description says (commit, mode, version, title)."""
+    bad = False
+    for key, field_name in BAG_INFO_KEYS.items():
+        if info.get(key) != str(manifest[field_name]):
+            rows.add("bag", "bag-info.txt", FAIL, f"{key} {info.get(key)!r} differs from the archive "
+                                                  f"description's {field_name} ({manifest[field_name]!r})")
+            bad = True
+    if info.get("External-Identifier") != f"git:{manifest['commit']}":
+        rows.add("bag", "bag-info.txt", FAIL, f"External-Identifier {info.get('External-Identifier')!r} differs "
+                                              f"from the archive's commit")
+        bad = True
+    if manifest["mode"] == "stand-in" and "Stand-In-Data" not in info:
+        rows.add("bag", "bag-info.txt", FAIL, "stand-in archive without the Stand-In-Data label")
+        bad = True
+    if not bad:
+        rows.add("bag", "bag-info.txt", OK, "commit, raw data mode, version and title agree with the archive's "
+                                            "own description")
+
+
+def _guarded(rows: _Rows, check: str, run, default):
+    """Run one check; anything unforeseen becomes a named finding instead of a traceback."""
+    try:
+        return run()
+    except PathProblem as err:
+        rows.add(check, "archive", FAIL, f"refused to read a path: {err}")
+    except WavetrailError as err:
+        rows.add(check, "archive", FAIL, str(err))
+    except Exception as err:  # malformed content the schemas did not foresee: a finding, never a traceback
+        rows.add(check, "archive", FAIL, f"the archive could not be checked here ({type(err).__name__}: "
+                                         f"{str(err)[:200]}); treat it as not verified")
+    return default
+
+
+def _read_records(payload: Path, rows: _Rows) -> list[dict] | None:
+    """The ledger records, each validated against the ledger schema and its paths confined."""
+    folder = payload / "results" / "ledger"
+    if not folder.is_dir() or folder.is_symlink():
+        return []
+    records = []
+    ok = True
+    for path in sorted(folder.iterdir()):
+        rel = path.relative_to(payload).as_posix()
+        if path.name.startswith(".") or path.suffix != ".json":
+            continue
+        try:
+            f = payload_file(payload, rel)
+            rec = json.loads(f.read_bytes().decode("utf-8")) if f is not None else None
+        except PathProblem as err:
+            rows.add("ledger", rel, FAIL, str(err))
+            ok = False
+            continue
+        except (json.JSONDecodeError, UnicodeDecodeError, RecursionError) as err:
+            rows.add("ledger", rel, FAIL, f"not a readable ledger record ({err})")
+            ok = False
+            continue
+        problems = schema_problems(rec, LEDGER_SCHEMA, rel)
+        if problems:
+            for text in problems[:5]:
+                rows.add("ledger", rel, FAIL, f"malformed ledger record: {text}")
+            ok = False
+            continue
+        if any(_unsafe(e["path"], rows, "ledger", rel) for e in rec["inputs"] + rec["outputs"]):
+            ok = False
+            continue
+        rec["_file"] = rel
+        records.append(rec)
+    return records if ok else None
+
+
+def _hash_of(payload: Path, rel: str) -> str | None:
+    """sha256 of a regular file inside the payload (``None`` when absent); never leaves the payload."""
+    f = payload_file(payload, rel)
+    return None if f is None else sha256_file(f)
 
 
 def _registry(payload: Path) -> dict[str, str]:
@@ -210,12 +335,8 @@ def _registry(payload: Path) -> dict[str, str]:
 
 def _check_ledger(payload: Path, manifest: dict, rows: _Rows) -> list[dict]:
     """Ledger hashes against the payload, and provenance closure of every output."""
-    from wavetrail.ledger import read_records
-
-    try:
-        records = read_records(payload)
-    except WavetrailError as err:
-        rows.add("ledger", "results/ledger", FAIL, str(err))
+    records = _read_records(payload, rows)
+    if records is None:
         return []
     if not records:
         rows.add("ledger", "results/ledger", FAIL, "no ledger records in the archive")
@@ -226,14 +347,14 @@ def _check_ledger(payload: Path, manifest: dict, rows: _Rows) -> list[dict]:
     standin = manifest.get("standin")
     try:
         archive_registry = _registry(payload)
-    except WavetrailError as err:
+    except (WavetrailError, UnicodeDecodeError) as err:
         rows.add("registry", "data/SHA256SUMS", FAIL, str(err))
         archive_registry = {}
     # the registry of the archive: files present must match; stand-in must be the only entry
     if standin:
         if archive_registry.get(standin["path"]) != standin.get("sha256"):
             rows.add("registry", standin["path"], FAIL, "data/SHA256SUMS does not describe the stand-in file")
-        elif not (payload / standin["path"]).is_file() or sha256_file(payload / standin["path"]) != standin["sha256"]:
+        elif _hash_of(payload, standin["path"]) != standin["sha256"]:
             rows.add("registry", standin["path"], FAIL, "stand-in file missing or not matching its hash")
         elif "STAND-IN" not in standin["path"]:
             rows.add("registry", standin["path"], FAIL, "stand-in file name lacks the STAND-IN label")
@@ -241,9 +362,9 @@ def _check_ledger(payload: Path, manifest: dict, rows: _Rows) -> list[dict]:
             rows.add("registry", standin["path"], OK, "STAND-IN data (not the real data); registered hash matches")
     else:
         for rel, digest in sorted(archive_registry.items()):
-            f = payload / rel
-            if f.is_file():
-                status = OK if sha256_file(f) == digest else FAIL
+            actual = _hash_of(payload, rel)
+            if actual is not None:
+                status = OK if actual == digest else FAIL
                 rows.add("registry", rel, status, "registered hash matches" if status == OK
                          else "bytes differ from data/SHA256SUMS")
             elif rel in withheld:
@@ -260,17 +381,17 @@ def _check_ledger(payload: Path, manifest: dict, rows: _Rows) -> list[dict]:
     n_ok = n_withheld = 0
     for rec in records:
         for e in rec["outputs"]:
-            rel, f = e["path"], payload / e["path"]
+            rel = e["path"]
+            actual = _hash_of(payload, rel)
             if rel in withheld:
                 if withheld[rel].get("sha256") == e["sha256"]:
                     n_withheld += 1
                     rows.add("ledger", rel, "withheld", withheld[rel].get("reason", "not in the archive"))
                 else:
                     rows.add("ledger", rel, FAIL, f"withheld, but its kept hash differs from {rec['_file']}")
-            elif not f.is_file():
+            elif actual is None:
                 rows.add("ledger", rel, FAIL, f"recorded by {rec['_file']} but missing from the archive")
             else:
-                actual = sha256_file(f)
                 if actual != e["sha256"]:
                     rows.add("ledger", rel, FAIL, f"{rec['_file']} records sha256 {e['sha256'][:12]}..., "
                                                   f"the archive holds {actual[:12]}...")
@@ -299,9 +420,9 @@ def _check_ledger(payload: Path, manifest: dict, rows: _Rows) -> list[dict]:
                 else:
                     leaves[rel] = "project file (altered for the stand-in; original hash matches)"
                 continue
-            f = payload / rel
-            if f.is_file():
-                if sha256_file(f) != e["sha256"]:
+            actual = _hash_of(payload, rel)
+            if actual is not None:
+                if actual != e["sha256"]:
                     rows.add("provenance", rel, FAIL, f"{rec['_file']} used other bytes than the archive holds")
                 else:
                     leaves[rel] = "project file"
@@ -334,10 +455,12 @@ def _check_crate(payload: Path, records: list[dict], rows: _Rows) -> None:
     """The RO-Crate parses and describes every ledger record as a CreateAction."""
     from wavetrail.archive.pack import CRATE
 
-    path = payload / CRATE
     try:
-        graph = json.loads(path.read_text(encoding="utf-8"))["@graph"]
-    except (OSError, json.JSONDecodeError, UnicodeDecodeError, KeyError, TypeError) as err:
+        path = payload_file(payload, CRATE)
+        graph = json.loads(path.read_bytes().decode("utf-8"))["@graph"]
+        if not isinstance(graph, list):
+            raise TypeError("@graph is not a list")
+    except (OSError, AttributeError, json.JSONDecodeError, UnicodeDecodeError, KeyError, TypeError) as err:
         rows.add("crate", CRATE, FAIL, f"missing or not an RO-Crate ({err})")
         return
     actions = {e.get("@id") for e in graph if isinstance(e, dict) and e.get("@type") == "CreateAction"}
@@ -349,11 +472,33 @@ def _check_crate(payload: Path, records: list[dict], rows: _Rows) -> None:
         rows.add("crate", CRATE, OK, f"{len(expected)} jobs described as CreateActions")
 
 
+def _check_code(payload: Path, manifest: dict, rows: _Rows, details: dict):
+    """Rows for every workflow file a rebuild would run that wavetrail did not ship."""
+    from wavetrail import __version__
+    from wavetrail.archive.code import compare_workflow
+
+    report = compare_workflow(payload)
+    against = f"wavetrail {__version__}"
+    if manifest["wavetrail"] != __version__:
+        rows.add("code", "workflow", NOTE, f"packed by wavetrail {manifest['wavetrail']}; compared with the stock "
+                                           f"files of {against} installed here, which may differ")
+    for c in report.changes:
+        rows.add("code", c.path, NOTE if c.change == "removed" else WARN, f"{c.change}: {c.summary}")
+    for rel in report.outside:
+        rows.add("code", rel, WARN, "code outside workflow/ (a workflow file could include or run it)")
+    if report.stock:
+        rows.add("code", "workflow", OK, f"stock: the {report.stock_files} workflow files equal those {against} "
+                                         "ships")
+    details["code"] = {"stock": report.stock, "headline": report.headline(),
+                       "changes": [c.__dict__ for c in report.changes], "outside": report.outside}
+    return report
+
+
 def _check_environment(payload: Path, records: list[dict], rows: _Rows, details: dict) -> None:
     from wavetrail.environment import LOCK_PATH, compare_with_installed
 
-    lock = payload / LOCK_PATH
-    if not lock.is_file():
+    lock = payload_file(payload, LOCK_PATH)
+    if lock is None:
         rows.add("environment", LOCK_PATH, WARN, "the archive holds no environment lock")
         return
     digest = sha256_file(lock)
