@@ -551,7 +551,8 @@ def clean_values(raw: pd.Series, var: Variable):
     if var.type == "date":
         text = pd.Series(text_column(raw), index=raw.index, dtype=object)
         return pd.to_datetime(text, errors="coerce", format="ISO8601").to_numpy(), hit
-    return text_column(raw), hit
+    # through a Series, as Series.map gave it: all-text cells become pandas' text type (empty = NaN)
+    return pd.Series(text_column(raw)).to_numpy(dtype=object), hit
 
 
 def _categorical(raw: pd.Series, codes: list, ordered: bool) -> pd.Categorical:
