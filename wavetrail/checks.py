@@ -65,10 +65,13 @@ def looks_like_missing_code(values) -> np.ndarray:
     where = np.flatnonzero(ok)
     if not len(where):
         return out
-    pairs, inverse = np.unique(np.stack([v[where] < 0, a[where]], axis=1).astype(np.int64), axis=0,
-                               return_inverse=True)
+    aw, negative = a[where], v[where] < 0
+    size, _ = pd.factorize(aw)
+    inverse, pairs = pd.factorize(size * 2 + negative)  # one code per distinct (|v|, sign)
+    rep = np.empty(len(pairs), dtype=np.int64)
+    rep[inverse] = np.arange(len(inverse))  # a cell holding each pair
     verdict = np.zeros(len(pairs), dtype=bool)
-    for k, (neg, ai) in enumerate(pairs.tolist()):
+    for k, (neg, ai) in enumerate(zip(negative[rep].tolist(), aw[rep].tolist())):
         s = str(ai)
         if neg and ai <= 9 and ai >= 1:
             verdict[k] = True
@@ -109,7 +112,7 @@ class _Collector:
 
 def _where(rec: pd.DataFrame, mask) -> str:
     idx = np.flatnonzero(np.asarray(mask, dtype=bool))[:MAX_ROWS]
-    files, rows = rec[FILE].to_numpy()[idx], rec[ROW].to_numpy()[idx]
+    files, rows = rec[FILE].iloc[idx].tolist(), rec[ROW].iloc[idx].tolist()
     return "; ".join(f"{f}:{int(r)}" for f, r in zip(files, rows))
 
 

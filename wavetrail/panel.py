@@ -331,7 +331,7 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
     wave_col = study.wave
     if wave_col in frame.columns:
         raw_wave = frame[wave_col]
-        keys = sorted({k for k in wave_keys(raw_wave) if k is not None})
+        keys = sorted({k for k in pd.unique(wave_keys(raw_wave)) if k is not None})
         lookup = {wave_key(w): w for w in study.waves}
         waves = [lookup[k] for k in keys if k in lookup]
     elif n_files == len(study.waves) or len(study.waves) == 1:
@@ -468,8 +468,8 @@ def _clean(panel: Panel):
                 "id": base[panel.id].to_numpy()[idx],
                 "wave": base_wave[idx],
                 "variable": var.name,
-                "code": [str(_fmt_code(c)) for c in hit.to_numpy()[idx]],
-                "reason": [var.missing.get(c, "") for c in hit.to_numpy()[idx]],
+                "code": map_column(hit.to_numpy()[idx], lambda c: str(_fmt_code(c))),
+                "reason": map_column(hit.to_numpy()[idx], lambda c: var.missing.get(c, "")),
             }))
     long = pd.DataFrame(columns)
     for name, col in columns.items():

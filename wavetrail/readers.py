@@ -135,9 +135,11 @@ def _read_delimited(path: Path, delimiter: str | None) -> RawTable:
                         f"at offset {exc.start})",
                         hint="save it as UTF-8 (it may be Latin-1 or Windows-1252)") from None
     if len(raw) >= FAST_BYTES:
-        table = _read_delimited_columnar(path, raw, text, delimiter)
+        head, text = text[:_HEAD_CHARS], None  # the whole text is not needed: free it
+        table = _read_delimited_columnar(path, raw, head, delimiter)
         if table is not None:
             return table
+        text = raw.decode("utf-8-sig")
     lines = text.splitlines()
     while lines and not lines[-1].strip():
         lines.pop()
@@ -151,6 +153,8 @@ def _read_delimited(path: Path, delimiter: str | None) -> RawTable:
 
 #: delimited files from this size on are parsed column by column (pandas' C parser)
 FAST_BYTES = 4 << 20
+#: characters at the start of a file where the delimiter is sniffed (the first 200 lines must fit)
+_HEAD_CHARS = 1 << 20
 #: bytes scanned at once when counting lines, delimiters and blank lines
 _SCAN_BYTES = 32 << 20
 #: characters Python's str.splitlines() also takes as line ends (besides \n and \r\n)
@@ -158,14 +162,14 @@ _ODD_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e", b"\xc2\x85", b"\xe2\
 
 
 def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str | None) -> RawTable | None:
-    """The table :func:`_parse` + :func:`_to_table` give, without a Python object per cell.
+    """The table (``text``: the decoded file or at least its first ``_HEAD_CHARS`` characters) :func:`_parse` + :func:`_to_table` give, without a Python object per cell.
 
     Covers the common large file: ``\n`` or ``\r\n`` line ends, no quotes
     after the header, every line with the header's number of fields, distinct
     named header fields. Returns None for anything else (the caller then
     parses line by line, which also words every error message).
     """
-    head = text[:1 << 20].splitlines()
+    head = text[:_HEAD_CHARS].splitlines()
     if len(head) <= _SNIFF_LINES:
         return None
     if any(b in raw for b in _ODD_BREAKS) or raw.count(b"\r") != raw.count(b"\r\n"):
