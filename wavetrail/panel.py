@@ -106,7 +106,7 @@ def factorize_column(raw) -> tuple[np.ndarray, list] | None:
     if kind in "OUT" or isinstance(getattr(raw, "dtype", None), pd.StringDtype):
         obj = np.asarray(values, dtype=object)
         inferred = pd.api.types.infer_dtype(obj, skipna=True)
-        if inferred not in ("string", "empty"):
+        if inferred not in ("string", "empty", "integer"):  # all text, or all Python ints
             return None
         codes, uniq = pd.factorize(obj, use_na_sentinel=True)
         return codes.astype(np.int64), list(uniq)
@@ -479,7 +479,8 @@ def _clean(panel: Panel):
         missing = pd.concat(reasons, ignore_index=True)
     else:
         missing = pd.DataFrame({"id": [], "wave": [], "variable": [], "code": [], "reason": []})
-    origin = pd.DataFrame({FILE: base[FILE].to_numpy(), ROW: base[ROW].to_numpy()})
+    origin = pd.DataFrame({FILE: base[FILE].to_numpy(dtype=object) if base[FILE].dtype == object
+                           else base[FILE].array, ROW: base[ROW].to_numpy()})
     return long, missing, origin
 
 

@@ -193,14 +193,19 @@ def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str |
         if stop == len(raw) and (not len(nl) or nl[-1] != len(buf) - 1):
             nl = np.append(nl, len(buf))  # a last line without a line end
         starts = np.concatenate(([0], nl[:-1] + 1))
-        line_d = np.searchsorted(nl, np.flatnonzero(buf == d))  # the line of each delimiter
-        n_delim.append(np.bincount(line_d, minlength=len(nl)))
-        blank = np.flatnonzero((buf == 32) | (buf == 9) | (buf == 13))
-        n_blank = np.bincount(np.searchsorted(nl, blank), minlength=len(nl))
+        if not len(nl):
+            pos = stop
+            continue
+        # sums over [start, next start) of each line (its line end included, which is neither kind);
+        # starts rise strictly, so reduceat sums every slice
+        counts = np.add.reduceat(buf == d, starts, dtype=np.int64)
+        n_delim.append(counts)
+        blank = (buf == 32) | (buf == 9) | (buf == 13)
+        n_blank = np.add.reduceat(blank, starts, dtype=np.int64)
         # a line with a delimiter is a record even when blank (the line-by-line parse keeps it too)
-        filled.append((nl - starts > n_blank) | (n_delim[-1] > 0))
+        filled.append((nl - starts > n_blank) | (counts > 0))
         ends.append(nl + pos)
-        del buf, line_d, blank, n_blank
+        del buf, blank, n_blank
         pos = stop
     n_delim = np.concatenate(n_delim)
     filled = np.concatenate(filled)
