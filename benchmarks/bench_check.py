@@ -89,6 +89,10 @@ def child(kind: str, data: str, codebook: str) -> None:
 
     import pandas as pd
 
+    if kind == "generate":  # here, so the measuring parent stays small (ru_maxrss survives exec)
+        size = generate(Path(data), int(codebook))
+        print(json.dumps({"bytes": size}))
+        return
     if kind == "check":
         from wavetrail.checks import attrition, describe, run_checks
         from wavetrail.codebook import load_codebook
@@ -113,7 +117,7 @@ def child(kind: str, data: str, codebook: str) -> None:
     print(json.dumps({"seconds": seconds, "peak_bytes": peak, "start_bytes": before * 1024, **extra}))
 
 
-def measure(kind: str, data: Path, codebook: Path) -> dict:
+def measure(kind: str, data: Path, codebook) -> dict:
     out = subprocess.run([sys.executable, __file__, "--child", kind, str(data), str(codebook)],
                          check=True, capture_output=True, text=True)
     return json.loads(out.stdout.strip().splitlines()[-1])
@@ -136,7 +140,7 @@ def main() -> None:
         data, codebook = folder / "long.csv", folder / "codebook.yaml"
         codebook.write_text(CODEBOOK, encoding="utf-8")
         t = time.perf_counter()
-        size = generate(data, n)
+        size = measure("generate", data, str(n))["bytes"]
         print(f"generated {n:,} records, {size / 1e6:.0f} MB in {time.perf_counter() - t:.1f} s")
         read = measure("read", data, codebook)
         check = measure("check", data, codebook)

@@ -38,7 +38,8 @@ import pandas as pd
 
 from wavetrail.codebook import Codebook, Variable, load_codebook
 from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, factorize_column, level_column, load_panel,
-                             match_missing, text_column, wave_key, wave_positions, level_of)
+                             match_missing, missing_code_index, text_column, wave_key, wave_positions,
+                             level_of)
 
 __all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
            "looks_like_missing_code"]
@@ -264,8 +265,12 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
     wave = rec["__wave"]
     order = rec["__order"].to_numpy()
     empty = raw.isna().to_numpy()
-    hits = match_missing(raw, var)
-    code = hits.notna().to_numpy()
+    found = missing_code_index(raw, var)
+    if found is None:  # a column mixing kinds of values: value by value
+        hits = match_missing(raw, var)
+        code = hits.notna().to_numpy()
+    else:
+        code = found >= 0
     filled = ~empty & ~code
     in_wave = {w: order == i for i, w in enumerate(cb.study.waves)}  # a repeated wave: its last place
 
@@ -286,8 +291,14 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
             in_w = in_wave[w]
             m = code & in_w
             if m.any():
-                counts = hits[m].value_counts(sort=False)
-                parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in counts.items()]
+                if found is not None:  # the codes met, in order of first appearance (as value_counts)
+                    ks, first_at, n_k = np.unique(found[m], return_index=True, return_counts=True)
+                    keys = list(var.missing)
+                    pairs = [(keys[k], n) for _, k, n in sorted(zip(first_at.tolist(), ks.tolist(),
+                                                                    n_k.tolist()))]
+                else:
+                    pairs = list(hits[m].value_counts(sort=False).items())
+                parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in pairs]
                 out.add("missing_code", "info", f"{int(m.sum())} value(s) set to missing: " + ", ".join(parts),
                         variable=var.name, wave=w, count=int(m.sum()), rows=_where(rec, m))
 

@@ -460,10 +460,10 @@ def _clean(panel: Panel):
         if var.name == panel.wave:
             continue
         raw = base[var.name] if var.name in base.columns else pd.Series([np.nan] * len(base))
-        values, hit = clean_values(raw.reset_index(drop=True), var)
+        values, hit, is_code = _clean_values(raw.reset_index(drop=True), var)
         columns[var.name] = values
-        if hit is not None and hit.notna().any():
-            idx = np.flatnonzero(hit.notna().to_numpy())
+        if is_code.any():
+            idx = np.flatnonzero(is_code)
             reasons.append(pd.DataFrame({
                 "id": base[panel.id].to_numpy()[idx],
                 "wave": base_wave[idx],
@@ -498,9 +498,25 @@ def match_missing(raw: pd.Series, var: Variable) -> pd.Series:
     """The declared missing code each value equals (else NaN), as the codebook key."""
     if not var.missing:
         return pd.Series([None] * len(raw), index=raw.index, dtype=object)
-    fact = factorize_column(raw)
-    if fact is None:  # a mix of kinds in one column: value by value
+    found = missing_code_index(raw, var)
+    if found is None:  # a mix of kinds in one column: value by value
         return _match_missing_cells(raw, var)
+    declared = np.empty(len(var.missing) + 1, dtype=object)
+    declared[:-1] = list(var.missing)
+    declared[-1] = None
+    return pd.Series(declared[found], index=raw.index, dtype=object)
+
+
+def missing_code_index(raw: pd.Series, var: Variable) -> np.ndarray | None:
+    """Per cell, the place in ``var.missing`` of the code :func:`match_missing` finds (-1: none).
+
+    None when the column mixes kinds of values (then only :func:`match_missing` answers).
+    """
+    if not var.missing:
+        return np.full(len(raw), -1, dtype=np.int64)
+    fact = factorize_column(raw)
+    if fact is None:
+        return None
     codes, uniq = fact
     # the matching runs on the distinct values; the first declared code that matches wins
     found = np.full(len(uniq) + 1, -1, dtype=np.int64)
@@ -516,10 +532,7 @@ def match_missing(raw: pd.Series, var: Variable) -> pd.Series:
                     text = np.asarray([_to_stripped(v) for v in uniq], dtype=object)
                 hit = text == str(code)
             found[:-1][hit & (found[:-1] < 0)] = k
-    declared = np.empty(len(var.missing) + 1, dtype=object)
-    declared[:-1] = list(var.missing)
-    declared[-1] = None
-    return pd.Series(declared[found[codes]], index=raw.index, dtype=object)
+    return found[codes]
 
 
 def _match_missing_cells(raw: pd.Series, var: Variable) -> pd.Series:
@@ -542,18 +555,38 @@ def clean_values(raw: pd.Series, var: Variable):
     and the Series of matched missing codes (None where none matched).
     Values that do not fit the type become NaN (the checks report them).
     """
-    hit = match_missing(raw, var)
-    raw = raw.where(hit.isna(), None)
+    values, hit, _ = _clean_values(raw, var)
+    return values, hit
+
+
+def _clean_values(raw: pd.Series, var: Variable):
+    """:func:`clean_values` plus the boolean mask of cells that held a declared missing code."""
+    found = missing_code_index(raw, var)
+    if found is None:  # a column mixing kinds of values: value by value
+        hit = match_missing(raw, var)
+        is_code = hit.notna().to_numpy()
+    else:
+        declared = np.empty(len(var.missing) + 1, dtype=object)
+        declared[:-1] = list(var.missing)
+        declared[-1] = None
+        hit = pd.Series(declared[found], index=raw.index, dtype=object)
+        is_code = found >= 0
+    raw = raw.where(~is_code, None)
+    values = _typed_values(raw, var)
+    return values, hit, is_code
+
+
+def _typed_values(raw: pd.Series, var: Variable):
     if var.type in ("integer", "number"):
-        return pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float), hit
+        return pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
     if var.type == "category":
         codes = list(var.levels)
-        return _categorical(raw, codes, var.ordered), hit
+        return _categorical(raw, codes, var.ordered)
     if var.type == "date":
         text = pd.Series(text_column(raw), index=raw.index, dtype=object)
-        return pd.to_datetime(text, errors="coerce", format="ISO8601").to_numpy(), hit
+        return pd.to_datetime(text, errors="coerce", format="ISO8601").to_numpy()
     # through a Series, as Series.map gave it: all-text cells become pandas' text type (empty = NaN)
-    return pd.Series(text_column(raw)).to_numpy(dtype=object), hit
+    return pd.Series(text_column(raw)).to_numpy(dtype=object)
 
 
 def _categorical(raw: pd.Series, codes: list, ordered: bool) -> pd.Categorical:

@@ -179,8 +179,8 @@ def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str |
     if len(delimiter) != 1 or delimiter in ('"', "\n", "\r", " "):
         return None
     start = 3 if raw.startswith(b"\xef\xbb\xbf") else 0
-    # per line: where it ends, how many delimiters it holds, whether it holds more than blank space
-    ends, n_delim, filled = [], [], []
+    # per line: where it ends and whether it holds a record (more than blank space, or a delimiter)
+    ends, filled = [], []
     d = ord(delimiter)
     pos = start
     while pos < len(raw):
@@ -192,28 +192,36 @@ def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str |
         nl = np.flatnonzero(buf == 10)
         if stop == len(raw) and (not len(nl) or nl[-1] != len(buf) - 1):
             nl = np.append(nl, len(buf))  # a last line without a line end
-        starts = np.concatenate(([0], nl[:-1] + 1))
         if not len(nl):
             pos = stop
             continue
-        # sums over [start, next start) of each line (its line end included, which is neither kind);
-        # starts rise strictly, so reduceat sums every slice
-        counts = np.add.reduceat(buf == d, starts, dtype=np.int64)
-        n_delim.append(counts)
-        blank = (buf == 32) | (buf == 9) | (buf == 13)
-        n_blank = np.add.reduceat(blank, starts, dtype=np.int64)
-        # a line with a delimiter is a record even when blank (the line-by-line parse keeps it too)
-        filled.append((nl - starts > n_blank) | (counts > 0))
+        starts = np.concatenate(([0], nl[:-1] + 1))
+        length = nl - starts
+        first = buf[np.minimum(starts, len(buf) - 1)]
+        full = (length > 1) | ((length == 1) & (first != 13))  # not empty, not a lone \r
+        # a line of blank space starts with one; look at those few lines one by one
+        doubt = np.flatnonzero(full & ((first == 32) | (first == 9)))
+        if len(doubt) > 100_000:  # many lines start blank: count blank bytes per line instead
+            blank = (buf == 32) | (buf == 9) | (buf == 13)
+            n_blank = np.add.reduceat(blank, starts, dtype=np.int64)
+            n_delim = np.add.reduceat(buf == d, starts, dtype=np.int64)
+            full &= (length > n_blank) | (n_delim > 0)
+        else:
+            for i in doubt.tolist():
+                line = raw[pos + int(starts[i]):pos + int(nl[i])]
+                if not line.strip(b" \t\r") and bytes([d]) not in line:
+                    full[i] = False
+        filled.append(full)
         ends.append(nl + pos)
-        del buf, blank, n_blank
+        del buf
         pos = stop
-    n_delim = np.concatenate(n_delim)
     filled = np.concatenate(filled)
+    ends = np.concatenate(ends)
     line_no = np.flatnonzero(filled) + 1  # 1-based numbers of the lines that hold a record or the header
     if len(line_no) < 2:
         return None
     header_line = int(line_no[0])
-    header_end = int(np.concatenate(ends)[header_line - 1]) + 1
+    header_end = int(ends[header_line - 1]) + 1
     if b'"' in raw[header_end:]:
         return None
     header_text = raw[start:header_end].decode("utf-8").splitlines()[header_line - 1]
@@ -224,7 +232,14 @@ def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str |
     if len(header) < 2 or "" in header or len(set(header)) != len(header):
         return None
     rows = line_no[1:]
-    if np.any(n_delim[rows - 1] != len(header) - 1):
+    # every record holds len(header) - 1 delimiters: the first one checked alone (it sets how many
+    # fields the C parser expects, which then refuses longer lines), then the sum over all of them
+    # (no line longer, so none shorter)
+    sep = delimiter.encode()
+    first_rec = raw[int(ends[rows[0] - 2]) + 1:int(ends[rows[0] - 1])]
+    if first_rec.count(sep) != len(header) - 1:
+        return None
+    if raw.count(sep, header_end) != len(rows) * (len(header) - 1):
         return None  # a short or long line: the line-by-line parse names it
     try:
         with warnings.catch_warnings():  # mixed kinds in one column: read again as text below
