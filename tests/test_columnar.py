@@ -62,6 +62,9 @@ def columns():
         "text_nan": pd.Series(text_nan, dtype=object),
         "float": pd.Series(rng.choice(NUMBERS, 400)),
         "int": pd.Series(rng.choice([-99, -98, 1, 2, 3, 99, 7, -9], 400)),
+        "int_wide": pd.Series(rng.choice([-(2 ** 40), 1, 2, 2 ** 40, -99], 400)),
+        "whole_float": pd.Series(rng.choice([1.0, 2.0, np.nan, -99.0, 0.0, 3.0, 99.0], 400)),
+        "whole_float_negzero": pd.Series(rng.choice([1.0, -0.0, np.nan, -99.0, 0.0], 400)),
         "mixed": pd.Series(mixed, dtype=object),
         "empty": pd.Series([None] * 5, dtype=object),
         "str_dtype": pd.Series(["1", "2", None, "-99"] * 10, dtype="str"),
@@ -140,7 +143,7 @@ def _tricky_file(path, n=800, seed=2, quote_header=False):
                                str(rng.choice(["a", "b", " c", "NAN", "True", "-99.0"])),
                                str(rng.choice(["True", "False"])),
                                str(rng.choice(["inf", "1", "-Infinity", "nan", "1e400", "007"]))]))
-    lines[40:40] = ["", "   ", ",,,,,,", "\t"]
+    lines[40:40] = ["", "   ", ",,,,,,", "\t", "  7,1,2.5,3,a,True,1", "\t8,2,1,2,b,False,inf"]
     path.write_bytes(("\n".join(lines) + "\n").replace("\n", "\r\n").encode())
     return path
 
@@ -162,7 +165,7 @@ def test_columnar_reader_equals_line_by_line(tmp_path, monkeypatch, quote_header
         same(a.astype(object), b.astype(object))
 
 
-@pytest.mark.parametrize("damage", ["short", "long", "quote", "dup_header"])
+@pytest.mark.parametrize("damage", ["short", "long", "quote", "dup_header", "long_then_short"])
 def test_columnar_reader_hands_odd_files_to_the_line_parser(tmp_path, monkeypatch, damage):
     path = _tricky_file(tmp_path / "bad.csv")
     text = path.read_bytes().decode()
@@ -173,14 +176,17 @@ def test_columnar_reader_hands_odd_files_to_the_line_parser(tmp_path, monkeypatc
         lines[300] = lines[300] + ",9"
     elif damage == "quote":
         lines[300] = '1,1,2,"a\r\nb",x,True,1'
+    elif damage == "long_then_short":  # the first record one field too many, a later one too few
+        lines[1] = lines[1] + ",9"
+        lines[300] = lines[300].rsplit(",", 1)[0]
     else:
         lines[0] = "pid,wave,x,y,x,b,e"
     path.write_bytes("\r\n".join(lines).encode())
     raw = path.read_bytes()
     assert readers._read_delimited_columnar(path, raw, raw.decode(), None) is None
     monkeypatch.setattr(readers, "FAST_BYTES", 0)
-    if damage in ("short", "long", "dup_header"):
-        with pytest.raises(readers.DataError, match="bad.csv:(301|1)"):
+    if damage in ("short", "long", "dup_header", "long_then_short"):
+        with pytest.raises(readers.DataError, match="bad.csv:(301|1|2):"):
             readers.read_table(path)
     else:
-        assert len(readers.read_table(path).frame) == 801  # 800 records and the line of commas
+        assert len(readers.read_table(path).frame) == 803  # 800 records, the line of commas, two lines starting blank

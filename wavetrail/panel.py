@@ -93,6 +93,20 @@ def factorize_column(raw) -> tuple[np.ndarray, list] | None:
     """
     values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
     kind = values.dtype.kind
+    if kind in "iu" and len(values):
+        small = _factorize_small_ints(values)
+        if small is not None:
+            return small[0], small[1].tolist()
+    if kind == "f" and len(values):
+        # whole numbers in a short range (item answers with gaps): integer codes, no hashing
+        missing = np.isnan(values)
+        filled = values[~missing]
+        if len(filled) and np.all(filled == np.round(filled)) and np.abs(filled).max() < 2**53 \
+                and not np.any((filled == 0) & np.signbit(filled)):
+            small = _factorize_small_ints(np.where(missing, filled[0], values).astype(np.int64))
+            if small is not None:
+                codes, uniq = small
+                return np.where(missing, -1, codes), uniq.astype(values.dtype).tolist()
     if kind == "f":
         missing = np.isnan(values)
         bits = values.view(np.int64 if values.dtype.itemsize == 8 else np.int32)
@@ -111,6 +125,20 @@ def factorize_column(raw) -> tuple[np.ndarray, list] | None:
         codes, uniq = pd.factorize(obj, use_na_sentinel=True)
         return codes.astype(np.int64), list(uniq)
     return None
+
+
+def _factorize_small_ints(values: np.ndarray, span: int = 1 << 20):
+    """Codes and distinct values of integers spanning fewer than ``span`` values (else None)."""
+    lo, hi = int(values.min()), int(values.max())
+    if hi - lo >= span:
+        return None
+    offset = (values - lo).astype(np.intp) if lo >= 0 or values.dtype.kind == "i" else None
+    if offset is None:
+        return None
+    present = np.bincount(offset, minlength=hi - lo + 1) > 0
+    code_of = np.cumsum(present) - 1
+    uniq = (np.flatnonzero(present) + lo).astype(values.dtype)
+    return code_of[offset].astype(np.int64), uniq
 
 
 def map_column(raw, func) -> np.ndarray:
