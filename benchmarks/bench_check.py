@@ -127,7 +127,8 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help=f"{QUICK:,} records instead of {FULL:,}")
     ap.add_argument("--records", type=int, default=None)
-    ap.add_argument("--keep", type=Path, default=None, help="write the data here and keep it")
+    ap.add_argument("--keep", type=Path, default=None,
+                    help="write the data here and keep it (a later run with the same size reuses it)")
     ap.add_argument("--child", nargs=3, metavar=("KIND", "DATA", "CODEBOOK"), help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.child:
@@ -140,8 +141,13 @@ def main() -> None:
         data, codebook = folder / "long.csv", folder / "codebook.yaml"
         codebook.write_text(CODEBOOK, encoding="utf-8")
         t = time.perf_counter()
-        size = measure("generate", data, str(n))["bytes"]
-        print(f"generated {n:,} records, {size / 1e6:.0f} MB in {time.perf_counter() - t:.1f} s")
+        stamp = folder / "long.records"
+        if args.keep and data.exists() and stamp.exists() and stamp.read_text() == str(n):
+            print(f"reusing {data} ({n:,} records, {data.stat().st_size / 1e6:.0f} MB)")
+        else:
+            size = measure("generate", data, str(n))["bytes"]
+            stamp.write_text(str(n))
+            print(f"generated {n:,} records, {size / 1e6:.0f} MB in {time.perf_counter() - t:.1f} s")
         read = measure("read", data, codebook)
         check = measure("check", data, codebook)
         ratio = check["seconds"] / read["seconds"]

@@ -232,7 +232,7 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                 f"{int(bad_wave.sum())} record(s) have a wave not in study.waves {list(cb.study.waves)} "
                 f"(e.g. {vals})", variable=panel.wave, count=int(bad_wave.sum()), rows=_where(rec, bad_wave))
     ok = ~no_id & ~bad_wave
-    sub = rec[ok]
+    sub = rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]  # only the columns used below
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
     keys = pd.DataFrame({"i": sub[sid].to_numpy(), "o": sub["__order"].to_numpy()})
     dup_all = keys.duplicated(keep=False).to_numpy()

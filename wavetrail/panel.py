@@ -475,25 +475,31 @@ def _clean(panel: Panel):
     # the wave each record stands for is waves[pos]; its order is the (last) place of that wave
     place = {w: i for i, w in enumerate(waves)}
     order_of_pos = np.asarray([place[w] for w in waves], dtype=np.int64)
-    base = rec[keep].assign(__order=order_of_pos[pos[keep]])
-    base = base.drop_duplicates(subset=[panel.id, "__order"], keep="first")
-    base = base.sort_values([panel.id, "__order"], kind="mergesort").reset_index(drop=True)
+    # which records make the long table, in which order: worked out on (id, wave order) alone, then
+    # each column taken once (no copy of the whole record table)
+    kept = np.flatnonzero(keep)
+    key = pd.DataFrame({panel.id: rec[panel.id].to_numpy()[kept], "__order": order_of_pos[pos[kept]]})
+    first = ~key.duplicated(keep="first").to_numpy()
+    kept, key = kept[first], key[first].reset_index(drop=True)
+    perm = key.sort_values([panel.id, "__order"], kind="mergesort").index.to_numpy()
+    take = kept[perm]  # record positions of the long rows
+    base_id = key[panel.id].to_numpy()[perm]
     wave_values = np.empty(len(waves), dtype=object)
     wave_values[:] = waves
-    base_wave = wave_values[base["__order"].to_numpy()]
-    columns = {panel.id: base[panel.id].to_numpy(),
+    base_wave = wave_values[key["__order"].to_numpy()[perm]]
+    columns = {panel.id: base_id,
                panel.wave: pd.Series(base_wave, dtype=_wave_dtype(cb.study.waves)).to_numpy()}
     reasons = []
     for var in cb.data_variables():
         if var.name == panel.wave:
             continue
-        raw = base[var.name] if var.name in base.columns else pd.Series([np.nan] * len(base))
+        raw = rec[var.name].iloc[take] if var.name in rec.columns else pd.Series([np.nan] * len(take))
         values, hit, is_code = _clean_values(raw.reset_index(drop=True), var)
         columns[var.name] = values
         if is_code.any():
             idx = np.flatnonzero(is_code)
             reasons.append(pd.DataFrame({
-                "id": base[panel.id].to_numpy()[idx],
+                "id": base_id[idx],
                 "wave": base_wave[idx],
                 "variable": var.name,
                 "code": map_column(hit.to_numpy()[idx], lambda c: str(_fmt_code(c))),
@@ -507,8 +513,9 @@ def _clean(panel: Panel):
         missing = pd.concat(reasons, ignore_index=True)
     else:
         missing = pd.DataFrame({"id": [], "wave": [], "variable": [], "code": [], "reason": []})
-    origin = pd.DataFrame({FILE: base[FILE].to_numpy(dtype=object) if base[FILE].dtype == object
-                           else base[FILE].array, ROW: base[ROW].to_numpy()})
+    files = rec[FILE].iloc[take].reset_index(drop=True)
+    origin = pd.DataFrame({FILE: files.to_numpy(dtype=object) if files.dtype == object else files.array,
+                           ROW: rec[ROW].to_numpy()[take]})
     return long, missing, origin
 
 
