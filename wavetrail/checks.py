@@ -37,7 +37,9 @@ import numpy as np
 import pandas as pd
 
 from wavetrail.codebook import Codebook, Variable, load_codebook
-from wavetrail.panel import FILE, ROW, WAVE_RAW, Panel, load_panel, match_missing, wave_key, level_of
+from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, factorize_column, level_column, load_panel,
+                             match_missing, missing_code_index, text_column, wave_key, wave_positions,
+                             level_of)
 
 __all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
            "looks_like_missing_code"]
@@ -60,13 +62,24 @@ def looks_like_missing_code(values) -> np.ndarray:
     out = np.zeros(v.shape, dtype=bool)
     ok = np.isfinite(v) & (v == np.round(v))
     a = np.abs(np.where(ok, v, 0)).astype(np.int64)
-    for i in np.flatnonzero(ok):
-        s = str(a[i])
-        if v[i] < 0 and a[i] <= 9 and a[i] >= 1:
-            out[i] = True
+    # the rule depends only on (sign, |v|): decide it once per distinct pair
+    where = np.flatnonzero(ok)
+    if not len(where):
+        return out
+    aw, negative = a[where], v[where] < 0
+    size, _ = pd.factorize(aw)
+    inverse, pairs = pd.factorize(size * 2 + negative)  # one code per distinct (|v|, sign)
+    rep = np.empty(len(pairs), dtype=np.int64)
+    rep[inverse] = np.arange(len(inverse))  # a cell holding each pair
+    verdict = np.zeros(len(pairs), dtype=bool)
+    for k, (neg, ai) in enumerate(zip(negative[rep].tolist(), aw[rep].tolist())):
+        s = str(ai)
+        if neg and ai <= 9 and ai >= 1:
+            verdict[k] = True
         elif len(s) >= 2 and (set(s) <= {"9"} or set(s) <= {"8"} or set(s) <= {"7"}
                               or (set(s[:-1]) <= {"9"} and s[-1] in "78")):
-            out[i] = True
+            verdict[k] = True
+    out[where] = verdict[np.asarray(inverse).ravel()]
     return out
 
 
@@ -99,8 +112,9 @@ class _Collector:
 
 
 def _where(rec: pd.DataFrame, mask) -> str:
-    sub = rec.loc[np.asarray(mask, dtype=bool), [FILE, ROW]].head(MAX_ROWS)
-    return "; ".join(f"{f}:{int(r)}" for f, r in zip(sub[FILE], sub[ROW]))
+    idx = np.flatnonzero(np.asarray(mask, dtype=bool))[:MAX_ROWS]
+    files, rows = rec[FILE].iloc[idx].tolist(), rec[ROW].iloc[idx].tolist()
+    return "; ".join(f"{f}:{int(r)}" for f, r in zip(files, rows))
 
 
 def _examples(values, n=3) -> str:
@@ -149,9 +163,16 @@ def run_checks(panel_or_paths, codebook: Codebook | str | None = None) -> pd.Dat
     cb = panel.codebook
     out = _Collector()
     rec = panel.records.reset_index(drop=True)
-    lookup = {wave_key(w): w for w in cb.study.waves}
-    wave = rec[WAVE_RAW].map(lambda v: lookup.get(wave_key(v)))
-    rec = rec.assign(__wave=wave)
+    waves = list(cb.study.waves)
+    pos = wave_positions(rec[WAVE_RAW], waves)
+    place = {w: i for i, w in enumerate(waves)}
+    wave_values = np.empty(len(waves) + 1, dtype=object)
+    wave_values[:-1] = waves
+    wave_values[-1] = None
+    wave = pd.Series(wave_values[pos], dtype=object)  # the codebook wave of each record (None: unknown)
+    # one mask per codebook wave (None: a wave not in study.waves), computed once for every check
+    order = np.asarray([place[w] for w in waves] + [-1], dtype=np.int64)[pos]
+    rec = rec.assign(__wave=wave, __order=order)
 
     _structure(panel, out)
     _ids_and_waves(panel, rec, out)
@@ -211,8 +232,9 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                 f"{int(bad_wave.sum())} record(s) have a wave not in study.waves {list(cb.study.waves)} "
                 f"(e.g. {vals})", variable=panel.wave, count=int(bad_wave.sum()), rows=_where(rec, bad_wave))
     ok = ~no_id & ~bad_wave
-    sub = rec[ok]
-    keys = sub[sid].astype(str) + "\x1f" + sub["__wave"].map(wave_key)
+    sub = rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]  # only the columns used below
+    # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
+    keys = pd.DataFrame({"i": sub[sid].to_numpy(), "o": sub["__order"].to_numpy()})
     dup_all = keys.duplicated(keep=False).to_numpy()
     if dup_all.any():
         extra = keys.duplicated(keep="first").to_numpy()
@@ -226,7 +248,7 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                         rows=_where(sub, dup_all & in_w))
     first_wave = cb.study.waves[0]
     order = {w: i for i, w in enumerate(cb.study.waves)}
-    first_seen = sub.assign(__o=sub["__wave"].map(order)).groupby(sid)["__o"].min()
+    first_seen = pd.Series(sub["__order"].to_numpy()).groupby(sub[sid].to_numpy()).min()
     late = first_seen[first_seen > 0]
     if len(late):
         for o, grp in late.groupby(late):
@@ -241,13 +263,22 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
 def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> None:
     raw = rec[var.name]
     wave = rec["__wave"]
+    order = rec["__order"].to_numpy()
     empty = raw.isna().to_numpy()
-    code = match_missing(raw, var).notna().to_numpy()
+    found = missing_code_index(raw, var)
+    if found is None:  # a column mixing kinds of values: value by value
+        hits = match_missing(raw, var)
+        code = hits.notna().to_numpy()
+    else:
+        code = found >= 0
     filled = ~empty & ~code
+    in_wave = {w: order == i for i, w in enumerate(cb.study.waves)}  # a repeated wave: its last place
 
     def emit(check, severity, mask, message):
+        if not mask.any():
+            return
         for w in list(cb.study.waves) + [None]:
-            in_w = wave.isna().to_numpy() if w is None else (wave == w).to_numpy()
+            in_w = (order < 0) if w is None else in_wave[w]
             m = mask & in_w
             n = int(m.sum())
             if n:
@@ -256,13 +287,18 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
                         rows=_where(rec, m))
 
     if code.any():
-        hits = match_missing(raw, var)
         for w in cb.study.waves:
-            in_w = (wave == w).to_numpy()
+            in_w = in_wave[w]
             m = code & in_w
             if m.any():
-                counts = hits[m].value_counts(sort=False)
-                parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in counts.items()]
+                if found is not None:  # the codes met, in order of first appearance (as value_counts)
+                    ks, first_at, n_k = np.unique(found[m], return_index=True, return_counts=True)
+                    keys = list(var.missing)
+                    pairs = [(keys[k], n) for _, k, n in sorted(zip(first_at.tolist(), ks.tolist(),
+                                                                    n_k.tolist()))]
+                else:
+                    pairs = list(hits[m].value_counts(sort=False).items())
+                parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in pairs]
                 out.add("missing_code", "info", f"{int(m.sum())} value(s) set to missing: " + ", ".join(parts),
                         variable=var.name, wave=w, count=int(m.sum()), rows=_where(rec, m))
 
@@ -300,8 +336,8 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
                                   "otherwise non-negative values; declare them under `missing` or give a range")
     elif var.type == "category":
         codes = list(var.levels)
-        level = raw.map(lambda v: level_of(v, codes))
-        unknown = filled & level.isna().to_numpy()
+        level = level_column(raw, codes)
+        unknown = filled & pd.isna(level)
         num = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
         codelike = looks_like_missing_code(num) & unknown
         emit("suspected_missing_code", "error", codelike,
@@ -310,7 +346,7 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
         emit("unknown_level", "error", unknown & ~codelike,
              lambda n, v: f"{n} value(s) are not among the levels {', '.join(map(_show, codes))} (e.g. {v})")
     elif var.type == "date":
-        text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
+        text = pd.Series(text_column(raw), index=raw.index, dtype=object)
         parsed = pd.to_datetime(text, errors="coerce", format="ISO8601")
         bad = filled & parsed.isna().to_numpy()
         emit("type_mismatch", "error", bad,
@@ -371,18 +407,27 @@ def attrition(panel: Panel) -> pd.DataFrame:
         (present at the previous wave, absent now).
     """
     long = panel.long
-    all_ids = set(long[panel.id])
-    present = {w: set(long.loc[long[panel.wave] == w, panel.id]) for w in panel.waves}
+    # people as integer codes, presence as one boolean vector per wave (set algebra on arrays)
+    person, people = pd.factorize(long[panel.id].to_numpy(), use_na_sentinel=False)
+    n_all = len(people)
+    present = {}
+    for w in panel.waves:
+        has = np.zeros(n_all, dtype=bool)
+        has[person[(long[panel.wave] == w).to_numpy()]] = True
+        present[w] = has
     first = present[panel.waves[0]]
-    seen: set = set()
+    n_first = int(first.sum())
+    seen = np.zeros(n_all, dtype=bool)
     rows = []
     prev = None
     for w in panel.waves:
         ids = present[w]
-        rows.append({"wave": w, "n_present": len(ids), "n_missing": len(all_ids - ids),
-                     "n_retained": len(ids & first),
-                     "retention": (len(ids & first) / len(first)) if first else float("nan"),
-                     "n_new": len(ids - seen), "n_dropped": len(prev - ids) if prev is not None else 0})
+        n_ret = int((ids & first).sum())
+        rows.append({"wave": w, "n_present": int(ids.sum()), "n_missing": int((~ids).sum()),
+                     "n_retained": n_ret,
+                     "retention": (n_ret / n_first) if n_first else float("nan"),
+                     "n_new": int((ids & ~seen).sum()),
+                     "n_dropped": int((prev & ~ids).sum()) if prev is not None else 0})
         seen |= ids
         prev = ids
     return pd.DataFrame(rows)

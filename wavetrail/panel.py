@@ -71,6 +71,142 @@ def wave_key(value) -> str | None:
     return str(int(f)) if f.is_integer() else repr(f)
 
 
+# --------------------------------------------------------------------------- per column, not per value
+#
+# The functions below take a whole column and give what the per-value
+# functions (wave_key, level_of, ...) give for each of its cells, calling the
+# per-value function once per distinct value instead of once per cell: the
+# column is factorised (in C), the function runs on the distinct values and
+# the result is spread back with one take. Results are those of the per-value
+# function by construction, as long as factorising only merges cells the
+# function cannot tell apart: numbers are factorised by their bits (so -0.0
+# and 0.0 stay apart) and text columns only when every cell is text; any other
+# mix (ints and text in one object column, say) goes cell by cell.
+
+
+def factorize_column(raw) -> tuple[np.ndarray, list] | None:
+    """Integer codes (-1 = missing) and the distinct values as Python objects.
+
+    Missing = None or NaN (the per-value functions treat both the same).
+    Returns None when the column mixes kinds of values that factorising
+    could merge (e.g. ``1``, ``1.0`` and ``True`` in one object column).
+    """
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    kind = values.dtype.kind
+    if kind in "iu" and len(values):
+        small = _factorize_small_ints(values)
+        if small is not None:
+            return small[0], small[1].tolist()
+    if kind == "f" and len(values):
+        # whole numbers in a short range (item answers with gaps): integer codes, no hashing
+        missing = np.isnan(values)
+        filled = values[~missing]
+        if len(filled) and np.all(filled == np.round(filled)) and np.abs(filled).max() < 2**53 \
+                and not np.any((filled == 0) & np.signbit(filled)):
+            small = _factorize_small_ints(np.where(missing, filled[0], values).astype(np.int64))
+            if small is not None:
+                codes, uniq = small
+                return np.where(missing, -1, codes), uniq.astype(values.dtype).tolist()
+    if kind == "f":
+        missing = np.isnan(values)
+        bits = values.view(np.int64 if values.dtype.itemsize == 8 else np.int32)
+        codes, uniq = pd.factorize(np.where(missing, 0, bits))
+        codes = np.where(missing, -1, codes)
+        uniq = np.asarray(uniq).view(values.dtype)
+        return codes.astype(np.int64), uniq.tolist()
+    if kind in "iub":
+        codes, uniq = pd.factorize(values)
+        return codes.astype(np.int64), np.asarray(uniq).tolist()
+    if kind in "OUT" or isinstance(getattr(raw, "dtype", None), pd.StringDtype):
+        obj = np.asarray(values, dtype=object)
+        inferred = pd.api.types.infer_dtype(obj, skipna=True)
+        if inferred not in ("string", "empty", "integer"):  # all text, or all Python ints
+            return None
+        codes, uniq = pd.factorize(obj, use_na_sentinel=True)
+        return codes.astype(np.int64), list(uniq)
+    return None
+
+
+def _factorize_small_ints(values: np.ndarray, span: int = 1 << 20):
+    """Codes and distinct values of integers spanning fewer than ``span`` values (else None)."""
+    lo, hi = int(values.min()), int(values.max())
+    if hi - lo >= span:
+        return None
+    offset = (values - lo).astype(np.intp) if lo >= 0 or values.dtype.kind == "i" else None
+    if offset is None:
+        return None
+    present = np.bincount(offset, minlength=hi - lo + 1) > 0
+    code_of = np.cumsum(present) - 1
+    uniq = (np.flatnonzero(present) + lo).astype(values.dtype)
+    return code_of[offset].astype(np.int64), uniq
+
+
+def map_column(raw, func) -> np.ndarray:
+    """``func`` of every cell as an object array, calling ``func`` once per distinct value.
+
+    Equals ``[func(v) for v in raw]`` (each cell as the Python object
+    ``Series.map`` would pass), missing cells included.
+    """
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    fact = factorize_column(values)
+    if fact is None:
+        out = np.empty(len(values), dtype=object)
+        out[:] = [func(v) for v in values.astype(object)]
+        return out
+    codes, uniq = fact
+    results = np.empty(len(uniq) + 1, dtype=object)
+    for i, v in enumerate(uniq):
+        results[i] = func(v)
+    missing = codes < 0
+    if values.dtype.kind == "f":
+        results[-1] = func(float("nan"))
+    elif missing.any():
+        r_none, r_nan = func(None), func(float("nan"))
+        if not (r_none is r_nan or (type(r_none) is type(r_nan) and r_none == r_nan)):
+            out = results[codes]
+            where = np.flatnonzero(missing)
+            cells = values[where].astype(object)
+            out[where] = [func(v) for v in cells]
+            return out
+        results[-1] = r_none
+    return results[codes]
+
+
+def wave_keys(raw) -> np.ndarray:
+    """:func:`wave_key` of every cell (object array, None for missing)."""
+    return map_column(raw, wave_key)
+
+
+def wave_positions(raw, waves) -> np.ndarray:
+    """Position in ``waves`` of the wave each cell stands for (by :func:`wave_key`), -1 for none."""
+    lookup: dict = {}
+    for i, w in enumerate(waves):
+        lookup[wave_key(w)] = i  # a later wave with the same key wins, as in a dict
+    return map_column(raw, lambda v: lookup.get(wave_key(v), -1)).astype(np.int64)
+
+
+def _to_text(v):
+    return None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)
+
+
+def _strip_id(v):
+    return None if v is None else str(v).strip()
+
+
+def _to_stripped(v):
+    return None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip()
+
+
+def text_column(raw) -> np.ndarray:
+    """``str(value)`` of every cell (None for missing), as an object array."""
+    return map_column(raw, _to_text)
+
+
+def level_column(raw, codes: list) -> np.ndarray:
+    """:func:`level_of` of every cell against ``codes`` (object array, None for none)."""
+    return map_column(raw, lambda v: level_of(v, codes))
+
+
 class Panel:
     """A multi-wave panel in one tidy long form.
 
@@ -223,7 +359,7 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
     wave_col = study.wave
     if wave_col in frame.columns:
         raw_wave = frame[wave_col]
-        keys = sorted({k for k in map(wave_key, raw_wave) if k is not None})
+        keys = sorted({k for k in pd.unique(wave_keys(raw_wave)) if k is not None})
         lookup = {wave_key(w): w for w in study.waves}
         waves = [lookup[k] for k in keys if k in lookup]
     elif n_files == len(study.waves) or len(study.waves) == 1:
@@ -248,8 +384,8 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
             for w in waves:
                 if var.measured_at(w):
                     src.absent.append((var.name, w))
-    out = pd.DataFrame({FILE: table.name, ROW: table.rows, study.id: frame[study.id].to_numpy(dtype=object),
-                        WAVE_RAW: raw_wave.to_numpy(dtype=object)})
+    out = pd.DataFrame({FILE: table.name, ROW: table.rows, study.id: _column_values(frame[study.id]),
+                        WAVE_RAW: _column_values(raw_wave)})
     for col in src.columns:
         out[col] = frame[col].to_numpy()
     return src, out
@@ -299,8 +435,21 @@ def _map_wide(table: RawTable, codebook: Codebook):
     return src, pd.concat(parts, ignore_index=True, sort=False)
 
 
+def _column_values(col: pd.Series) -> np.ndarray:
+    """A column's values: numbers stay typed (no Python object per cell), anything else as objects."""
+    if col.dtype.kind in "iuf":
+        return col.to_numpy()
+    return col.to_numpy(dtype=object)
+
+
 def _normalise_ids(records: pd.DataFrame, sid: str) -> pd.DataFrame:
     ids = records[sid]
+    if ids.dtype.kind in "iu":  # typed whole-number ids, none missing: already in final form
+        return records.assign(**{sid: ids.astype(np.int64)})
+    if ids.dtype.kind == "f" and ids.notna().all():
+        v = ids.to_numpy()
+        if len(v) and np.all(v == np.round(v)):
+            return records.assign(**{sid: v.astype(np.int64)})
     filled = ids.notna() & (ids.astype(str).str.strip() != "")
     num = pd.to_numeric(ids[filled], errors="coerce")
     if len(num) and num.notna().all() and np.all(num == np.round(num)):
@@ -310,8 +459,7 @@ def _normalise_ids(records: pd.DataFrame, sid: str) -> pd.DataFrame:
         if filled.all():
             records = records.assign(**{sid: records[sid].astype(np.int64)})
     else:
-        records = records.assign(**{sid: ids.where(filled, None).map(
-            lambda v: None if v is None else str(v).strip())})
+        records = records.assign(**{sid: map_column(ids.where(filled, None), _strip_id)})
     return records
 
 
@@ -321,31 +469,41 @@ def _normalise_ids(records: pd.DataFrame, sid: str) -> pd.DataFrame:
 def _clean(panel: Panel):
     cb = panel.codebook
     rec = panel.records
-    lookup = {wave_key(w): w for w in cb.study.waves}
-    wave = rec[WAVE_RAW].map(lambda v: lookup.get(wave_key(v)))
-    keep = rec[panel.id].notna().to_numpy() & wave.notna().to_numpy()
-    base = rec[keep].assign(**{"__wave": wave[keep]})
-    order = {w: i for i, w in enumerate(cb.study.waves)}
-    base = base.assign(__order=base["__wave"].map(order))
-    base = base.drop_duplicates(subset=[panel.id, "__order"], keep="first")
-    base = base.sort_values([panel.id, "__order"], kind="mergesort").reset_index(drop=True)
-    columns = {panel.id: base[panel.id].to_numpy(),
-               panel.wave: pd.Series(list(base["__wave"]), dtype=_wave_dtype(cb.study.waves)).to_numpy()}
+    waves = list(cb.study.waves)
+    pos = wave_positions(rec[WAVE_RAW], waves)
+    keep = rec[panel.id].notna().to_numpy() & (pos >= 0)
+    # the wave each record stands for is waves[pos]; its order is the (last) place of that wave
+    place = {w: i for i, w in enumerate(waves)}
+    order_of_pos = np.asarray([place[w] for w in waves], dtype=np.int64)
+    # which records make the long table, in which order: worked out on (id, wave order) alone, then
+    # each column taken once (no copy of the whole record table)
+    kept = np.flatnonzero(keep)
+    key = pd.DataFrame({panel.id: rec[panel.id].to_numpy()[kept], "__order": order_of_pos[pos[kept]]})
+    first = ~key.duplicated(keep="first").to_numpy()
+    kept, key = kept[first], key[first].reset_index(drop=True)
+    perm = key.sort_values([panel.id, "__order"], kind="mergesort").index.to_numpy()
+    take = kept[perm]  # record positions of the long rows
+    base_id = key[panel.id].to_numpy()[perm]
+    wave_values = np.empty(len(waves), dtype=object)
+    wave_values[:] = waves
+    base_wave = wave_values[key["__order"].to_numpy()[perm]]
+    columns = {panel.id: base_id,
+               panel.wave: pd.Series(base_wave, dtype=_wave_dtype(cb.study.waves)).to_numpy()}
     reasons = []
     for var in cb.data_variables():
         if var.name == panel.wave:
             continue
-        raw = base[var.name] if var.name in base.columns else pd.Series([np.nan] * len(base))
-        values, hit = clean_values(raw.reset_index(drop=True), var)
+        raw = rec[var.name].iloc[take] if var.name in rec.columns else pd.Series([np.nan] * len(take))
+        values, hit, is_code = _clean_values(raw.reset_index(drop=True), var)
         columns[var.name] = values
-        if hit is not None and hit.notna().any():
-            idx = np.flatnonzero(hit.notna().to_numpy())
+        if is_code.any():
+            idx = np.flatnonzero(is_code)
             reasons.append(pd.DataFrame({
-                "id": base[panel.id].to_numpy()[idx],
-                "wave": base["__wave"].to_numpy()[idx],
+                "id": base_id[idx],
+                "wave": base_wave[idx],
                 "variable": var.name,
-                "code": [str(_fmt_code(c)) for c in hit.to_numpy()[idx]],
-                "reason": [var.missing.get(c, "") for c in hit.to_numpy()[idx]],
+                "code": map_column(hit.to_numpy()[idx], lambda c: str(_fmt_code(c))),
+                "reason": map_column(hit.to_numpy()[idx], lambda c: var.missing.get(c, "")),
             }))
     long = pd.DataFrame(columns)
     for name, col in columns.items():
@@ -355,7 +513,9 @@ def _clean(panel: Panel):
         missing = pd.concat(reasons, ignore_index=True)
     else:
         missing = pd.DataFrame({"id": [], "wave": [], "variable": [], "code": [], "reason": []})
-    origin = pd.DataFrame({FILE: base[FILE].to_numpy(), ROW: base[ROW].to_numpy()})
+    files = rec[FILE].iloc[take].reset_index(drop=True)
+    origin = pd.DataFrame({FILE: files.to_numpy(dtype=object) if files.dtype == object else files.array,
+                           ROW: rec[ROW].to_numpy()[take]})
     return long, missing, origin
 
 
@@ -371,11 +531,49 @@ def _fmt_code(c):
 
 def match_missing(raw: pd.Series, var: Variable) -> pd.Series:
     """The declared missing code each value equals (else NaN), as the codebook key."""
-    out = pd.Series([None] * len(raw), index=raw.index, dtype=object)
     if not var.missing:
-        return out
+        return pd.Series([None] * len(raw), index=raw.index, dtype=object)
+    found = missing_code_index(raw, var)
+    if found is None:  # a mix of kinds in one column: value by value
+        return _match_missing_cells(raw, var)
+    declared = np.empty(len(var.missing) + 1, dtype=object)
+    declared[:-1] = list(var.missing)
+    declared[-1] = None
+    return pd.Series(declared[found], index=raw.index, dtype=object)
+
+
+def missing_code_index(raw: pd.Series, var: Variable) -> np.ndarray | None:
+    """Per cell, the place in ``var.missing`` of the code :func:`match_missing` finds (-1: none).
+
+    None when the column mixes kinds of values (then only :func:`match_missing` answers).
+    """
+    if not var.missing:
+        return np.full(len(raw), -1, dtype=np.int64)
+    fact = factorize_column(raw)
+    if fact is None:
+        return None
+    codes, uniq = fact
+    # the matching runs on the distinct values; the first declared code that matches wins
+    found = np.full(len(uniq) + 1, -1, dtype=np.int64)
+    if uniq:
+        u = pd.Series(uniq, dtype=object) if raw.dtype.kind not in "iufb" else pd.Series(np.asarray(uniq))
+        num = pd.to_numeric(u, errors="coerce").to_numpy(dtype=float)
+        text = None
+        for k, code in enumerate(var.missing):
+            if isinstance(code, (int, float)) and not isinstance(code, bool):
+                hit = num == float(code)
+            else:
+                if text is None:
+                    text = np.asarray([_to_stripped(v) for v in uniq], dtype=object)
+                hit = text == str(code)
+            found[:-1][hit & (found[:-1] < 0)] = k
+    return found[codes]
+
+
+def _match_missing_cells(raw: pd.Series, var: Variable) -> pd.Series:
+    out = pd.Series([None] * len(raw), index=raw.index, dtype=object)
     num = pd.to_numeric(raw, errors="coerce")
-    text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
+    text = raw.map(_to_stripped)
     for code in var.missing:
         if isinstance(code, (int, float)) and not isinstance(code, bool):
             hit = (num == float(code)).to_numpy()
@@ -392,19 +590,52 @@ def clean_values(raw: pd.Series, var: Variable):
     and the Series of matched missing codes (None where none matched).
     Values that do not fit the type become NaN (the checks report them).
     """
-    hit = match_missing(raw, var)
-    raw = raw.where(hit.isna(), None)
+    values, hit, _ = _clean_values(raw, var)
+    return values, hit
+
+
+def _clean_values(raw: pd.Series, var: Variable):
+    """:func:`clean_values` plus the boolean mask of cells that held a declared missing code."""
+    found = missing_code_index(raw, var)
+    if found is None:  # a column mixing kinds of values: value by value
+        hit = match_missing(raw, var)
+        is_code = hit.notna().to_numpy()
+    else:
+        declared = np.empty(len(var.missing) + 1, dtype=object)
+        declared[:-1] = list(var.missing)
+        declared[-1] = None
+        hit = pd.Series(declared[found], index=raw.index, dtype=object)
+        is_code = found >= 0
+    raw = raw.where(~is_code, None)
+    values = _typed_values(raw, var)
+    return values, hit, is_code
+
+
+def _typed_values(raw: pd.Series, var: Variable):
     if var.type in ("integer", "number"):
-        return pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float), hit
+        return pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
     if var.type == "category":
         codes = list(var.levels)
-        mapped = raw.map(lambda v: level_of(v, codes))
-        return pd.Categorical(mapped, categories=codes, ordered=var.ordered), hit
+        return _categorical(raw, codes, var.ordered)
     if var.type == "date":
-        text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
-        return pd.to_datetime(text, errors="coerce", format="ISO8601").to_numpy(), hit
-    text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
-    return text.to_numpy(dtype=object), hit
+        text = pd.Series(text_column(raw), index=raw.index, dtype=object)
+        return pd.to_datetime(text, errors="coerce", format="ISO8601").to_numpy()
+    # through a Series, as Series.map gave it: all-text cells become pandas' text type (empty = NaN)
+    return pd.Series(text_column(raw)).to_numpy(dtype=object)
+
+
+def _categorical(raw: pd.Series, codes: list, ordered: bool) -> pd.Categorical:
+    """``pd.Categorical([level_of(v, codes) for v in raw], codes, ordered)``, per distinct value."""
+    fact = factorize_column(raw)
+    if fact is None:
+        return pd.Categorical(level_column(raw, codes), categories=codes, ordered=ordered)
+    cell_codes, uniq = fact
+    levels = np.empty(len(uniq) + 1, dtype=object)
+    for i, v in enumerate(uniq):
+        levels[i] = level_of(v, codes)
+    levels[-1] = level_of(None, codes) if raw.dtype.kind != "f" else level_of(float("nan"), codes)
+    per_unique = pd.Categorical(levels, categories=codes, ordered=ordered)
+    return pd.Categorical.from_codes(per_unique.codes[cell_codes], dtype=per_unique.dtype)
 
 
 def level_of(value, codes: list):

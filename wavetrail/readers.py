@@ -16,6 +16,7 @@ from __future__ import annotations
 import csv
 import io
 import os
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -133,6 +134,12 @@ def _read_delimited(path: Path, delimiter: str | None) -> RawTable:
         raise DataError(f"{path}:{line}: the file is not UTF-8 text (byte 0x{raw[exc.start]:02x} "
                         f"at offset {exc.start})",
                         hint="save it as UTF-8 (it may be Latin-1 or Windows-1252)") from None
+    if len(raw) >= FAST_BYTES:
+        head, text = text[:_HEAD_CHARS], None  # the whole text is not needed: free it
+        table = _read_delimited_columnar(path, raw, head, delimiter)
+        if table is not None:
+            return table
+        text = raw.decode("utf-8-sig")
     lines = text.splitlines()
     while lines and not lines[-1].strip():
         lines.pop()
@@ -142,6 +149,147 @@ def _read_delimited(path: Path, delimiter: str | None) -> RawTable:
         delimiter = _sniff(lines[:_SNIFF_LINES], tab_first=path.suffix.lower() in (".tsv", ".tab"))
     header, records, numbers = _parse(path, lines, delimiter)
     return _to_table(path, header, records, numbers)
+
+
+#: delimited files from this size on are parsed column by column (pandas' C parser)
+FAST_BYTES = 4 << 20
+#: characters at the start of a file where the delimiter is sniffed (the first 200 lines must fit)
+_HEAD_CHARS = 1 << 20
+#: bytes scanned at once when counting lines, delimiters and blank lines
+_SCAN_BYTES = 32 << 20
+#: characters Python's str.splitlines() also takes as line ends (besides \n and \r\n)
+_ODD_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e", b"\xc2\x85", b"\xe2\x80\xa8", b"\xe2\x80\xa9")
+
+
+def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str | None) -> RawTable | None:
+    """The table (``text``: the decoded file or at least its first ``_HEAD_CHARS`` characters) :func:`_parse` + :func:`_to_table` give, without a Python object per cell.
+
+    Covers the common large file: ``\n`` or ``\r\n`` line ends, no quotes
+    after the header, every line with the header's number of fields, distinct
+    named header fields. Returns None for anything else (the caller then
+    parses line by line, which also words every error message).
+    """
+    head = text[:_HEAD_CHARS].splitlines()
+    if len(head) <= _SNIFF_LINES:
+        return None
+    if any(b in raw for b in _ODD_BREAKS) or raw.count(b"\r") != raw.count(b"\r\n"):
+        return None
+    if delimiter is None:
+        delimiter = _sniff(head[:_SNIFF_LINES], tab_first=path.suffix.lower() in (".tsv", ".tab"))
+    if len(delimiter) != 1 or delimiter in ('"', "\n", "\r", " "):
+        return None
+    start = 3 if raw.startswith(b"\xef\xbb\xbf") else 0
+    # per line: where it ends and whether it holds a record (more than blank space, or a delimiter)
+    ends, filled = [], []
+    d = ord(delimiter)
+    pos = start
+    while pos < len(raw):
+        stop = min(len(raw), pos + _SCAN_BYTES)
+        if stop < len(raw):
+            cut = raw.rfind(b"\n", pos, stop)
+            stop = len(raw) if cut < 0 else cut + 1
+        buf = np.frombuffer(raw, dtype=np.uint8, count=stop - pos, offset=pos)
+        nl = np.flatnonzero(buf == 10)
+        if stop == len(raw) and (not len(nl) or nl[-1] != len(buf) - 1):
+            nl = np.append(nl, len(buf))  # a last line without a line end
+        if not len(nl):
+            pos = stop
+            continue
+        starts = np.concatenate(([0], nl[:-1] + 1))
+        length = nl - starts
+        first = buf[np.minimum(starts, len(buf) - 1)]
+        full = (length > 1) | ((length == 1) & (first != 13))  # not empty, not a lone \r
+        # a line of blank space starts with one; look at those few lines one by one
+        doubt = np.flatnonzero(full & ((first == 32) | (first == 9)))
+        if len(doubt) > 100_000:  # many lines start blank: count blank bytes per line instead
+            blank = (buf == 32) | (buf == 9) | (buf == 13)
+            n_blank = np.add.reduceat(blank, starts, dtype=np.int64)
+            n_delim = np.add.reduceat(buf == d, starts, dtype=np.int64)
+            full &= (length > n_blank) | (n_delim > 0)
+        else:
+            for i in doubt.tolist():
+                line = raw[pos + int(starts[i]):pos + int(nl[i])]
+                if not line.strip(b" \t\r") and bytes([d]) not in line:
+                    full[i] = False
+        filled.append(full)
+        ends.append(nl + pos)
+        del buf
+        pos = stop
+    filled = np.concatenate(filled)
+    ends = np.concatenate(ends)
+    line_no = np.flatnonzero(filled) + 1  # 1-based numbers of the lines that hold a record or the header
+    if len(line_no) < 2:
+        return None
+    header_line = int(line_no[0])
+    header_end = int(ends[header_line - 1]) + 1
+    if b'"' in raw[header_end:]:
+        return None
+    header_text = raw[start:header_end].decode("utf-8").splitlines()[header_line - 1]
+    try:
+        header = [h.strip() for h in next(csv.reader([header_text], delimiter=delimiter, strict=True))]
+    except (csv.Error, StopIteration):
+        return None
+    if len(header) < 2 or "" in header or len(set(header)) != len(header):
+        return None
+    rows = line_no[1:]
+    # every record holds len(header) - 1 delimiters: the first one checked alone (it sets how many
+    # fields the C parser expects, which then refuses longer lines), then the sum over all of them
+    # (no line longer, so none shorter)
+    sep = delimiter.encode()
+    first_rec = raw[int(ends[rows[0] - 2]) + 1:int(ends[rows[0] - 1])]
+    if first_rec.count(sep) != len(header) - 1:
+        return None
+    if raw.count(sep, header_end) != len(rows) * (len(header) - 1):
+        return None  # a short or long line: the line-by-line parse names it
+    try:
+        with warnings.catch_warnings():  # mixed kinds in one column: read again as text below
+            warnings.simplefilter("ignore")
+            frame = pd.read_csv(io.BytesIO(raw), sep=delimiter, header=0, names=header, encoding="utf-8-sig",
+                                na_values=sorted(MISSING_TOKENS), keep_default_na=False, skip_blank_lines=True,
+                                engine="c", skipinitialspace=False)
+    except Exception:  # noqa: BLE001 - any parser complaint: the line-by-line parse words it
+        return None
+    if len(frame) != len(rows):
+        return None
+    text_cols = [c for c in header if frame[c].dtype.kind not in "iuf"]
+    if text_cols:
+        try:
+            texts = pd.read_csv(io.BytesIO(raw), sep=delimiter, header=0, names=header, encoding="utf-8-sig",
+                                usecols=text_cols, dtype=object, keep_default_na=False, na_filter=False,
+                                skip_blank_lines=True, engine="c")
+        except Exception:  # noqa: BLE001
+            return None
+        if len(texts) != len(rows):
+            return None
+    columns: dict[str, pd.Series] = {}
+    for name in header:
+        if name in text_cols:
+            cells = texts[name].to_numpy(dtype=object)
+            columns[name] = _convert_cells(cells)
+        else:
+            columns[name] = _maybe_int(pd.Series(frame[name].to_numpy(dtype=float)))
+    out = pd.DataFrame(columns, index=pd.RangeIndex(len(rows)))
+    return RawTable(path=path, frame=out, rows=rows.astype(np.int64), format="csv")
+
+
+def _convert_cells(cells: np.ndarray) -> pd.Series:
+    """:func:`_convert` of an object array of text cells (stripped, per distinct value)."""
+    codes, uniq = pd.factorize(cells, use_na_sentinel=True)
+    clean = np.empty(len(uniq) + 1, dtype=object)
+    for i, v in enumerate(uniq):
+        t = str(v).strip()
+        clean[i] = None if t in MISSING_TOKENS else t
+    clean[-1] = None
+    # numbers when every filled cell is a number (to_numeric works value by value: run it on the distinct ones)
+    present = np.asarray([c is not None for c in clean], dtype=bool)
+    if not present[codes].any():
+        return pd.Series(np.full(len(cells), np.nan))
+    num = pd.to_numeric(pd.Series(clean[present], dtype=object), errors="coerce").to_numpy(dtype=float)
+    if np.isnan(num).any():
+        return pd.Series(clean[codes], dtype=object)
+    values = np.full(len(clean), np.nan)
+    values[present] = num
+    return _maybe_int(pd.Series(values[codes]))
 
 
 def _field_counts(lines: list[str], delimiter: str) -> list[int]:
@@ -234,7 +382,10 @@ def _to_table(path: Path, header: list[str], records: list[list[str]], numbers: 
 
 def _convert(values: list[str]) -> pd.Series:
     """Text cells -> numbers when every filled cell is a number, else text (missing = NaN)."""
-    s = pd.Series([None if v in MISSING_TOKENS else v for v in values], dtype=object)
+    return _convert_series(pd.Series([None if v in MISSING_TOKENS else v for v in values], dtype=object))
+
+
+def _convert_series(s: pd.Series) -> pd.Series:
     filled = s.notna()
     if not filled.any():
         return pd.Series(np.full(len(s), np.nan))

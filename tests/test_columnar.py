@@ -1,0 +1,192 @@
+"""Column-at-a-time reading and checking give exactly what the value-by-value code gave.
+
+The reference functions below are the value-by-value definitions (one Python
+call per cell); the library now calls them once per distinct value of a column.
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import wavetrail.readers as readers
+from wavetrail.checks import looks_like_missing_code
+from wavetrail.codebook import Variable
+from wavetrail.panel import (clean_values, level_column, level_of, map_column, match_missing, text_column,
+                             wave_key, wave_keys, wave_positions)
+
+
+def ref_match_missing(raw, var):
+    out = pd.Series([None] * len(raw), index=raw.index, dtype=object)
+    if not var.missing:
+        return out
+    num = pd.to_numeric(raw, errors="coerce")
+    text = raw.map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip())
+    for code in var.missing:
+        if isinstance(code, (int, float)) and not isinstance(code, bool):
+            hit = (num == float(code)).to_numpy()
+        else:
+            hit = (text == str(code)).to_numpy()
+        out[hit & out.isna().to_numpy()] = code
+    return out
+
+
+def ref_looks_like_missing_code(values):
+    v = np.asarray(values, dtype=float)
+    out = np.zeros(v.shape, dtype=bool)
+    ok = np.isfinite(v) & (v == np.round(v))
+    a = np.abs(np.where(ok, v, 0)).astype(np.int64)
+    for i in np.flatnonzero(ok):
+        s = str(a[i])
+        if v[i] < 0 and 1 <= a[i] <= 9:
+            out[i] = True
+        elif len(s) >= 2 and (set(s) <= {"9"} or set(s) <= {"8"} or set(s) <= {"7"}
+                              or (set(s[:-1]) <= {"9"} and s[-1] in "78")):
+            out[i] = True
+    return out
+
+
+TEXT = ["-99", "-99.0", " -99 ", "-98", "99", "1", "1.0", " 2", "2.5", "girl", "boy", "", "NA", "x",
+        "3", "-9", "1e2", "-0", "0.0"]
+NUMBERS = [-99.0, -98.0, 1.0, 2.0, 2.5, 99.0, -0.0, 0.0, np.nan, 1e2, -9.0, 3.0, 9999.0]
+
+
+def columns():
+    rng = np.random.default_rng(3)
+    text = rng.choice(TEXT, 400).astype(object)
+    text[rng.random(400) < 0.1] = None
+    text_nan = text.copy()
+    text_nan[rng.random(400) < 0.1] = np.nan  # None and NaN both stand for an empty cell
+    mixed = np.asarray([1, "1", 2.0, "-99", -99, None, True, "a", 1.0, np.nan] * 8, dtype=object)
+    return {
+        "text": pd.Series(text, dtype=object),
+        "text_nan": pd.Series(text_nan, dtype=object),
+        "float": pd.Series(rng.choice(NUMBERS, 400)),
+        "int": pd.Series(rng.choice([-99, -98, 1, 2, 3, 99, 7, -9], 400)),
+        "int_wide": pd.Series(rng.choice([-(2 ** 40), 1, 2, 2 ** 40, -99], 400)),
+        "whole_float": pd.Series(rng.choice([1.0, 2.0, np.nan, -99.0, 0.0, 3.0, 99.0], 400)),
+        "whole_float_negzero": pd.Series(rng.choice([1.0, -0.0, np.nan, -99.0, 0.0], 400)),
+        "mixed": pd.Series(mixed, dtype=object),
+        "empty": pd.Series([None] * 5, dtype=object),
+        "str_dtype": pd.Series(["1", "2", None, "-99"] * 10, dtype="str"),
+    }
+
+
+VARIABLES = [
+    Variable(name="a", type="integer", range=(1, 5), missing={-99: "refused", -98: "do not know"}),
+    Variable(name="b", type="integer", missing={"-99": "text code", 99: "number code"}),
+    Variable(name="c", type="number", missing={-99.0: "refused", "x": "other"}),
+    Variable(name="d", type="category", levels={1: "girl", 2: "boy"}, missing={-9: "none"}),
+    Variable(name="e", type="category", levels={"girl": "g", "boy": "b", "3": "three"}, missing={"-99": "no"}),
+    Variable(name="f", type="text", missing={" -99 ": "never matches stripped text", "NA": "na"}),
+    Variable(name="g", type="date", missing={"1900-01-01": "unknown"}),
+    Variable(name="h", type="number"),
+]
+
+
+def same(a, b):
+    a, b = list(a), list(b)
+    assert len(a) == len(b)
+    for x, y in zip(a, b):
+        assert type(x) is type(y) and (x == y or (x is None and y is None) or (x != x and y != y)), (x, y)
+
+
+@pytest.mark.parametrize("column", list(columns()))
+def test_per_column_functions_equal_the_per_value_ones(column):
+    raw = columns()[column]
+    same(wave_keys(raw), [wave_key(v) for v in raw.astype(object)])
+    to_text = lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)  # noqa: E731
+    same(text_column(raw), [to_text(v) for v in raw.astype(object)])
+    for codes in ([1, 2], ["girl", "boy", "3"], [1.5, 2]):
+        same(level_column(raw, codes), [level_of(v, codes) for v in raw.astype(object)])
+    waves = [1, 2, 3]
+    lookup = {wave_key(w): i for i, w in enumerate(waves)}
+    assert wave_positions(raw, waves).tolist() == [lookup.get(wave_key(v), -1) for v in raw.astype(object)]
+    for var in VARIABLES:
+        got, ref = match_missing(raw, var), ref_match_missing(raw, var)
+        same(got, ref)
+        values, hit = clean_values(raw, var)
+        same(hit, ref)
+        if var.type == "text":  # what Series.map gave, through pandas' inference of the result type
+            same(values, raw.where(ref.isna(), None).map(to_text).to_numpy(dtype=object))
+        if var.type == "category":  # the Categorical of level_of of every non-code cell
+            expected = pd.Categorical(raw.where(ref.isna(), None).map(lambda v: level_of(v, list(var.levels))),
+                                      categories=list(var.levels))
+            assert list(values.codes) == list(expected.codes)
+
+
+def test_map_column_passes_cells_as_series_map_does():
+    f = pd.Series([1.0, np.nan, 2.0])
+    # a function that tells None from NaN sees NaN for an empty float cell, as Series.map passes it
+    same(map_column(f, lambda v: None if v is None else str(v)), ["1.0", "nan", "2.0"])
+    o = pd.Series(["a", None, np.nan], dtype=object)
+    same(map_column(o, lambda v: None if v is None else str(v)), ["a", None, "nan"])
+    # -0.0 and 0.0 stay apart (they print differently)
+    same(map_column(pd.Series([0.0, -0.0]), str), ["0.0", "-0.0"])
+
+
+def test_missing_code_look_equals_value_by_value():
+    rng = np.random.default_rng(7)
+    v = np.concatenate([rng.integers(-12, 12, 300), [99, 98, 97, 77, 88, 999, 9999, -99, -999, 979, 89, 7, 9,
+                                                     1e12, -1.5, np.nan, np.inf, -np.inf, 0]]).astype(float)
+    assert looks_like_missing_code(v).tolist() == ref_looks_like_missing_code(v).tolist()
+    assert looks_like_missing_code(np.array([np.nan, 1.5])).tolist() == [False, False]
+
+
+def _tricky_file(path, n=800, seed=2, quote_header=False):
+    rng = np.random.default_rng(seed)
+    head = '"pid","wave","x","y","z","b","e"' if quote_header else "pid,wave,x,y,z,b,e"
+    lines = [head]
+    for i in range(n):
+        lines.append(",".join([str(i // 3 + 1), str(rng.choice(["1", "2", "3", "1.0", " 2 "])),
+                               f"{rng.normal() * 10.0 ** rng.integers(-3, 6):.6g}",
+                               str(rng.choice(["1", "2", "-99", "", "NA", " 3 ", "2.0", "."])),
+                               str(rng.choice(["a", "b", " c", "NAN", "True", "-99.0"])),
+                               str(rng.choice(["True", "False"])),
+                               str(rng.choice(["inf", "1", "-Infinity", "nan", "1e400", "007"]))]))
+    lines[40:40] = ["", "   ", ",,,,,,", "\t", "  7,1,2.5,3,a,True,1", "\t8,2,1,2,b,False,inf"]
+    path.write_bytes(("\n".join(lines) + "\n").replace("\n", "\r\n").encode())
+    return path
+
+
+@pytest.mark.parametrize("quote_header", [False, True])
+def test_columnar_reader_equals_line_by_line(tmp_path, monkeypatch, quote_header):
+    path = _tricky_file(tmp_path / "tricky.csv", quote_header=quote_header)
+    monkeypatch.setattr(readers, "FAST_BYTES", 0)
+    raw = path.read_bytes()
+    fast = readers._read_delimited_columnar(path, raw, raw.decode("utf-8-sig"), None)
+    assert fast is not None  # the file is one the columnar reader takes
+    monkeypatch.setattr(readers, "FAST_BYTES", 1 << 40)
+    slow = readers.read_table(path)
+    assert fast.rows.tolist() == slow.rows.tolist()
+    assert list(fast.frame.columns) == list(slow.frame.columns)
+    for c in slow.frame:
+        a, b = fast.frame[c], slow.frame[c]
+        assert a.dtype == b.dtype, c
+        same(a.astype(object), b.astype(object))
+
+
+@pytest.mark.parametrize("damage", ["short", "long", "quote", "dup_header", "long_then_short"])
+def test_columnar_reader_hands_odd_files_to_the_line_parser(tmp_path, monkeypatch, damage):
+    path = _tricky_file(tmp_path / "bad.csv")
+    text = path.read_bytes().decode()
+    lines = text.split("\r\n")
+    if damage == "short":
+        lines[300] = "1,2,3"
+    elif damage == "long":
+        lines[300] = lines[300] + ",9"
+    elif damage == "quote":
+        lines[300] = '1,1,2,"a\r\nb",x,True,1'
+    elif damage == "long_then_short":  # the first record one field too many, a later one too few
+        lines[1] = lines[1] + ",9"
+        lines[300] = lines[300].rsplit(",", 1)[0]
+    else:
+        lines[0] = "pid,wave,x,y,x,b,e"
+    path.write_bytes("\r\n".join(lines).encode())
+    raw = path.read_bytes()
+    assert readers._read_delimited_columnar(path, raw, raw.decode(), None) is None
+    monkeypatch.setattr(readers, "FAST_BYTES", 0)
+    if damage in ("short", "long", "dup_header", "long_then_short"):
+        with pytest.raises(readers.DataError, match="bad.csv:(301|1|2):"):
+            readers.read_table(path)
+    else:
+        assert len(readers.read_table(path).frame) == 803  # 800 records, the line of commas, two lines starting blank
