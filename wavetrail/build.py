@@ -131,7 +131,29 @@ def _check_inputs(root: Path) -> dict:
     if not (root / config["codebook"]).is_file():
         raise DataError(f"codebook {config['codebook']} does not exist (key `codebook` in {CONFIG_FILE})",
                         hint="write one, or draft it with `wavetrail new --data FILE` in a fresh folder")
+    check_settings(root, config, lines)
     return config
+
+
+def check_settings(root: Path, config: dict, lines: dict) -> tuple[list[str], str | None]:
+    """What must hold before any job runs: the codebook loads, every name of the
+    settings resolves against it, and no data file is empty (a header without rows).
+
+    Returns the growth outcomes and the forest outcome the settings stand for.
+    """
+    from wavetrail.codebook import load_codebook
+    from wavetrail.config import CONFIG_FILE, check_names
+    from wavetrail.readers import has_records
+
+    codebook = load_codebook(root / config["codebook"])
+    resolved = check_names(config, codebook, source=CONFIG_FILE, lines=lines)
+    for i, name in enumerate(config["data"]):
+        if not has_records(root / name):
+            raise DataError(f"data file {name} has a header but no data rows (listed under `data` in "
+                            f"{CONFIG_FILE}, line {lines.get(('data', i)) or lines.get(('data',), '?')})",
+                            hint="copy the full data file again (the export may have stopped after the header), "
+                                 "then register it with `wavetrail data add`")
+    return resolved
 
 
 def build_project(

@@ -102,13 +102,22 @@ def demo(
 
 
 @app.command()
-def check(path: Path = ProjectArg):
-    """Check the raw data against the codebook and print the findings."""
+def check(
+    path: Path = ProjectArg,
+    findings_to: Optional[Path] = typer.Option(
+        None, "--findings-to", help="Also write the full findings table (CSV) to this file."),
+):
+    """Check the settings and the raw data against the codebook and print the findings."""
+    from wavetrail._io import write_table
     from wavetrail.project import check_project
 
     findings = check_project(path)
     if len(findings):
-        print_table(findings[["severity", "check", "variable", "wave", "count", "message"]], title="Findings")
+        print_table(findings[["severity", "check", "variable", "wave", "count", "rows", "message"]],
+                    title="Findings (rows: file:line of up to five examples)")
+    if findings_to is not None:
+        write_table(findings_to, findings)
+        console.print(f"findings written to {findings_to}")
     n_err = int((findings["severity"] == "error").sum()) if len(findings) else 0
     console.print(f"{len(findings)} findings, {n_err} errors")
     raise typer.Exit(1 if n_err else 0)
