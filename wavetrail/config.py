@@ -406,7 +406,7 @@ def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
         body = "\n".join(f"  {where}{_line(n)}: {text}" for n, text in problems)
         cb = f" ({codebook.path})" if codebook.path else ""
         k = len(problems)
-        raise ConfigError(f"{k} name{'s' if k > 1 else ''} in the settings do{'es' if k == 1 else ''} not match "
+        raise ConfigError(f"{k} problem{'s' if k > 1 else ''} with the names in the settings, checked against "
                           f"the codebook{cb}:\n{body}",
                           hint="outcomes are scales or numeric variables measured at two or more waves; "
                                f"here: {', '.join(candidates) or 'none'}")
