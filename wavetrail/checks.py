@@ -352,10 +352,10 @@ def _unexpected_waves(var: Variable, rec: pd.DataFrame, off: np.ndarray, out: _C
     listed = ~off & rec["__wave"].isin(list(var.waves)).to_numpy() & values.notna().to_numpy()
     ref = pd.Series(values[listed].to_numpy(), index=rec.loc[listed, sid].astype(str).to_numpy())
     ref = ref[~ref.index.duplicated(keep="first")]
-    ids = rec[sid].astype(str).to_numpy()
-    mine = pd.Series(ids).map(ref).to_numpy()
-    same = np.array([off[i] and mine[i] is not None and not _isnan(mine[i]) and _same(values[i], mine[i])
-                     for i in range(len(off))], dtype=bool)
+    mine = pd.Series(rec[sid].astype(str).to_numpy()).map(ref)
+    # cleaned values of one variable have one type, so equal values have equal text
+    same = off & mine.notna().to_numpy() & values.notna().to_numpy() \
+        & (values.astype(str).to_numpy() == mine.astype(str).to_numpy())
     differ = off & ~same
     listed_text = ", ".join(map(str, var.waves))
     later = sorted({str(w) for w in rec.loc[off, "__wave"]})
@@ -376,17 +376,6 @@ def _unexpected_waves(var: Variable, rec: pd.DataFrame, off: np.ndarray, out: _C
                 f"{list(var.waves)}) differ from the value at a listed wave (e.g. {vals}); they are not used — "
                 f"if {var.name} changes over time, remove `waves:` from its entry ({cb.where(var.name)})",
                 variable=var.name, wave=one_wave(differ), count=int(differ.sum()), rows=_where(rec, differ))
-
-
-def _isnan(v) -> bool:
-    return isinstance(v, float) and np.isnan(v)
-
-
-def _same(a, b) -> bool:
-    try:
-        return bool(a == b) or (float(a) == float(b))
-    except (TypeError, ValueError):
-        return False
 
 
 def _derived(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> None:
