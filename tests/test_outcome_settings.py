@@ -314,3 +314,29 @@ def test_time_invariant_variables_give_one_finding_not_one_per_wave():
     assert not (f3["severity"] == "error").any(), f3
     once = f3[f3["check"] == "measured_once"]
     assert len(once) == 1 and "add `waves: [1]`" in once["message"].iloc[0]
+
+
+def test_score_step_refuses_a_bad_name_when_snakemake_is_run_directly(project):
+    """`score_scales` repeats the name check, naming config.yaml and the line."""
+    from wavetrail.config import load_config
+    from wavetrail.stages.runner import Job
+    from wavetrail.stages.scores import score_scales
+
+    edit(project, "config/config.yaml", "outcomes: [weight]", "outcomes: [weight, mod]")
+    config = load_config(project)
+    findings = project / "results/checks/findings.csv"
+    findings.write_text("variable,wave,check,severity,count,rows,message\n", encoding="utf-8")
+    job = Job(step="score_scales", project=project,
+              input={"data": ["data/raw/panel.csv"], "codebook": "config/codebook.yaml",
+                     "findings": "results/checks/findings.csv"},
+              output={"scores": "results/scores/scores.csv"}, params={}, config=config, wildcards={},
+              log=None, seed=1)
+    with pytest.raises(ConfigError, match=r"config/config.yaml, line 5: growth.outcomes\[1\] 'mod'.*'mood'"):
+        score_scales(job)
+    assert not (project / "results/scores/scores.csv").exists()
+    edit(project, "config/config.yaml", "outcomes: [weight, mod]", "outcomes: [weight, mood]")
+    job.config = load_config(project)
+    score_scales(job)
+    scores = pd.read_csv(project / "results/scores/scores.csv")
+    assert list(pd.unique(scores["scale"])) == ["mood", "weight"]
+    assert job.params["derived"] == {"log_weight": {"derived_from": "weight", "transform": "log"}}

@@ -20,8 +20,6 @@ def score_scales(job) -> None:
     variable name, ``n_items`` = 1 where observed). Refuses to run when the
     findings hold an error.
     """
-    from wavetrail.config import resolve_outcomes
-
     refuse_failed_checks(job)
     codebook, panel = load_job_panel(job)
     config = dict(job.config or {})
@@ -30,13 +28,31 @@ def score_scales(job) -> None:
         config["growth"] = {**(config.get("growth") or {}), "outcomes": settings.get("outcomes") or []}
         config["forest"] = {**(config.get("forest") or {}), "outcome": settings.get("forest_outcome"),
                             "enabled": settings.get("forest_enabled", True)}
-    outcomes, forest_outcome = resolve_outcomes(config, codebook)
+    outcomes, forest_outcome = _checked_outcomes(job, config, codebook)
     measures = [o for o in [*outcomes, forest_outcome] if o and o not in codebook.scales]
     derived = {v.name: {"derived_from": v.derived_from, "transform": v.transform}
                for v in codebook.variables.values() if v.derived}
     if derived:  # visible in the ledger record's params
         job.params = {**job.params, "derived": derived}
     write_table(job.path(job.output["scores"]), score_panel(panel, measures=list(dict.fromkeys(measures))))
+
+
+def _checked_outcomes(job, config: dict, codebook):
+    """The outcomes, with every name of the settings checked against the codebook.
+
+    ``wavetrail build`` checks them before Snakemake starts; this repeats the check for a
+    workflow started some other way, naming the settings file and line where it can.
+    """
+    from wavetrail.config import CONFIG_FILE, check_names, read_yaml
+
+    lines = {}
+    settings_file = job.path(CONFIG_FILE)
+    if settings_file.is_file():
+        try:
+            _, lines = read_yaml(settings_file)
+        except ConfigError:
+            lines = {}
+    return check_names(config, codebook, source=CONFIG_FILE, lines=lines)
 
 
 def assess_reliability(job) -> None:
