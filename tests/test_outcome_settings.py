@@ -340,3 +340,17 @@ def test_score_step_refuses_a_bad_name_when_snakemake_is_run_directly(project):
     scores = pd.read_csv(project / "results/scores/scores.csv")
     assert list(pd.unique(scores["scale"])) == ["mood", "weight"]
     assert job.params["derived"] == {"log_weight": {"derived_from": "weight", "transform": "log"}}
+
+
+def test_stand_in_data_leave_derived_variables_to_the_codebook():
+    """A stand-in raw file holds the source, never the derived column, and passes the checks."""
+    from wavetrail.archive.standin import synthesize
+    from wavetrail.checks import run_checks
+
+    cb = parse_codebook(CODEBOOK)
+    made = synthesize(load_panel([panel_frame(n=60)], cb), seed=5)
+    assert "weight" in made.frame.columns and "log_weight" not in made.frame.columns
+    findings = run_checks([made.frame], cb)
+    assert not (findings["severity"] == "error").any(), findings[findings["severity"] == "error"]
+    again = load_panel([made.frame], cb).long
+    np.testing.assert_allclose(again["log_weight"], np.log(again["weight"]))
