@@ -354,3 +354,14 @@ def test_stand_in_data_leave_derived_variables_to_the_codebook():
     assert not (findings["severity"] == "error").any(), findings[findings["severity"] == "error"]
     again = load_panel([made.frame], cb).long
     np.testing.assert_allclose(again["log_weight"], np.log(again["weight"]))
+
+
+def test_interaction_pair_with_the_outcomes_own_variable_is_refused():
+    cb = parse_codebook(CODEBOOK)
+    config = default_config()
+    config["growth"]["outcomes"] = ["log_weight"]
+    config["forest"]["interaction_pairs"] = [["sex", "weight"]]
+    with pytest.raises(ConfigError, match=r"interaction_pairs\[0\] names 'weight'.*outcome's own raw variables"):
+        check_names(config, cb, lines={("forest", "interaction_pairs", 0, 1): 14})
+    config["forest"]["interaction_pairs"] = [["sex", "sport"]]
+    assert check_names(config, cb) == (["log_weight"], "log_weight")

@@ -380,12 +380,17 @@ def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
             first = study.waves[0]
             pool = {v.name for v in codebook.data_variables() if v.measured_at(first) and not v.scale
                     and not v.identifier and v.type not in ("text", "date")}
+            target = name or ((growth.get("outcomes") or list(codebook.scales) or [None])[0])
+            if target in candidates:  # wave1 leaves out the outcome's own raw variables
+                own = codebook.sources_of(target)
+                own |= {v.name for v in variables.values() if v.derived and v.derived_from in own}
+                pool -= own
         for i, pair in enumerate(forest.get("interaction_pairs") or []):
             for j, p in enumerate(pair):
                 if p not in pool:
                     what = ("is not among forest.predictors" if isinstance(predictors, list)
-                            else "is not a candidate predictor (a first-wave variable outside the scales, "
-                                 "not an identifier, text or date)")
+                            else "is not a candidate predictor (a first-wave variable outside the scales "
+                                 "and the outcome's own raw variables, not an identifier, text or date)")
                     if p not in variables:
                         what = "is not a variable of the codebook"
                     problems.append((line("forest", "interaction_pairs", i, j),
@@ -408,6 +413,6 @@ def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
         k = len(problems)
         raise ConfigError(f"{k} problem{'s' if k > 1 else ''} with the names in the settings, checked against "
                           f"the codebook{cb}:\n{body}",
-                          hint="outcomes are scales or numeric variables measured at two or more waves; "
-                               f"here: {', '.join(candidates) or 'none'}")
+                          hint="outcomes are scales or numeric variables measured at two or more waves "
+                               f"(here: {', '.join(candidates) or 'none'}); predictors are codebook variables")
     return resolve_outcomes(config, codebook)
