@@ -417,7 +417,7 @@ def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Code
             raise CodebookError(f"{where}:{line}: variable {name!r} is named twice "
                                 f"(first on line {variables[name].line})",
                                 hint="give each column one entry")
-        vtype = v.get("type", "integer")
+        vtype = v.get("type", "number" if v.get("derived_from") is not None else "integer")
         rng = v.get("range")
         if rng is not None:
             lo, hi = rng
