@@ -8,6 +8,12 @@ rule score_scales:
         findings="results/checks/findings.csv",
     output:
         scores="results/scores/scores.csv",
+    params:
+        settings={
+            "outcomes": config["growth"]["outcomes"],
+            "forest_outcome": config["forest"]["outcome"],
+            "forest_enabled": config["forest"]["enabled"],
+        },
     log:
         "logs/scores/score_scales.log",
     resources:

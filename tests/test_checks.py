@@ -80,7 +80,12 @@ CASES = {
     "unknown_level": (lambda d, c: (_set(d, 0, "sex", 3), c), "error", "sex", 1),
     "suspected_missing_code": (lambda d, c: (_set(d, 3, "it2", 99), c), "error", "it2", None),
     "missing_code": (lambda d, c: (_set(d, 3, "it2", -98), c), "info", "it2", None),
-    "unexpected_wave": (lambda d, c: (_set(d, d.index[d["wave"] == 2][0], "sex", 1), c), "warning", "sex", 2),
+    # a value at an unlisted wave that differs from the person's value at the listed wave
+    # (a value that repeats it is an info finding: see test_time_invariant_repeats_once)
+    "unexpected_wave": (lambda d, c: (_set(d, d.index[d["wave"] == 2][0], "sex",
+                                           3 - d.loc[(d["pid"] == d.loc[d.index[d["wave"] == 2][0], "pid"])
+                                                     & (d["wave"] == 1), "sex"].iloc[0]), c),
+                        "warning", "sex", 2),
     "missing_id": (lambda d, c: (_set(d, 2, "pid", None), c), "error", "pid", None),
     "unknown_wave": (lambda d, c: (_set(d, 2, "wave", 7), c), "error", "wave", None),
     "duplicate_id": (lambda d, c: (_with_row(d, d.iloc[4].to_dict()), c), "error", "pid", None),

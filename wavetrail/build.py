@@ -152,7 +152,49 @@ def _check_inputs(root: Path) -> dict:
     if not (root / config["codebook"]).is_file():
         raise DataError(f"codebook {config['codebook']} does not exist (key `codebook` in {CONFIG_FILE})",
                         hint="write one, or draft it with `wavetrail new --data FILE` in a fresh folder")
+    check_settings(root, config, lines)
     return config
+
+
+def check_settings(root: Path, config: dict, lines: dict) -> tuple[list[str], str | None]:
+    """What must hold before any job runs: the codebook loads, every name of the
+    settings resolves against it, and no data file is empty (a header without rows).
+
+    Returns the growth outcomes and the forest outcome the settings stand for.
+    """
+    from wavetrail.codebook import load_codebook
+    from wavetrail.config import CONFIG_FILE, check_names
+
+    codebook = load_codebook(root / config["codebook"])
+    resolved = check_names(config, codebook, source=CONFIG_FILE, lines=lines)
+    for i, name in enumerate(config["data"]):
+        if not _has_records(root / name):
+            raise DataError(f"data file {name} has a header but no data rows (listed under `data` in "
+                            f"{CONFIG_FILE}, line {lines.get(('data', i)) or lines.get(('data',), '?')})",
+                            hint="copy the full data file again (the export may have stopped after the header), "
+                                 "then register it with `wavetrail data add`")
+    return resolved
+
+
+_TEXT_SUFFIXES = (".csv", ".tsv", ".tab", ".txt")
+
+
+def _has_records(path: Path) -> bool:
+    """A data file holds a record below its header (text files: from the first lines only,
+    without importing pandas, so an up-to-date build stays quick)."""
+    if path.suffix.lower() in _TEXT_SUFFIXES:
+        seen = 0
+        with open(path, "rb") as fh:
+            for line in fh:
+                if line.strip():
+                    seen += 1
+                    if seen >= 2:
+                        return True
+        if seen == 1:
+            return False
+    from wavetrail.readers import has_records
+
+    return has_records(path)
 
 
 def build_project(

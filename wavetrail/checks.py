@@ -20,6 +20,12 @@ suspected_missing_code     error     -9, 99, 999, ... outside the range and not
                                      variable has no range)
 missing_code               info      declared missing codes turned into NaN
 unexpected_wave            warning   values at a wave the variable is not listed for
+                                     (info when they repeat the first-wave value)
+measured_once              info      a wide-file column without a wave suffix, read
+                                     as measured once at the first wave
+transform_domain           error     a derived variable's source outside the
+                                     transform's domain (log of x <= 0, ...)
+derived_in_file            error     a file column named like a derived variable
 missing_id                 error     a record without a person id
 unknown_wave               error     a wave value not in ``study.waves``
 duplicate_id               error     the same (id, wave) more than once
@@ -37,9 +43,8 @@ import numpy as np
 import pandas as pd
 
 from wavetrail.codebook import Codebook, Variable, load_codebook
-from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, factorize_column, level_column, load_panel,
-                             match_missing, missing_code_index, text_column, wave_key, wave_positions,
-                             level_of)
+from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, clean_values, derive_values, level_column, load_panel,
+                             match_missing, missing_code_index, text_column, wave_positions)
 
 __all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
            "looks_like_missing_code"]
@@ -176,9 +181,12 @@ def run_checks(panel_or_paths, codebook: Codebook | str | None = None) -> pd.Dat
 
     _structure(panel, out)
     _ids_and_waves(panel, rec, out)
-    for var in cb.data_variables():
+    for var in cb.file_variables():
         if var.name in rec.columns and var.name != panel.wave:
             _values(var, rec, out, cb)
+    for var in cb.data_variables():
+        if var.derived and var.derived_from in rec.columns:
+            _derived(var, rec, out, cb)
     _coverage(panel, out)
     _straight_lining(panel, out)
     for name in cb.identifiers:
@@ -194,7 +202,20 @@ def _structure(panel: Panel, out: _Collector) -> None:
     known = list(cb.variables)
     for src in panel.sources:
         single = src.waves[0] if len(src.waves) == 1 else None
+        for name in src.once:
+            first = cb.study.waves[0]
+            out.add("measured_once", "info",
+                    f"column {name!r} in {src.name} has no wave suffix: read as measured once, at wave {first} "
+                    f"(to say so, add `waves: [{first}]` to its entry, codebook {cb.where(name)})",
+                    variable=name, wave=first, count=int(src.table.frame[name].notna().sum()), rows=src.name)
         for col in src.unknown:
+            if col in cb.variables and cb.variables[col].derived:
+                var = cb.variables[col]
+                out.add("derived_in_file", "error",
+                        f"column {col!r} in {src.name} has the name of a derived variable, which the codebook "
+                        f"computes from {var.derived_from} ({cb.where(col)}); rename the column or the derived "
+                        "variable", variable=col, wave=single, rows=src.name)
+                continue
             close = difflib.get_close_matches(col, known, n=1)
             hint = f"; renamed {close[0]}?" if close else ""
             out.add("unknown_column", "warning",
@@ -304,9 +325,8 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
 
     if var.waves is not None:
         off = filled & wave.notna().to_numpy() & ~wave.isin(list(var.waves)).to_numpy()
-        emit("unexpected_wave", "warning", off,
-             lambda n, v: f"{n} value(s) at a wave the codebook does not list for {var.name} "
-                          f"(waves {list(var.waves)})")
+        if off.any():
+            _unexpected_waves(var, rec, off, out, cb)
 
     if var.type in ("integer", "number"):
         num = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
@@ -351,6 +371,76 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
         bad = filled & parsed.isna().to_numpy()
         emit("type_mismatch", "error", bad,
              lambda n, v: f"{n} value(s) are not dates (YYYY-MM-DD) (e.g. {v})")
+
+
+def _unexpected_waves(var: Variable, rec: pd.DataFrame, off: np.ndarray, out: _Collector, cb: Codebook) -> None:
+    """Values at waves a variable is not listed for: one finding, not one per wave.
+
+    A long file often repeats a time-invariant value (sex, birth year) on every
+    row of a person; values equal to the person's value at a listed wave are
+    reported once as info, values that differ once as a warning.
+    """
+    sid = cb.study.id
+    values, _ = clean_values(rec[var.name].reset_index(drop=True), var)
+    values = pd.Series(np.asarray(values, dtype=object))
+    listed = ~off & rec["__wave"].isin(list(var.waves)).to_numpy() & values.notna().to_numpy()
+    ref = pd.Series(values[listed].to_numpy(), index=rec.loc[listed, sid].astype(str).to_numpy())
+    ref = ref[~ref.index.duplicated(keep="first")]
+    mine = pd.Series(rec[sid].astype(str).to_numpy()).map(ref)
+    # cleaned values of one variable have one type, so equal values have equal text
+    same = off & mine.notna().to_numpy() & values.notna().to_numpy() \
+        & (values.astype(str).to_numpy() == mine.astype(str).to_numpy())
+    differ = off & ~same
+    listed_text = ", ".join(map(str, var.waves))
+    later = sorted({str(w) for w in rec.loc[off, "__wave"]})
+
+    def one_wave(mask):
+        ws = list(dict.fromkeys(rec.loc[mask, "__wave"]))
+        return ws[0] if len(ws) == 1 else None
+
+    if same.any():
+        out.add("unexpected_wave", "info",
+                f"{int(same.sum())} value(s) at wave(s) {', '.join(later)} repeat the value at wave {listed_text}; "
+                f"{var.name} is used as measured at wave {listed_text} only", variable=var.name,
+                wave=one_wave(same), count=int(same.sum()), rows=_where(rec, same))
+    if differ.any():
+        vals = "values withheld: identifier" if var.identifier else _examples(rec.loc[differ, var.name])
+        out.add("unexpected_wave", "warning",
+                f"{int(differ.sum())} value(s) at wave(s) the codebook does not list for {var.name} (waves "
+                f"{list(var.waves)}) differ from the value at a listed wave (e.g. {vals}); they are not used — "
+                f"if {var.name} changes over time, remove `waves:` from its entry ({cb.where(var.name)})",
+                variable=var.name, wave=one_wave(differ), count=int(differ.sum()), rows=_where(rec, differ))
+
+
+def _derived(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> None:
+    """A derived variable: its source values outside the transform's domain, its range."""
+    src = cb.variables[var.derived_from]
+    cleaned, _ = clean_values(rec[src.name].reset_index(drop=True), src)
+    values, invalid = derive_values(cleaned, rec["__wave"].to_numpy(), var.transform)
+    wave = rec["__wave"]
+    need = {"log": "above 0", "log1p": "above -1", "sqrt": "0 or above"}.get(var.transform, "")
+    fix = {"log": "use `transform: log1p` if zeros are valid values, declare a code such as 0 under `missing` "
+                  f"of {src.name} if it means 'no value', or correct the data",
+           "log1p": "declare such codes under `missing`, or correct the data",
+           "sqrt": "declare negative codes under `missing`, or correct the data"}.get(var.transform, "")
+    for w in list(cb.study.waves) + [None]:
+        in_w = wave.isna().to_numpy() if w is None else (wave == w).to_numpy()
+        m = invalid & in_w
+        if m.any():
+            out.add("transform_domain", "error",
+                    f"{int(m.sum())} value(s) of {src.name} are not {need}, so `transform: {var.transform}` of "
+                    f"{var.name} cannot be applied (e.g. {_examples(cleaned[m])}); {fix}",
+                    variable=var.name, wave=w, count=int(m.sum()), rows=_where(rec, m))
+    if var.range is not None:
+        lo, hi = var.range
+        outside = np.isfinite(values) & ((values < lo) | (values > hi))
+        for w in cb.study.waves:
+            m = outside & (wave == w).to_numpy()
+            if m.any():
+                out.add("out_of_range", "error",
+                        f"{int(m.sum())} derived value(s) outside the range [{lo}, {hi}] "
+                        f"(e.g. {_examples(np.round(values[m], 4))})",
+                        variable=var.name, wave=w, count=int(m.sum()), rows=_where(rec, m))
 
 
 def _coverage(panel: Panel, out: _Collector) -> None:

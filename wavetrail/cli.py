@@ -51,6 +51,13 @@ def print_table(df, title: str | None = None, max_rows: int = 60) -> None:
         console.print(f"... {len(df) - max_rows} more rows")
 
 
+def _wave_text(w) -> str:
+    """A wave label as written (a whole-number float such as 2.0 shows as 2)."""
+    if isinstance(w, float) and w.is_integer():
+        return str(int(w))
+    return str(w)
+
+
 def _isna(v) -> bool:
     try:
         return v is None or (v != v)  # NaN
@@ -117,13 +124,25 @@ def demo(
 
 
 @app.command()
-def check(path: Path = ProjectArg):
-    """Check the raw data against the codebook and print the findings."""
+def check(
+    path: Path = ProjectArg,
+    findings_to: Optional[Path] = typer.Option(
+        None, "--findings-to", help="Also write the full findings table (CSV) to this file."),
+):
+    """Check the settings and the raw data against the codebook and print the findings."""
+    from wavetrail._io import write_table
     from wavetrail.project import check_project
 
     findings = check_project(path)
-    if len(findings):
-        print_table(findings[["severity", "check", "variable", "wave", "count", "message"]], title="Findings")
+    for _, f in findings.iterrows():
+        wave = "" if _isna(f["wave"]) or str(f["wave"]) == "" else f", wave {_wave_text(f['wave'])}"
+        console.print(f"{f['severity']:<7} {f['check']}: {f['variable']}{wave} ({f['count']})", markup=False)
+        console.print(f"        {f['message']}", markup=False, soft_wrap=True)
+        if not _isna(f["rows"]) and str(f["rows"]):
+            console.print(f"        rows: {f['rows']}", markup=False, soft_wrap=True)
+    if findings_to is not None:
+        write_table(findings_to, findings)
+        console.print(f"findings written to {findings_to}")
     n_err = int((findings["severity"] == "error").sum()) if len(findings) else 0
     console.print(f"{len(findings)} findings, {n_err} errors")
     raise typer.Exit(1 if n_err else 0)

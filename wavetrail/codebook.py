@@ -31,6 +31,7 @@ __all__ = [
     "codebook_schema",
     "draft_codebook",
     "TYPES",
+    "TRANSFORMS",
     "DEFAULT_MIN_SHARE",
 ]
 
@@ -38,6 +39,14 @@ __all__ = [
 TYPES = ("integer", "number", "category", "text", "date")
 #: least share of a scale's items that must be answered for a score (common practice)
 DEFAULT_MIN_SHARE = 0.8
+#: declared transformations of a derived variable -> what they compute
+TRANSFORMS = {
+    "log": "natural logarithm log(x); needs x > 0",
+    "log1p": "log(1 + x); needs x > -1",
+    "sqrt": "square root; needs x >= 0",
+    "standardise_wave": "(x - mean) / sd within each wave (sd with n - 1)",
+    "standardise_all": "(x - mean) / sd over all waves together (sd with n - 1)",
+}
 
 
 @dataclass(frozen=True)
@@ -74,6 +83,14 @@ class Variable:
     reverse: bool = False
     identifier: bool = False
     line: int | None = None
+    unit: str | None = None
+    derived_from: str | None = None
+    transform: str | None = None
+
+    @property
+    def derived(self) -> bool:
+        """True for a variable computed from another one (not read from the data file)."""
+        return self.derived_from is not None
 
     @property
     def numeric(self) -> bool:
@@ -127,6 +144,34 @@ class Codebook:
         """Every variable except the id and wave columns, in codebook order."""
         skip = {self.study.id, self.study.wave}
         return [v for v in self.variables.values() if v.name not in skip]
+
+    def file_variables(self) -> list[Variable]:
+        """The data variables read from the data files (derived variables left out)."""
+        return [v for v in self.data_variables() if not v.derived]
+
+    def repeated_measures(self) -> list[str]:
+        """Numeric variables measured at two or more waves (each can be a growth outcome)."""
+        n = len(self.study.waves)
+        return [v.name for v in self.data_variables()
+                if v.numeric and not v.identifier and len(v.waves if v.waves is not None else range(n)) >= 2]
+
+    def sources_of(self, name: str) -> set[str]:
+        """The raw variables an outcome (scale or variable) is made of, itself included.
+
+        A scale: its items; a derived variable: itself and, recursively, what it is
+        derived from.
+        """
+        out: set[str] = set()
+        todo = list(self.scales[name].items) if name in self.scales else [name]
+        while todo:
+            n = todo.pop()
+            if n in out:
+                continue
+            out.add(n)
+            var = self.variables.get(n)
+            if var is not None and var.derived_from:
+                todo.append(var.derived_from)
+        return out
 
     def where(self, name: str) -> str:
         """``file:line`` of a variable's entry, for messages."""
@@ -375,6 +420,20 @@ def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Code
         raise CodebookError(f"{where}:{lines.line(['study', 'time_scores'])}: study.time_scores has "
                             f"{len(time_scores)} values but study.waves has {len(waves)}",
                             hint="give one time score per wave")
+    if time_scores is not None:
+        values = [float(t) for t in time_scores]
+        bad = [t for t in values if not math.isfinite(t)]
+        if bad:
+            raise CodebookError(f"{where}:{lines.line(['study', 'time_scores'])}: study.time_scores holds "
+                                f"{bad[0]!r}; every time score must be a finite number",
+                                hint="give each wave its time in the growth model's unit (e.g. years since the first wave)")
+        for k in range(1, len(values)):
+            if values[k] <= values[k - 1]:
+                raise CodebookError(
+                    f"{where}:{lines.line(['study', 'time_scores'])}: study.time_scores [{', '.join(str(_num(t)) for t in values)}] "
+                    f"are not strictly increasing (wave {waves[k]!r} has {_num(values[k])}, after "
+                    f"{_num(values[k - 1])} at wave {waves[k - 1]!r})",
+                    hint="list the waves in time order under study.waves and give each a later time score")
     study = Study(id=str(s["id"]), waves=waves, wave=s.get("wave"), wide=s.get("wide"),
                   time_scores=tuple(float(t) for t in time_scores) if time_scores is not None else None,
                   title=s.get("title"))
@@ -387,7 +446,7 @@ def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Code
             raise CodebookError(f"{where}:{line}: variable {name!r} is named twice "
                                 f"(first on line {variables[name].line})",
                                 hint="give each column one entry")
-        vtype = v.get("type", "integer")
+        vtype = v.get("type", "number" if v.get("derived_from") is not None else "integer")
         rng = v.get("range")
         if rng is not None:
             lo, hi = rng
@@ -420,13 +479,50 @@ def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Code
         missing = {}
         for code, reason in (v.get("missing") or {}).items():
             missing[code] = str(reason)
+        _refuse_valid_missing(name, missing, rng, levels, lines.line(["variables", i, "missing"]), where)
+        derived_from, transform = v.get("derived_from"), v.get("transform")
+        if (derived_from is None) != (transform is None):
+            raise CodebookError(f"{where}:{line}: variable {name}: `derived_from` and `transform` go together",
+                                hint=f"give both, e.g. `derived_from: wage` and `transform: log` "
+                                     f"(transforms: {', '.join(TRANSFORMS)})")
+        if derived_from is not None and vtype not in ("integer", "number"):
+            raise CodebookError(f"{where}:{lines.line(['variables', i, 'type'])}: variable {name}: a derived "
+                                f"variable has type number, not {vtype}")
+        if derived_from is not None and (missing or v.get("scale")):
+            key = "missing" if missing else "scale"
+            raise CodebookError(f"{where}:{lines.line(['variables', i, key])}: variable {name}: a derived variable "
+                                f"takes no `{key}` (its missing values are those of {derived_from})",
+                                hint="declare missing codes on the variable it is derived from")
         if v.get("identifier") and v.get("scale"):
             raise CodebookError(f"{where}:{line}: variable {name} is an identifier and a scale item")
         variables[name] = Variable(
             name=name, label=str(v.get("label", "")), type=vtype, range=rng,
             levels=dict(levels) if levels else None, ordered=bool(v.get("ordered", False)),
             missing=missing, waves=vwaves, scale=v.get("scale"), reverse=bool(v.get("reverse", False)),
-            identifier=bool(v.get("identifier", False)), line=line)
+            identifier=bool(v.get("identifier", False)), line=line,
+            unit=str(v["unit"]) if v.get("unit") is not None else None,
+            derived_from=str(derived_from) if derived_from is not None else None, transform=transform)
+
+    for name, var in list(variables.items()):
+        if not var.derived:
+            continue
+        i = next(k for k, v in enumerate(data["variables"]) if v.get("name") == name)
+        src = variables.get(var.derived_from)
+        at = f"{where}:{lines.line(['variables', i, 'derived_from'])}"
+        if src is None:
+            import difflib
+            close = difflib.get_close_matches(var.derived_from, list(variables), n=1)
+            raise CodebookError(f"{at}: variable {name} is derived from {var.derived_from!r}, which the codebook "
+                                "does not list",
+                                hint=f"did you mean {close[0]!r}?" if close else "add that variable's entry")
+        if not src.numeric or src.name in (s["id"], s.get("wave")):
+            raise CodebookError(f"{at}: variable {name} is derived from {src.name}, which is not a numeric "
+                                f"variable (type {src.type})", hint="derive only from an integer or number variable")
+        if src.derived:
+            raise CodebookError(f"{at}: variable {name} is derived from {src.name}, itself derived; derive "
+                                f"from the raw variable {src.derived_from}")
+        if var.waves is None and src.waves is not None:
+            variables[name] = _replace(var, waves=src.waves)
 
     if study.wave and study.wave == study.id:
         raise CodebookError(f"{where}:{lines.line(['study'])}: study.id and study.wave name the same column")
@@ -446,7 +542,8 @@ def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Code
         if len(items) < 2:
             raise CodebookError(f"{where}:{lines.line(['scales', sname])}: scale {sname!r} has "
                                 f"{len(items)} item(s); a scale needs at least two",
-                                hint="set `scale:` on its items or remove the scale")
+                                hint="set `scale:` on its items, or remove the scale: a single measure needs no "
+                                     "scale, name the variable itself in growth.outcomes")
         settings = settings or {}
         scales[sname] = Scale(name=sname, label=str(settings.get("label", sname)),
                               min_share=float(settings.get("min_share", DEFAULT_MIN_SHARE)),
@@ -458,6 +555,38 @@ def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Code
 def _num(x):
     f = float(x)
     return int(f) if f.is_integer() else f
+
+
+def _replace(var: Variable, **changes) -> Variable:
+    from dataclasses import replace
+
+    return replace(var, **changes)
+
+
+def _same_code(a, b) -> bool:
+    """Codes equal as numbers (1, 1.0, "1") or as text."""
+    try:
+        return float(a) == float(b)
+    except (TypeError, ValueError):
+        return str(a).strip() == str(b).strip()
+
+
+def _refuse_valid_missing(name: str, missing: dict, rng, levels, line: int, where: str) -> None:
+    """A missing code must not be a valid answer: inside the range or equal to a level."""
+    for code, reason in missing.items():
+        if rng is not None and isinstance(code, (int, float)) and not isinstance(code, bool) \
+                and rng[0] <= code <= rng[1]:
+            raise CodebookError(
+                f"{where}:{line}: variable {name}: missing code {_num(code)} ({reason}) lies inside the range "
+                f"[{_num(rng[0])}, {_num(rng[1])}], so every valid answer {_num(code)} would become missing",
+                hint=f"use a code outside the range for {reason!r} (e.g. -97), or narrow the range if "
+                     f"{_num(code)} is never a valid answer")
+        for level, label in (levels or {}).items():
+            if _same_code(code, level):
+                raise CodebookError(
+                    f"{where}:{line}: variable {name}: missing code {code!r} ({reason}) is also the level "
+                    f"{level!r} ({label}), so every answer {label!r} would become missing",
+                    hint="remove the level if the code means 'missing', or remove the missing code")
 
 
 # --------------------------------------------------------------------------- drafting

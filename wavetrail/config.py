@@ -19,7 +19,8 @@ import yaml
 
 from wavetrail.errors import ConfigError
 
-__all__ = ["CONFIG_FILE", "load_config", "validate_config", "config_schema", "default_config", "read_yaml"]
+__all__ = ["CONFIG_FILE", "load_config", "validate_config", "config_schema", "default_config", "read_yaml",
+           "resolve_outcomes", "check_names", "outcome_candidates"]
 
 #: where a project keeps its settings, relative to the project folder
 CONFIG_FILE = "config/config.yaml"
@@ -262,3 +263,156 @@ def _plain(obj: Any) -> Any:
     if isinstance(obj, (list, tuple)):
         return [_plain(v) for v in obj]
     return obj
+
+
+# --------------------------------------------------------------------------- names against the codebook
+
+
+def outcome_candidates(codebook) -> list[str]:
+    """Every name that can be a growth or forest outcome: the scales, then the numeric
+    variables measured at two or more waves (a single item, a measured value, a total)."""
+    names = list(codebook.scales)
+    names += [n for n in codebook.repeated_measures() if n not in codebook.scales]
+    return names
+
+
+def _no_outcome_message(codebook) -> str:
+    measures = codebook.repeated_measures()
+    if measures:
+        return ("the codebook declares no scale, so there is no default growth outcome; name one or more of "
+                f"the numeric repeated variables under growth.outcomes: {', '.join(measures)}")
+    return ("the codebook declares no scale and no numeric variable measured at two or more waves, so there "
+            "is nothing to model over the waves")
+
+
+def resolve_outcomes(config: dict, codebook) -> tuple[list[str], str | None]:
+    """The growth outcomes and the forest outcome the settings stand for.
+
+    ``growth.outcomes: []`` means every scale of the codebook (refused when it
+    declares none); ``forest.outcome: null`` means the first growth outcome. The
+    forest outcome is ``None`` when the forest is disabled.
+
+    Raises
+    ------
+    ConfigError
+        No outcome can be found (the message lists the names that could be given).
+    """
+    growth = config.get("growth") or {}
+    forest = config.get("forest") or {}
+    outcomes = [str(o) for o in (growth.get("outcomes") or [])]
+    if not outcomes:
+        outcomes = list(codebook.scales)
+    if not outcomes:
+        raise ConfigError(f"{CONFIG_FILE}: growth.outcomes is empty and " + _no_outcome_message(codebook),
+                          hint="e.g. `growth: {outcomes: [NAME]}`; the forest models the first one unless "
+                               "forest.outcome names another")
+    forest_outcome = None
+    if forest.get("enabled", True):
+        forest_outcome = str(forest.get("outcome") or outcomes[0])
+    return outcomes, forest_outcome
+
+
+def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
+                lines: dict[tuple, int] | None = None) -> tuple[list[str], str | None]:
+    """Resolve every name of the settings against the codebook, before anything runs.
+
+    Checks growth.outcomes, forest.outcome, forest.predictors (a list),
+    forest.interaction_pairs and invariance.scales, and that a default outcome
+    exists. Returns :func:`resolve_outcomes`.
+
+    Raises
+    ------
+    ConfigError
+        Listing every unknown or unusable name with the file, the line and the key,
+        and the closest known names.
+    """
+    lines = lines or {}
+    where = str(source)
+    problems: list[tuple[int, str]] = []
+    candidates = outcome_candidates(codebook)
+    variables = codebook.variables
+    study = codebook.study
+
+    def line(*path) -> int:
+        return _line_of(lines, path)
+
+    def close(name, choices) -> str:
+        near = difflib.get_close_matches(str(name), [str(c) for c in choices], n=3, cutoff=0.6)
+        return f"; did you mean {', '.join(map(repr, near))}?" if near else ""
+
+    def why_not_outcome(name) -> str:
+        var = variables.get(name)
+        if var is None:
+            return f"is not a scale or variable of the codebook{close(name, candidates)}"
+        if name in (study.id, study.wave):
+            return "is the id or wave column"
+        if var.identifier:
+            return "is an identifier"
+        if not var.numeric:
+            return f"has type {var.type}; an outcome is a number measured at two or more waves"
+        return (f"is measured at {len(var.waves or ())} wave(s) ({', '.join(map(str, var.waves or ()))}); "
+                "an outcome needs two or more")
+
+    growth = config.get("growth") or {}
+    for i, name in enumerate(growth.get("outcomes") or []):
+        if name not in candidates:
+            problems.append((line("growth", "outcomes", i),
+                             f"growth.outcomes[{i}] {name!r} {why_not_outcome(name)}"))
+    forest = config.get("forest") or {}
+    if forest.get("enabled", True):
+        name = forest.get("outcome")
+        if name is not None and name not in candidates:
+            problems.append((line("forest", "outcome"), f"forest.outcome {name!r} {why_not_outcome(name)}"))
+        predictors = forest.get("predictors", "wave1")
+        eligible = [v.name for v in codebook.data_variables() if not v.identifier]
+        if isinstance(predictors, list):
+            for i, p in enumerate(predictors):
+                if p not in variables:
+                    problems.append((line("forest", "predictors", i),
+                                     f"forest.predictors[{i}] {p!r} is not a variable of the codebook"
+                                     f"{close(p, eligible)}"))
+                elif p not in eligible:
+                    problems.append((line("forest", "predictors", i),
+                                     f"forest.predictors[{i}] {p!r} is an identifier or the id/wave column and "
+                                     "can never be a predictor"))
+            pool = set(predictors)
+        else:
+            first = study.waves[0]
+            pool = {v.name for v in codebook.data_variables() if v.measured_at(first) and not v.scale
+                    and not v.identifier and v.type not in ("text", "date")}
+            target = name or ((growth.get("outcomes") or list(codebook.scales) or [None])[0])
+            if target in candidates:  # wave1 leaves out the outcome's own raw variables
+                own = codebook.sources_of(target)
+                own |= {v.name for v in variables.values() if v.derived and v.derived_from in own}
+                pool -= own
+        for i, pair in enumerate(forest.get("interaction_pairs") or []):
+            for j, p in enumerate(pair):
+                if p not in pool:
+                    what = ("is not among forest.predictors" if isinstance(predictors, list)
+                            else "is not a candidate predictor (a first-wave variable outside the scales "
+                                 "and the outcome's own raw variables, not an identifier, text or date)")
+                    if p not in variables:
+                        what = "is not a variable of the codebook"
+                    problems.append((line("forest", "interaction_pairs", i, j),
+                                     f"forest.interaction_pairs[{i}] names {p!r}, which {what}{close(p, pool)}"))
+    scales = (config.get("invariance") or {}).get("scales", "all")
+    if isinstance(scales, list):
+        for i, name in enumerate(scales):
+            if name not in codebook.scales:
+                extra = (" (invariance is tested for multi-item scales only; a single measure has none)"
+                         if name in variables else close(name, codebook.scales))
+                problems.append((line("invariance", "scales", i),
+                                 f"invariance.scales[{i}] {name!r} is not a scale of the codebook{extra}"))
+    if not (growth.get("outcomes") or []) and not codebook.scales:
+        problems.append((line("growth", "outcomes") or line("growth"),
+                         "growth.outcomes is empty and " + _no_outcome_message(codebook)))
+    if problems:
+        problems = sorted(set(problems))
+        body = "\n".join(f"  {where}{_line(n)}: {text}" for n, text in problems)
+        cb = f" ({codebook.path})" if codebook.path else ""
+        k = len(problems)
+        raise ConfigError(f"{k} problem{'s' if k > 1 else ''} with the names in the settings, checked against "
+                          f"the codebook{cb}:\n{body}",
+                          hint="outcomes are scales or numeric variables measured at two or more waves "
+                               f"(here: {', '.join(candidates) or 'none'}); predictors are codebook variables")
+    return resolve_outcomes(config, codebook)

@@ -49,6 +49,9 @@ class Source:
     columns: dict = field(default_factory=dict)
     unknown: list = field(default_factory=list)
     absent: list = field(default_factory=list)
+    #: wide files: variables without ``waves:`` found as one column without a wave suffix
+    #: (read as measured once, at the first wave)
+    once: list = field(default_factory=list)
 
     @property
     def name(self) -> str:
@@ -261,7 +264,7 @@ class Panel:
         first = self.long[self.long[self.wave] == self.waves[0]].set_index(self.id)
         return first[names].reindex(self.ids())
 
-    def predictors(self, spec) -> pd.DataFrame:
+    def predictors(self, spec, outcome: str | None = None) -> pd.DataFrame:
         """Candidate predictors, one row per person (index id).
 
         Parameters
@@ -269,14 +272,22 @@ class Panel:
         spec : "wave1" or list of str
             ``"wave1"``: every variable measured at the first wave outside the
             scales, not the id, an identifier, text or date. A list names them.
+        outcome : str, optional
+            The outcome (scale or variable) of the model the predictors are for:
+            with ``"wave1"``, its own raw variables are left out (the variable
+            itself, a scale's items, the variable a derived outcome is computed
+            from; see :meth:`Codebook.sources_of`). A list is taken as given.
         """
         if isinstance(spec, str):
             if spec not in ("wave1", "first_wave", f"wave{self.waves[0]}"):
                 raise DataError(f"predictors {spec!r}: give \"wave1\" or a list of variable names")
             first = self.waves[0]
+            own = self.codebook.sources_of(outcome) if outcome else set()
+            # and every other variable computed from the same raw values
+            own |= {v.name for v in self.codebook.variables.values() if v.derived and v.derived_from in own}
             names = [v.name for v in self.codebook.data_variables()
                      if v.measured_at(first) and not v.scale and not v.identifier
-                     and v.type not in ("text", "date")]
+                     and v.type not in ("text", "date") and v.name not in own]
         else:
             names = [str(n) for n in spec]
             for n in names:
@@ -341,8 +352,16 @@ def load_panel(paths, codebook: Codebook | str | os.PathLike) -> Panel:
 def _require_id(table: RawTable, codebook: Codebook) -> None:
     sid = codebook.study.id
     if sid not in table.frame.columns:
-        raise DataError(f"{table.path or table.name}: the id column {sid!r} (study.id) is not in the file",
-                        hint=_suggest(sid, table.frame.columns))
+        where = f"{table.path or table.name}"
+        hint = _suggest(sid, table.frame.columns)
+        if table.sheet is not None:
+            where += f" (sheet {table.sheet!r}, the first of {len(table.sheets)}: {', '.join(map(repr, table.sheets))})"
+            hint += ("; wavetrail reads the first sheet of a workbook: move the data sheet to the front "
+                     "or save it as a CSV file and list that under `data:`")
+        raise DataError(f"{where}: the id column {sid!r} (study.id) is not in the file", hint=hint)
+    if len(table.frame) == 0:
+        raise DataError(f"{table.path or table.name}: the file has a header but no data rows",
+                        hint="copy the full data file again (the export may have stopped after the header)")
 
 
 def _suggest(name: str, choices: Iterable) -> str:
@@ -375,11 +394,11 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
     for col in frame.columns:
         if col in skip:
             continue
-        if col in codebook.variables:
+        if col in codebook.variables and not codebook.variables[col].derived:
             src.columns[col] = (col, None)
         else:
             src.unknown.append(col)
-    for var in codebook.data_variables():
+    for var in codebook.file_variables():
         if var.name not in frame.columns:
             for w in waves:
                 if var.measured_at(w):
@@ -396,7 +415,7 @@ def _map_wide(table: RawTable, codebook: Codebook):
     study = codebook.study
     frame = table.frame
     expected: dict[str, tuple] = {}
-    for var in codebook.data_variables():
+    for var in codebook.file_variables():
         for w in study.waves:
             if var.measured_at(w):
                 expected[study.wide_column(var.name, w)] = (var.name, w)
@@ -407,7 +426,8 @@ def _map_wide(table: RawTable, codebook: Codebook):
             continue
         if col in expected:
             src.columns[col] = expected[col]
-        elif col in codebook.variables:  # a time-invariant column without a wave suffix
+        elif col in codebook.variables and not codebook.variables[col].derived:
+            # a time-invariant column without a wave suffix: measured once, at the first wave
             var = codebook.variables[col]
             first = (var.waves or study.waves)[0]
             src.columns[col] = (col, first)
@@ -416,8 +436,9 @@ def _map_wide(table: RawTable, codebook: Codebook):
             src.unknown.append(col)
     covered = set(src.columns.values())
     for col, (name, w) in expected.items():
-        if (name, w) not in covered:
+        if (name, w) not in covered and name not in plain:
             src.absent.append((name, w))
+    src.once = sorted(n for n in plain if codebook.variables[n].waves is None)
     parts = []
     for w in study.waves:
         cols = {name: c for c, (name, ww) in src.columns.items() if ww == w}
@@ -490,7 +511,7 @@ def _clean(panel: Panel):
     columns = {panel.id: base_id,
                panel.wave: pd.Series(base_wave, dtype=_wave_dtype(cb.study.waves)).to_numpy()}
     reasons = []
-    for var in cb.data_variables():
+    for var in cb.file_variables():
         if var.name == panel.wave:
             continue
         raw = rec[var.name].iloc[take] if var.name in rec.columns else pd.Series([np.nan] * len(take))
@@ -505,6 +526,9 @@ def _clean(panel: Panel):
                 "code": map_column(hit.to_numpy()[idx], lambda c: str(_fmt_code(c))),
                 "reason": map_column(hit.to_numpy()[idx], lambda c: var.missing.get(c, "")),
             }))
+    for var in cb.data_variables():
+        if var.derived:
+            columns[var.name] = derive_values(columns[var.derived_from], columns[panel.wave], var.transform)[0]
     long = pd.DataFrame(columns)
     for name, col in columns.items():
         if isinstance(col, pd.Categorical):
@@ -527,6 +551,55 @@ def _fmt_code(c):
     if isinstance(c, float) and c.is_integer():
         return int(c)
     return c
+
+
+def derive_values(source, waves, transform: str):
+    """A declared transformation of cleaned values (NaN stays NaN).
+
+    Parameters
+    ----------
+    source : array of float
+        The cleaned source variable (missing codes already NaN).
+    waves : array
+        The wave of each value (for ``standardise_wave``).
+    transform : str
+        One of :data:`wavetrail.codebook.TRANSFORMS`.
+
+    Returns
+    -------
+    (values, invalid)
+        The derived values (float; NaN where missing or invalid) and a boolean
+        mask of values outside the transform's domain (``log`` of x <= 0,
+        ``log1p`` of x <= -1, ``sqrt`` of x < 0), which the checks report.
+    """
+    x = np.asarray(source, dtype=float)
+    ok = np.isfinite(x)
+    invalid = np.zeros(x.shape, dtype=bool)
+    out = np.full(x.shape, np.nan)
+    if transform == "log":
+        invalid = ok & (x <= 0)
+        good = ok & ~invalid
+        out[good] = np.log(x[good])
+    elif transform == "log1p":
+        invalid = ok & (x <= -1)
+        good = ok & ~invalid
+        out[good] = np.log1p(x[good])
+    elif transform == "sqrt":
+        invalid = ok & (x < 0)
+        good = ok & ~invalid
+        out[good] = np.sqrt(x[good])
+    elif transform in ("standardise_wave", "standardise_all"):
+        groups = pd.Series(np.asarray(waves, dtype=object)).map(str).to_numpy() if transform == "standardise_wave" \
+            else np.zeros(len(x), dtype=object)
+        for g in pd.unique(groups):
+            m = ok & (groups == g)
+            if m.sum() >= 2:
+                sd = float(np.std(x[m], ddof=1))
+                if sd > 0:
+                    out[m] = (x[m] - float(np.mean(x[m]))) / sd
+    else:
+        raise DataError(f"unknown transform {transform!r}")
+    return out, invalid
 
 
 def match_missing(raw: pd.Series, var: Variable) -> pd.Series:

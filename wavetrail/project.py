@@ -445,12 +445,17 @@ def check_project(path: str | Path = "."):
     from wavetrail.codebook import load_codebook
     from wavetrail.config import load_config
 
+    from wavetrail.build import check_settings
+    from wavetrail.config import CONFIG_FILE, read_yaml
+
     root = find_project(path)
     config = load_config(root)
+    _, lines = read_yaml(root / CONFIG_FILE)
     files = [root / f for f in config["data"]]
     for f in files:
         if not f.is_file():
             raise DataError(f"data file {f.relative_to(root).as_posix()} (listed under `data` in config/config.yaml) does not exist",
                             hint="copy the file there, or correct the path in config/config.yaml")
     codebook = load_codebook(root / config["codebook"])
+    check_settings(root, config, lines)
     return run_checks([str(f) for f in files], codebook)

@@ -67,6 +67,9 @@ class RawTable:
     labels: dict = field(default_factory=dict)
     value_labels: dict = field(default_factory=dict)
     user_missing: dict = field(default_factory=dict)
+    #: workbooks: the sheet that was read and every sheet of the file, in order
+    sheet: str | None = None
+    sheets: tuple = ()
 
     @property
     def name(self) -> str:
@@ -410,7 +413,9 @@ def _maybe_int(s: pd.Series) -> pd.Series:
 
 def _read_excel(path: Path) -> RawTable:
     try:
-        frame = pd.read_excel(path, sheet_name=0)
+        with pd.ExcelFile(path) as book:
+            sheets = tuple(str(n) for n in book.sheet_names)
+            frame = pd.read_excel(book, sheet_name=0)
     except ImportError as exc:
         raise DataError(f"{path}: reading Excel files needs openpyxl ({exc})",
                         hint="pip install openpyxl") from None
@@ -418,7 +423,29 @@ def _read_excel(path: Path) -> RawTable:
         raise DataError(f"{path}: the workbook cannot be read ({type(exc).__name__}: {exc})",
                         hint="open and save it again, or export the sheet as CSV") from None
     frame = _tidy_frame(path, frame, header_line=1)
-    return RawTable(path=path, frame=frame, rows=np.arange(2, len(frame) + 2, dtype=np.int64), format="excel")
+    return RawTable(path=path, frame=frame, rows=np.arange(2, len(frame) + 2, dtype=np.int64), format="excel",
+                    sheet=sheets[0] if sheets else None, sheets=sheets)
+
+
+def has_records(path: str | os.PathLike) -> bool:
+    """True when a data file holds at least one record below its header.
+
+    Delimited text is judged from its first lines without parsing the whole
+    file; other formats are read.
+    """
+    path = Path(path)
+    if FORMATS.get(path.suffix.lower()) == "csv":
+        seen = 0
+        with open(path, "rb") as fh:
+            for line in fh:
+                if line.strip():
+                    seen += 1
+                    if seen >= 2:
+                        return True
+        if seen == 0:
+            read_table(path)  # raises its own message for an empty file
+        return False
+    return len(read_table(path).frame) > 0
 
 
 def _read_labelled(path: Path, fmt: str) -> RawTable:

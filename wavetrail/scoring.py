@@ -266,18 +266,35 @@ def _scale_parts(codebook, scale: str):
     return sc, bounds
 
 
-def score_panel(panel) -> pd.DataFrame:
-    """Scores of every scale at every wave of a panel.
+def score_panel(panel, measures: Sequence[str] = ()) -> pd.DataFrame:
+    """Scores of every scale at every wave of a panel, and of single measures.
+
+    Parameters
+    ----------
+    panel : Panel
+    measures : sequence of str
+        Numeric variables modelled as outcomes on their own (a single item, a
+        measured value, a precomputed total, a derived variable). Each gets rows
+        with ``scale`` = the variable name, ``score`` = its value and ``n_items`` =
+        1 where it was observed, 0 where not. A name that is also a scale is
+        scored as the scale.
 
     Returns
     -------
     DataFrame
         id, wave, scale, score, n_items (answered items), one row per person,
-        wave and scale; sorted by scale, id, wave order. Identifier columns
-        never appear.
+        wave and scale (or measure); scales first in codebook order, then the
+        measures in the order given. Identifier columns never appear.
     """
     long = panel.long
     parts = []
+    for name in measures:
+        if name in panel.codebook.scales:
+            continue
+        var = panel.codebook.variables.get(name)
+        if var is None or not var.numeric or var.identifier:
+            raise ModelError(f"{name!r} is not a numeric variable of the codebook and cannot be scored",
+                             hint="name a scale or a numeric variable measured at two or more waves")
     for name in panel.codebook.scales:
         sc, bounds = _scale_parts(panel.codebook, name)
         items = long[list(sc.items)]
@@ -285,6 +302,13 @@ def score_panel(panel) -> pd.DataFrame:
         parts.append(pd.DataFrame({"id": long[panel.id].to_numpy(), "wave": long[panel.wave].to_numpy(),
                                    "scale": name, "score": score.to_numpy(),
                                    "n_items": items.notna().sum(axis=1).to_numpy().astype(np.int64)}))
+    for name in dict.fromkeys(measures):
+        if name in panel.codebook.scales:
+            continue
+        value = long[name].to_numpy(dtype=float)
+        parts.append(pd.DataFrame({"id": long[panel.id].to_numpy(), "wave": long[panel.wave].to_numpy(),
+                                   "scale": name, "score": value,
+                                   "n_items": np.isfinite(value).astype(np.int64)}))
     if not parts:
         return pd.DataFrame({c: [] for c in SCORE_COLUMNS})
     return pd.concat(parts, ignore_index=True)[SCORE_COLUMNS]

@@ -380,7 +380,8 @@ def _decode(x: np.ndarray, var):
 def _copula_vars(codebook):
     sid, swave = codebook.study.id, codebook.study.wave
     return [v for v in codebook.variables.values()
-            if v.name not in (sid, swave) and not v.identifier and v.type in ("integer", "number", "category", "date")]
+            if v.name not in (sid, swave) and not v.identifier and not v.derived
+            and v.type in ("integer", "number", "category", "date")]
 
 
 def _panel_columns(long: pd.DataFrame, codebook, id_col: str, wave_col: str):
@@ -593,7 +594,8 @@ def synthesize(panel, seed: int, missing_reasons: pd.DataFrame | None = None) ->
         return out
 
     miss = masks(part)
-    vars_out = [v for v in codebook.variables.values() if v.name not in (id_col, wave_col)]
+    # derived variables are computed from their source on loading, never written to a raw file
+    vars_out = [v for v in codebook.variables.values() if v.name not in (id_col, wave_col) and not v.derived]
 
     def build_long(values: np.ndarray, part_now: np.ndarray) -> pd.DataFrame:
         rows = []

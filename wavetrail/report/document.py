@@ -163,6 +163,9 @@ class Report:
 
     def _unit_label(self, scale: str) -> str:
         label = self.study.scale_label(scale)
+        if not self.study.is_scale(scale):  # a single measure: its label and unit
+            unit = self.study.units.get(str(scale))
+            return f"{label} ({unit})" if unit else label
         rng = self.study.scale_ranges.get(scale)
         if rng:
             return f"{label} (mean item score, {rng[0]:g}\u2013{rng[1]:g})"
@@ -196,7 +199,13 @@ class Report:
             facts.append(("Waves (time score)", waves))
         scores = self.tables.get("scores")
         if scores is not None and "scale" in scores.columns:
-            facts.append(("Scales", ", ".join(self.study.scale_label(s) for s in sorted(scores["scale"].unique()))))
+            names = sorted(scores["scale"].unique())
+            scales = [self.study.scale_label(s) for s in names if self.study.is_scale(s)]
+            single = [self.study.scale_label(s) for s in names if not self.study.is_scale(s)]
+            if scales:
+                facts.append(("Scales", ", ".join(scales)))
+            if single:
+                facts.append(("Single measures", ", ".join(single)))
         fit = self.tables.get("growth_fit")
         if fit is not None and len(fit) and "bic" in fit.columns:
             best = []
@@ -349,14 +358,21 @@ class Report:
             for _, r in self.observed_means(scale).iterrows():
                 rows.append([self.study.scale_label(scale), _wave_text(r["wave"]), fmt_small(r["n"], self.min_cell),
                              fmt_number(r["mean"]), fmt_number(r["sd"]), fmt_interval(r["lo"], r["hi"])])
-        table = Table("Scale scores by wave", ["Scale", "Wave", "n", "M", "SD", "95% CI of M"], rows, key="scores",
-                      note="n: people with a score (enough items answered). " + self._source("scores"))
+        single = any(not self.study.is_scale(s) for s in df["scale"].unique())
+        note = ("n: people with a score (enough items answered"
+                + ("; for a single measure, people with a value" if single else "") + "). ")
+        table = Table("Scale scores by wave" if not single else "Outcome scores by wave",
+                      ["Scale" if not single else "Outcome", "Wave", "n", "M", "SD", "95% CI of M"], rows,
+                      key="scores", note=note + self._source("scores"))
         return self._table(table)
 
     def _reliability(self) -> str:
         df = self.tables.get("reliability")
         if df is None:
             return _absent("Reliability has not been assessed (results/scores/reliability.csv is absent).")
+        if not len(df):
+            return _absent("The codebook declares no multi-item scale: reliability applies to scales only, "
+                           "not to single measures.")
         rows = [
             [self.study.scale_label(r.get("scale")), _wave_text(r.get("wave")), fmt_small(r.get("n"), self.min_cell),
              fmt_unit(r.get("alpha"), 2), fmt_interval(r.get("alpha_lo"), r.get("alpha_hi"), unit=True, digits=2),
@@ -380,6 +396,9 @@ class Report:
         df = self.tables.get("invariance")
         if df is None:
             return _absent("Measurement invariance was not tested (results/scores/invariance.csv is absent).")
+        if not len(df) and not self.study.scale_names and self.study.labels:
+            return _absent("The codebook declares no multi-item scale: measurement invariance applies to "
+                           "scales only, not to single measures.")
         if not len(df):
             return _absent("Measurement invariance was not tested for any scale (invariance: scales: []).")
         deltas = [c for c in ("delta_cfi", "delta_rmsea", "delta_srmr") if c in df.columns]

@@ -57,6 +57,16 @@ class StudyInfo:
     scale_labels: dict[str, str] = field(default_factory=dict)
     scale_ranges: dict[str, tuple[float, float]] = field(default_factory=dict)
     levels: dict[str, dict[str, str]] = field(default_factory=dict)
+    #: unit of each variable that declares one (``unit:`` in the codebook)
+    units: dict[str, str] = field(default_factory=dict)
+    #: names of the declared multi-item scales
+    scale_names: set = field(default_factory=set)
+
+    def is_scale(self, name) -> bool:
+        """True for a declared multi-item scale (False for a single measure)."""
+        if not self.scale_names:  # no codebook read: take every name for a scale
+            return str(name) not in self.labels
+        return str(name) in self.scale_names
 
     def level_label(self, name: str, code) -> str:
         return self.levels.get(str(name), {}).get(str(code), str(code))
@@ -65,7 +75,13 @@ class StudyInfo:
         return self.labels.get(str(name), str(name))
 
     def scale_label(self, scale: str) -> str:
-        return self.scale_labels.get(str(scale), str(scale).replace("_", " ").capitalize())
+        """The label of an outcome: a scale's label, else a variable's codebook label."""
+        name = str(scale)
+        if name in self.scale_labels:
+            return self.scale_labels[name]
+        if name not in self.scale_names and name in self.labels:
+            return self.labels[name]
+        return name.replace("_", " ").capitalize()
 
     def time_of(self, wave) -> float | None:
         for w, t in zip(self.waves, self.time_scores):
@@ -96,6 +112,8 @@ def read_study(path: str | Path | None) -> StudyInfo:
         name = str(var["name"])
         if var.get("label"):
             info.labels[name] = str(var["label"])
+        if var.get("unit"):
+            info.units[name] = str(var["unit"])
         if isinstance(var.get("levels"), dict):
             info.levels[name] = {_code(k): str(v) for k, v in var["levels"].items()}
         scale, rng = var.get("scale"), var.get("range")
@@ -104,6 +122,7 @@ def read_study(path: str | Path | None) -> StudyInfo:
             old = info.scale_ranges.get(scale)
             info.scale_ranges[scale] = (lo, hi) if old is None else (min(lo, old[0]), max(hi, old[1]))
     for name, spec in (doc.get("scales") or {}).items():
+        info.scale_names.add(str(name))
         if isinstance(spec, dict) and spec.get("label"):
             info.scale_labels[str(name)] = str(spec["label"])
     return info

@@ -72,6 +72,10 @@ def check_data(job) -> None:
     which stops the build before scoring with a message naming the findings file.
     """
     codebook, panel = load_job_panel(job)
+    derived = {v.name: {"derived_from": v.derived_from, "transform": v.transform}
+               for v in codebook.variables.values() if v.derived}
+    if derived:  # the declared transformations, visible in the ledger record's params
+        job.params = {**job.params, "derived": derived}
     findings = run_checks(panel)
     write_table(job.path(job.output["descriptives"]), describe(panel))
     write_table(job.path(job.output["attrition"]), attrition(panel))

@@ -31,15 +31,13 @@ def _settings(job) -> dict:
     return cfg
 
 
-def _outcome(job, cfg) -> str:
-    name = cfg.get("outcome")
-    if name:
-        return str(name)
-    outs = (job.config.get("growth") or {}).get("outcomes") or []
-    if not outs:
-        raise ConfigError("config/config.yaml: forest.outcome is not set and growth.outcomes is empty",
-                          hint="name the scale under forest.outcome")
-    return str(outs[0])
+def _outcome(job, cfg, codebook) -> str:
+    """forest.outcome, or the first growth outcome when it is null (growth.outcomes [] = every scale)."""
+    from wavetrail.config import resolve_outcomes
+
+    growth = job.config.get("growth") or {}
+    _, outcome = resolve_outcomes({"growth": growth, "forest": {**cfg, "enabled": True}}, codebook)
+    return outcome
 
 
 def _inputs(job, cfg):
@@ -52,14 +50,14 @@ def _inputs(job, cfg):
     data = job.input["data"]
     data = [data] if isinstance(data, str) else list(data)
     panel = load_panel([job.path(p) for p in data], codebook)
-    predictors = panel.predictors(cfg.get("predictors", "wave1"))
+    outcome = _outcome(job, cfg, codebook)
+    predictors = panel.predictors(cfg.get("predictors", "wave1"), outcome=outcome)
     scores = pd.read_csv(job.path(job.input["scores"]))
-    outcome = _outcome(job, cfg)
     waves = list(codebook.study.waves)
     wide = wide_scores(scores, outcome, waves)
     if wide.empty:
-        raise DataError(f"{job.input['scores']}: no scores of scale {outcome!r}",
-                        hint="check forest.outcome in config/config.yaml against the scales")
+        raise DataError(f"{job.input['scores']}: no scores of outcome {outcome!r}",
+                        hint="check forest.outcome in config/config.yaml against the codebook")
     times = codebook.study.time_scores
     if times is None:
         times = tuple(float(i) for i in range(len(waves)))

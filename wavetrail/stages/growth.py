@@ -29,7 +29,7 @@ def model_name(shape: str, residuals: str) -> str:
     return f"{shape}-{residuals}"
 
 
-def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes, residuals="free"):
+def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes, residuals="free", codebook=None):
     """Fit every shape for every outcome; returns (fit table, estimates table, fits dict).
 
     A model that cannot be fitted is a row with converged False and the reason as note.
@@ -40,7 +40,8 @@ def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes
         for shape in shapes:
             name = model_name(shape, residuals)
             try:
-                g = fit_growth_model(wide, time_scores, shape=shape, residuals=residuals, where=f"scale {outcome}")
+                kind = "scale" if codebook is None or outcome in codebook.scales else "outcome"
+                g = fit_growth_model(wide, time_scores, shape=shape, residuals=residuals, where=f"{kind} {outcome}")
             except WavetrailError as err:
                 row = {c: np.nan for c in FIT_COLUMNS}
                 row.update(outcome=outcome, model=name, n=int(wide.notna().any(axis=1).sum()),
@@ -87,7 +88,24 @@ def compare_models(fits: dict, residuals="free") -> pd.DataFrame:
     return pd.DataFrame(rows, columns=cols)
 
 
-def trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, n_people=40, seed=0):
+def outcome_axis_label(codebook, name: str) -> str:
+    """Axis label of an outcome: a scale's label with "mean item score", a single
+    measure's codebook label and unit."""
+    if codebook is None:
+        return "outcome"
+    if name in codebook.scales:
+        sc = codebook.scales[name]
+        rng = sc.bounds(codebook)
+        span = f", {rng[0]:g}\u2013{rng[1]:g}" if rng else ""
+        return f"{sc.label} (mean item score{span})"
+    var = codebook.variables.get(name)
+    if var is None:
+        return name
+    text = var.label or name
+    return f"{text} ({var.unit})" if var.unit else text
+
+
+def trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, n_people=40, seed=0, codebook=None):
     """Observed vs model-implied mean trajectories over a sample of individual trajectories."""
     import matplotlib.pyplot as plt
 
@@ -121,8 +139,8 @@ def trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, n_people
                     rows.append({"outcome": outcome, "series": f"{shape} implied", "wave": str(w),
                                  "time": t[r], "value": float(g.implied_mean[r])})
             ax.set_title(outcome)
-            ax.set_xlabel("time score (years since first wave)")
-            ax.set_ylabel("scale score (item mean)")
+            ax.set_xlabel("time score (as in the codebook)")
+            ax.set_ylabel(outcome_axis_label(codebook, outcome))
             ax.set_xticks(t)
             ax.legend(frameon=False, fontsize=8)
         fig.tight_layout()
@@ -137,12 +155,14 @@ def fit_growth(job) -> None:
     waves = list(codebook.study.waves)
     time_scores = list(codebook.study.time_scores or range(len(waves)))
     scores = pd.read_csv(job.path(job.input["scores"]))
-    outcomes = list(settings.get("outcomes") or sorted(scores["scale"].astype(str).unique()))
+    from wavetrail.config import resolve_outcomes
+
+    outcomes, _ = resolve_outcomes({"growth": settings, "forest": {"enabled": False}}, codebook)
     shapes = list(settings.get("shapes") or ["linear"])
     residuals = settings.get("residuals", "free")
-    fit_df, est_df, fits = fit_growth_models(scores, waves, time_scores, outcomes, shapes, residuals)
+    fit_df, est_df, fits = fit_growth_models(scores, waves, time_scores, outcomes, shapes, residuals, codebook)
     write_table(job.path(job.output["fit"]), fit_df)
     write_table(job.path(job.output["estimates"]), est_df)
     write_table(job.path(job.output["comparison"]), compare_models(fits, residuals))
     stem = job.path(job.output["figure"]).with_suffix("")
-    trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, seed=job.seed)
+    trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, seed=job.seed, codebook=codebook)

@@ -37,12 +37,31 @@ def render_report(job: Job) -> None:
         "seed": config.get("seed"),
         "codebook": _rel(job, job.input.get("codebook", config.get("codebook", "config/codebook.yaml"))),
         "min_cell": int((config.get("report") or {}).get("min_cell", 5)),
-        "forest": config.get("forest"),
+        "forest": _forest_settings(job, config),
         "figures": _rel(job, job.output.get("figures", FIGURES)),
     }
     failed = Path(job.log).with_suffix(".failed.ipynb") if job.log else Path("logs/report/render_report.failed.ipynb")
     render(job.project, NOTEBOOK_SOURCE, job.output["notebook"], job.output["html"],
            tables=tables, settings=settings, failed_copy=failed)
+
+
+def _forest_settings(job: Job, config: dict):
+    """The forest settings with ``outcome`` resolved (null = the first growth outcome)."""
+    forest = config.get("forest")
+    if not isinstance(forest, dict) or forest.get("outcome") or not forest.get("enabled", True):
+        return forest
+    codebook_path = job.input.get("codebook")
+    if not codebook_path:
+        return forest
+    from wavetrail.codebook import load_codebook
+    from wavetrail.config import resolve_outcomes
+    from wavetrail.errors import WavetrailError
+
+    try:
+        _, outcome = resolve_outcomes(config, load_codebook(job.path(codebook_path)))
+    except WavetrailError:
+        return forest
+    return {**forest, "outcome": outcome}
 
 
 def _rel(job: Job, path) -> str:
