@@ -288,8 +288,10 @@ def _no_outcome_message(codebook) -> str:
 def resolve_outcomes(config: dict, codebook) -> tuple[list[str], str | None]:
     """The growth outcomes and the forest outcome the settings stand for.
 
-    ``growth.outcomes: []`` means every scale of the codebook (refused when it
-    declares none); ``forest.outcome: null`` means the first growth outcome. The
+    ``growth.outcomes: []`` means every scale of the codebook; with no scale it is
+    refused unless the forest is disabled too (then nothing is modelled and the
+    build stops at the checks and the report). ``forest.outcome: null`` means the
+    first growth outcome. The
     forest outcome is ``None`` when the forest is disabled.
 
     Raises
@@ -302,6 +304,10 @@ def resolve_outcomes(config: dict, codebook) -> tuple[list[str], str | None]:
     outcomes = [str(o) for o in (growth.get("outcomes") or [])]
     if not outcomes:
         outcomes = list(codebook.scales)
+    if not outcomes and not forest.get("enabled", True):
+        # nothing to model yet (a fresh draft without --outcome): the build checks the
+        # data and writes the report, which lists the variables that could be named
+        return [], None
     if not outcomes:
         raise ConfigError(f"{CONFIG_FILE}: growth.outcomes is empty and " + _no_outcome_message(codebook),
                           hint="e.g. `growth: {outcomes: [NAME]}`; the forest models the first one unless "
@@ -403,7 +409,8 @@ def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
                          if name in variables else close(name, codebook.scales))
                 problems.append((line("invariance", "scales", i),
                                  f"invariance.scales[{i}] {name!r} is not a scale of the codebook{extra}"))
-    if not (growth.get("outcomes") or []) and not codebook.scales:
+    forest_on = (config.get("forest") or {}).get("enabled", True)
+    if not (growth.get("outcomes") or []) and not codebook.scales and forest_on:
         problems.append((line("growth", "outcomes") or line("growth"),
                          "growth.outcomes is empty and " + _no_outcome_message(codebook)))
     if problems:
