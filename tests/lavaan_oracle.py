@@ -81,3 +81,42 @@ def lavaan_value(pe: pd.DataFrame, lhs: str, op: str, rhs: str = "", col: str = 
     if len(rows) != 1:
         raise KeyError(f"{lhs} {op} {rhs}: {len(rows)} rows in lavaan's table")
     return float(rows[col].iloc[0])
+
+
+_FACTOR = {"intercept": "i", "slope": "s", "shape": "s", "quadratic": "q"}
+
+
+def growth_syntax(time_scores, shape, residuals, waves, start=None) -> str:
+    """lavaan syntax (for ``sem(..., meanstructure=TRUE)``) of wavetrail's growth model.
+
+    ``start`` (a wavetrail estimates table) puts ``start(value)`` on every free
+    parameter, so that lavaan climbs from wavetrail's solution.
+    """
+    est = {} if start is None else dict(zip(start["parameter"], start["estimate"]))
+
+    def st(name):
+        return f"start({est[name]:.17g})*" if name in est else ""
+
+    t = list(time_scores)
+    fac = ["intercept", "slope"] + (["quadratic"] if shape == "quadratic" else [])
+    if shape == "basis":
+        fac = ["intercept", "shape"]
+    lines = ["i =~ " + " + ".join(f"1*{w}" for w in waves)]
+    if shape == "basis":
+        terms = [f"{t[j]:.17g}*{w}" if j in (0, len(waves) - 1) else f"{st(f'loading(shape,{w})')}{w}"
+                 for j, w in enumerate(waves)]
+    else:
+        terms = [f"{t[j]:.17g}*{w}" for j, w in enumerate(waves)]
+    lines.append("s =~ " + " + ".join(terms))
+    if shape == "quadratic":
+        lines.append("q =~ " + " + ".join(f"{t[j] ** 2:.17g}*{w}" for j, w in enumerate(waves)))
+    for w in waves:
+        lines.append(f"{w} ~ 0*1")
+        lab = "rv*" if residuals == "equal" else ""
+        lines.append(f"{w} ~~ {lab}{st('resvar' if residuals == 'equal' else f'var({w})')}{w}")
+    for a, f in enumerate(fac):
+        lines.append(f"{_FACTOR[f]} ~ {st(f'mean({f})')}1")
+        for g in fac[a:]:
+            name = f"var({f})" if f == g else f"cov({f},{g})"
+            lines.append(f"{_FACTOR[f]} ~~ {st(name)}{_FACTOR[g]}")
+    return "\n".join(lines) + "\n"

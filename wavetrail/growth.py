@@ -131,7 +131,7 @@ class GrowthFit:
 
 
 def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, information="observed",
-               where="data", max_iter=500):
+               where="data", max_iter=500, search="auto", seed=0):
     """Fit a latent growth curve model by ML, FIML for missing waves.
 
     Parameters
@@ -151,6 +151,14 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     information : {"observed", "expected"} information for the standard errors
     where : names the data in error messages
     max_iter : int, iterations of the optimiser
+    search : {"auto", True, False}
+        multiple starts: ``"auto"`` searches for latent-basis models and free
+        residuals. The starts are the moment-based default, the estimates of the
+        simpler nested models (equal residuals; the linear shape) and 8 perturbed
+        copies of each, drawn with ``seed``; the highest maximum is reported and
+        ``fit["note"]`` says when converged starts reached different maxima
+        (``fit["starts"]``, ``fit["maxima"]``).
+    seed : int, seed of the perturbed starts
 
     Returns
     -------
@@ -203,8 +211,64 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
         return _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
                             information, where, max_iter)
     spec = growth_spec(time_scores, shape=shape, residuals=residuals, covariates=cov_names, observed=wave_cols)
-    res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter)
+    starts = []
+    if search is True or (search == "auto" and (shape == "basis" or residuals == "free")):
+        starts = nested_starts(spec, data[wave_cols + cov_names], time_scores, shape, residuals, cov_names,
+                               wave_cols)
+    res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter,
+                  search=search, starts=starts, seed=seed)
     return GrowthFit(res, shape, residuals, time_scores, wave_cols)
+
+
+def nested_starts(spec, data, time_scores, shape, residuals, cov_names, wave_cols):
+    """Starting values from simpler nested models (fitted by scoring only, no SEs).
+
+    Equal residuals give a start for free residuals (every wave's variance at the
+    shared value); the linear shape gives a start for quadratic and latent-basis
+    models (the curvature factor at a small variance, the shape factor at the
+    slope's values). Names the nested model does not have keep the default start.
+    """
+    from wavetrail.sem.fitting import data_matrix
+    from wavetrail.sem.optimise import fit_batch, start_values
+    from wavetrail.sem.stats import SuffStats
+
+    Y = data_matrix(spec, data)
+    Y = Y[~np.isnan(Y).all(axis=1)]
+    stats = SuffStats.from_data(Y)
+    default = start_values(spec, stats)[0]
+    names = spec.param_names
+    out = []
+    plans = []
+    if residuals == "free":
+        plans.append((shape, "equal"))
+    if shape != "linear":
+        plans.append(("linear", residuals))
+        if residuals == "free":
+            plans.append(("linear", "equal"))
+    for sh, res in plans:
+        try:
+            sub = growth_spec(time_scores, shape=sh, residuals=res, covariates=cov_names, observed=wave_cols)
+            bf = fit_batch(sub, stats, max_iter=200)
+        except (ModelError, np.linalg.LinAlgError, ValueError):
+            continue
+        if not np.isfinite(bf.loglik[0]):
+            continue
+        got = dict(zip(sub.param_names, bf.theta[0]))
+        theta = default.copy()
+        for a, name in enumerate(names):
+            key = name.replace("shape", "slope") if sh == "linear" else name
+            if key in got:
+                theta[a] = got[key]
+            elif name.startswith("var(") and "resvar" in got and name[4:-1] in wave_cols:
+                theta[a] = got["resvar"]
+            elif name == "resvar" and sh == shape:
+                theta[a] = np.mean([got[f"var({w})"] for w in wave_cols if f"var({w})" in got])
+            elif name == "var(quadratic)" and "var(slope)" in got:
+                theta[a] = 1e-2 * abs(got["var(slope)"]) + 1e-8
+            elif name.startswith(("cov(", "mean(quadratic")) and "quadratic" in name:
+                theta[a] = 0.0
+        out.append(theta)
+    return out
 
 
 def _person_times(wide, time_scores, wave_cols, where):

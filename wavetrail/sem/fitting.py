@@ -111,7 +111,7 @@ def check_data(spec, Y, where="data"):
 
 
 def fit(spec, data, missing="fiml", start=None, information="observed", max_iter=500, tol=1e-10,
-        where="data", meanstructure=True) -> SemFit:
+        where="data", meanstructure=True, search="auto", starts=None, n_random=8, seed=0) -> SemFit:
     """Fit ``spec`` by maximum likelihood.
 
     Parameters
@@ -123,6 +123,14 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
     start : (k,) starting values, optional
     information : {"observed", "expected"} for the standard errors
     where : str, names the data in error messages (e.g. the file)
+    search : {"auto", True, False}
+        multiple starts (:func:`wavetrail.sem.search.multistart`): ``"auto"`` searches when
+        the model has free loadings or more than one free residual variance (where local
+        maxima are common); the highest maximum is reported, and a note says when
+        converged starts reached different maxima.
+    starts : list of (k,) arrays, optional, further starts for the search (e.g. the
+        estimates of a simpler nested model)
+    n_random, seed : perturbed copies of each start, drawn with this seed
     meanstructure : bool
         ``False`` counts neither the free intercepts nor the means in parameters,
         moments, AIC and BIC (a covariance-structure model). Every observed
@@ -151,16 +159,24 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
             Y = Y[keep]
         notes += check_data(spec, Y, where)
         stats = SuffStats.from_data(Y)
+    theta, ll, converged, n_iter, search_info = _maximise(spec, stats, start, max_iter, tol, search, starts,
+                                                           n_random, seed, notes)
+    return summarise(spec, stats, theta, ll, converged, n_iter, notes, information, meanstructure, search_info)
+
+
+def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="observed", meanstructure=True,
+              search_info=None, at_bound=()) -> SemFit:
+    """Standard errors, admissibility, fit indices and the estimates table at ``theta``.
+
+    ``at_bound``: parameter indices held at a bound (a bounded fit); they get no
+    standard error and the others' come from the information with them held fixed.
+    """
     cm = spec.compile()
     N = float(stats.total[0])
-    bf = fit_batch(spec, stats, start=start, max_iter=max_iter, tol=tol)
-    theta = bf.theta[0]
-    converged = bool(bf.converged[0]) and np.isfinite(bf.loglik[0])
-    ll = float(bf.loglik[0])
-    if not converged:
-        notes.append(f"did not converge in {bf.n_iter} iterations (decrement {bf.decrement[0]:.3g})")
+    search_info = search_info or {"starts": 1, "maxima": 1}
+    notes = list(notes)
     # standard errors
-    vcov = _vcov(cm, theta, stats, information)
+    vcov = _vcov(cm, theta, stats, information, drop=at_bound)
     if not np.all(np.isfinite(vcov)):
         notes.append("information matrix is singular: the model may not be identified; no standard errors")
     mu, sigma = spec.implied(theta)
@@ -185,14 +201,65 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
         k_count -= own
         n_moments -= p
     fitd = fit_indices(ll, k_count, N, p, ll_s, ll_b, sig_s if np.isfinite(ll_s) else None, sigma,
-                       n_moments=n_moments, n_base=p if meanstructure else 0)
+                       n_moments=n_moments, n_base=p if meanstructure else 0,
+                       sample_mean=mu_s if meanstructure else None, implied_mean=mu if meanstructure else None)
     fitd["converged"] = converged
     fitd["admissible"] = adm
+    fitd["starts"] = int(search_info["starts"])
+    fitd["maxima"] = int(search_info["maxima"])
     fitd["note"] = "; ".join(notes)
     est = estimates_table(spec, theta, vcov)
     return SemFit(spec=spec, theta=theta, estimates=est, fit=fitd, implied_mean=mu, implied_cov=sigma,
-                  vcov=vcov, converged=converged, admissible=adm, notes=notes, n_iter=int(bf.n_iter),
+                  vcov=vcov, converged=converged, admissible=adm, notes=notes, n_iter=int(n_iter),
                   information=information, saturated_mean=mu_s, saturated_cov=sig_s)
+
+
+def needs_search(spec) -> bool:
+    """Free loadings or more than one free residual variance: local maxima are common."""
+    cm = spec.compile()
+    loads = any(e.matrix == LAMBDA and e.param >= 0 for e in cm.entries)
+    resid = {e.param for e in cm.entries if e.matrix == THETA and e.row == e.col and e.param >= 0}
+    return loads or len(resid) > 1
+
+
+def _maximise(spec, stats, start, max_iter, tol, search, starts, n_random, seed, notes):
+    """(theta, loglik, converged, iterations, search info) of the single-model path:
+    Fisher scoring, then Newton polishing with the observed information; with
+    ``search`` a multistart search (see :mod:`wavetrail.sem.search`)."""
+    from wavetrail.sem.optimise import start_values
+    from wavetrail.sem.search import decrement_limit, multistart, polish
+
+    cm = spec.compile()
+    if search not in ("auto", True, False):
+        raise ModelError(f"search={search!r}: use 'auto', True or False")
+    use = needs_search(spec) if search == "auto" else bool(search)
+    if use:
+        first = np.asarray(start, dtype=float) if start is not None else start_values(spec, stats)[0]
+        sr = multistart(spec, stats, [first] + list(starts or []), n_random=n_random, seed=seed,
+                        max_iter=min(max_iter, 30), tol=tol)
+        best = sr.best
+        info = {"starts": sr.n_starts, "maxima": sum(1 for m in sr.maxima if m[1])}
+        if sr.disagree:
+            found = ", ".join(f"{m[0]:.3f} ({m[2]})" for m in sr.maxima if m[1])
+            notes.append(f"starts disagree: {sr.n_starts} starts (seed {seed}) reached {info['maxima']} different "
+                         f"maxima, log-likelihood (number of starts) {found}; the highest is reported")
+    else:
+        bf = fit_batch(spec, stats, start=start, max_iter=max_iter, tol=tol)
+        best = polish(cm, bf.theta[0], stats, tol=tol) if np.isfinite(bf.loglik[0]) else None
+        if best is None or not best.loglik >= bf.loglik[0]:
+            from wavetrail.sem.search import Polished
+
+            best = Polished(bf.theta[0], float(bf.loglik[0]), bool(bf.converged[0]), float(bf.decrement[0]),
+                            int(bf.n_iter))
+        else:
+            best.n_iter += int(bf.n_iter)
+        info = {"starts": 1, "maxima": 1}
+    converged = bool(best.converged) and np.isfinite(best.loglik)
+    if not converged:
+        why = "the observed information is not positive definite there (a saddle point or a boundary)" \
+            if best.saddle else f"Newton decrement {best.decrement:.3g} > {decrement_limit(best.loglik, tol):.3g}"
+        notes.append(f"did not converge: {why}")
+    return best.theta, float(best.loglik), converged, best.n_iter, info
 
 
 def _own_intercepts(spec):
@@ -233,18 +300,22 @@ def observed_information(cm, theta, stats, base=None, numeric=False):
     return -0.5 * (Hs + Hs.T)
 
 
-def _vcov(cm, theta, stats, information):
+def _vcov(cm, theta, stats, information, drop=()):
     if information == "expected":
         I = evaluate(cm, theta[None], stats, grad=False, info=True)[1][0]
     else:
         I = observed_information(cm, theta, stats)
+    keep = np.setdiff1d(np.arange(cm.k), np.asarray(list(drop), dtype=int))
+    out = np.full((cm.k, cm.k), np.nan)
     try:
-        ev = np.linalg.eigvalsh(I)
+        Ik = I[np.ix_(keep, keep)]
+        ev = np.linalg.eigvalsh(Ik)
         if ev[0] <= 1e-10 * max(abs(ev[-1]), 1e-300):
             raise np.linalg.LinAlgError
-        return np.linalg.inv(I)
+        out[np.ix_(keep, keep)] = np.linalg.inv(Ik)
+        return out
     except np.linalg.LinAlgError:
-        return np.full((cm.k, cm.k), np.nan)
+        return out
 
 
 def admissibility(spec, theta):
