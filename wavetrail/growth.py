@@ -124,6 +124,7 @@ class GrowthFit:
         self.implied_mean = np.asarray(sem.implied_mean)[:T]
         self.implied_cov = np.asarray(sem.implied_cov)[:T, :T]
         self.theta = sem.theta
+        self.unrestricted = None  # with bounded=True: the unrestricted fit when it differs
 
     def __repr__(self) -> str:
         return (f"GrowthFit(shape={self.shape!r}, residuals={self.residuals!r}, n={self.fit.get('n')}, "
@@ -131,7 +132,7 @@ class GrowthFit:
 
 
 def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, information="observed",
-               where="data", max_iter=500, search="auto", seed=0):
+               where="data", max_iter=500, search="auto", seed=0, bounded=False):
     """Fit a latent growth curve model by ML, FIML for missing waves.
 
     Parameters
@@ -159,6 +160,14 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
         ``fit["note"]`` says when converged starts reached different maxima
         (``fit["starts"]``, ``fit["maxima"]``).
     seed : int, seed of the perturbed starts
+    bounded : bool
+        ``True`` keeps the residual variances >= 0 and the growth factors' covariance
+        matrix positive semi-definite (admissible ML, :mod:`wavetrail.sem.bounded`).
+        When the unrestricted maximum is admissible the two coincide and it is
+        returned; otherwise the admissible maximum is returned, estimates at a bound
+        are named in ``fit["boundary"]`` and have no standard error, and the
+        unrestricted fit stays available as ``.unrestricted`` (its log-likelihood in
+        ``fit["unrestricted_loglik"]``). ``fit["estimation"]`` says which was done.
 
     Returns
     -------
@@ -174,8 +183,9 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     and the indices built on it are NaN (log-likelihood, AIC and BIC remain), and
     ``implied_mean``/``implied_cov`` are evaluated at each wave's average time score.
 
-    Estimation is unrestricted ML: a negative variance or a latent correlation
-    beyond +-1 is kept and reported (``fit["admissible"]`` False, ``fit["note"]``).
+    With ``bounded=False`` estimation is unrestricted ML: a negative variance or a
+    latent correlation beyond +-1 is kept and reported (``fit["admissible"]`` False,
+    ``fit["note"]``).
     """
     import pandas as pd
 
@@ -208,8 +218,13 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     data = data.astype(float)
     data = data.loc[data[wave_cols].notna().any(axis=1)]
     if person_times is not None:
-        return _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
-                            information, where, max_iter)
+        g = _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
+                         information, where, max_iter)
+        g.fit["estimation"], g.fit["boundary"] = "unrestricted", ""
+        if bounded:
+            g.fit["note"] = "; ".join(x for x in (g.fit["note"], "bounded estimation is not available with "
+                                                  "individually varying time scores: unrestricted ML") if x)
+        return g
     spec = growth_spec(time_scores, shape=shape, residuals=residuals, covariates=cov_names, observed=wave_cols)
     starts = []
     if search is True or (search == "auto" and (shape == "basis" or residuals == "free")):
@@ -217,7 +232,54 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
                                wave_cols)
     res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter,
                   search=search, starts=starts, seed=seed)
-    return GrowthFit(res, shape, residuals, time_scores, wave_cols)
+    g = GrowthFit(res, shape, residuals, time_scores, wave_cols)
+    g.fit["estimation"] = "unrestricted"
+    g.fit["boundary"] = ""
+    g.unrestricted = None
+    if not bounded:
+        return g
+    g.fit["estimation"] = "bounded"
+    g.fit["unrestricted_loglik"] = g.fit["loglik"]
+    if res.admissible and res.converged:
+        return g  # the unrestricted maximum is admissible: it is the bounded maximum too
+    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, information, where)
+    out = GrowthFit(b, shape, residuals, time_scores, wave_cols)
+    out.fit["estimation"] = "bounded"
+    out.fit["boundary"] = b.fit["boundary"]
+    out.fit["unrestricted_loglik"] = g.fit["loglik"]
+    out.unrestricted = g
+    return out
+
+
+def _fit_bounded(spec, data, unrestricted, starts, seed, information, where):
+    """Admissible maximum (variances >= 0, growth-factor covariance PSD) as a SemFit."""
+    from wavetrail.sem.bounded import fit_bounded
+    from wavetrail.sem.fitting import check_data, data_matrix, summarise
+    from wavetrail.sem.stats import SuffStats
+
+    Y = data_matrix(spec, data, where)
+    notes = check_data(spec, Y, where)
+    stats = SuffStats.from_data(Y)
+    block = [spec.latent.index(f) for f in spec.latent if not f.endswith("_cov")]
+    r = fit_bounded(spec, stats, block, [unrestricted.theta, spec.start(stats)[0]] + list(starts), seed=seed)
+    cm = spec.compile()
+    at = [a for a, name in enumerate(cm.names) if name in r.boundary]
+    if not r.converged:
+        notes.append(f"bounded fit did not converge (largest projected gradient {r.pgrad:.3g} in standard-error "
+                     "units)")
+    if len(r.maxima) > 1:
+        notes.append(f"bounded fit: {r.n_starts} starts (seed {seed}) reached {len(r.maxima)} different ends; "
+                     f"the highest ({r.maxima[0]:.3f}) is reported")
+    if r.boundary:
+        notes.append("boundary estimate(s): " + ", ".join(r.boundary) + "; no standard error at a bound, and "
+                     "Wald and likelihood-ratio tests there are not chi-square (a chi-bar-square mixture; "
+                     "Self & Liang 1987)")
+    notes.append(f"unrestricted maximum {unrestricted.fit['loglik']:.3f} is inadmissible; admissible maximum "
+                 f"{r.loglik:.3f}")
+    fit = summarise(spec, stats, r.theta, r.loglik, r.converged, 0, notes, information,
+                    search_info={"starts": r.n_starts, "maxima": len(r.maxima)}, at_bound=at)
+    fit.fit["boundary"] = "; ".join(r.boundary)
+    return fit
 
 
 def nested_starts(spec, data, time_scores, shape, residuals, cov_names, wave_cols):

@@ -177,7 +177,7 @@ def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="obs
     notes = list(notes)
     # standard errors
     vcov = _vcov(cm, theta, stats, information, drop=at_bound)
-    if not np.all(np.isfinite(vcov)):
+    if not np.all(np.isfinite(np.delete(np.diag(vcov), list(at_bound)))):
         notes.append("information matrix is singular: the model may not be identified; no standard errors")
     mu, sigma = spec.implied(theta)
     adm, adm_notes = admissibility(spec, theta)
