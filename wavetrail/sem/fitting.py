@@ -111,7 +111,7 @@ def check_data(spec, Y, where="data"):
 
 
 def fit(spec, data, missing="fiml", start=None, information="observed", max_iter=500, tol=1e-10,
-        where="data", meanstructure=True, search="auto", starts=None, n_random=8, seed=0) -> SemFit:
+        where="data", meanstructure=True, search="auto", starts=None, n_random=8, seed=0, robust=False) -> SemFit:
     """Fit ``spec`` by maximum likelihood.
 
     Parameters
@@ -131,6 +131,10 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
     starts : list of (k,) arrays, optional, further starts for the search (e.g. the
         estimates of a simpler nested model)
     n_random, seed : perturbed copies of each start, drawn with this seed
+    robust : bool
+        sandwich standard errors ``A^-1 B A^-1`` with ``A`` the observed information and
+        ``B`` the outer product of the casewise scores (FIML; Huber 1967; White 1982;
+        the estimator lavaan calls MLR). Needs the data rows, not statistics.
     meanstructure : bool
         ``False`` counts neither the free intercepts nor the means in parameters,
         moments, AIC and BIC (a covariance-structure model). Every observed
@@ -161,7 +165,66 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
         stats = SuffStats.from_data(Y)
     theta, ll, converged, n_iter, search_info = _maximise(spec, stats, start, max_iter, tol, search, starts,
                                                            n_random, seed, notes)
-    return summarise(spec, stats, theta, ll, converged, n_iter, notes, information, meanstructure, search_info)
+    res = summarise(spec, stats, theta, ll, converged, n_iter, notes, information, meanstructure, search_info)
+    res.fit["se_type"] = information
+    if robust:
+        if isinstance(data, SuffStats):
+            raise ModelError("robust standard errors need the data rows, not sufficient statistics")
+        robust_errors(res, stats, Y)
+    return res
+
+
+def robust_errors(res, stats, Y, at_bound=()):
+    """Replace the standard errors of ``res`` by sandwich ones (in place)."""
+    from wavetrail.sem.casewise import casewise_scores
+
+    cm = res.spec.compile()
+    A = observed_information(cm, res.theta, stats)
+    rows = Y[~np.isnan(Y).all(axis=1)]
+    S = casewise_scores(res.spec, res.theta, rows)
+    keep = np.setdiff1d(np.arange(cm.k), np.asarray(list(at_bound), dtype=int))
+    vc = np.full((cm.k, cm.k), np.nan)
+    try:
+        Ai = np.linalg.inv(A[np.ix_(keep, keep)])
+        Sk = S[:, keep]
+        vc[np.ix_(keep, keep)] = Ai @ (Sk.T @ Sk) @ Ai
+    except np.linalg.LinAlgError:
+        res.notes.append("information matrix is singular: no robust standard errors")
+    res.vcov = vc
+    res.estimates = estimates_table(res.spec, res.theta, vc)
+    res.fit["se_type"] = "robust (sandwich: observed information, casewise score outer product)"
+    # scaled chi-square: c = (tr(A1^-1 B1) - tr(A0^-1 B0)) / df, h1 = the saturated model at its
+    # (EM) estimate, A observed information, B casewise score outer product
+    res.fit["scaling"] = res.fit["chisq_scaled"] = res.fit["p_scaled"] = np.nan
+    df = res.fit.get("df", 0)
+    if df > 0 and np.isfinite(res.fit.get("chisq", np.nan)) and res.saturated_mean is not None:
+        try:
+            tr0 = float(np.trace(np.linalg.solve(A[np.ix_(keep, keep)], Sk.T @ Sk)))
+            tr1 = _h1_trace(res.saturated_mean, res.saturated_cov, stats, rows)
+            c = (tr1 - tr0) / df
+        except np.linalg.LinAlgError:
+            c = np.nan
+        if np.isfinite(c) and c > 0:
+            res.fit["scaling"] = float(c)
+            res.fit["chisq_scaled"] = float(res.fit["chisq"] / c)
+            res.fit["p_scaled"] = float(sps.chi2.sf(res.fit["chisq_scaled"], df))
+    return res
+
+
+def _h1_trace(mu, sigma, stats, rows):
+    """tr(A^-1 B) of the saturated model at (mu, sigma): observed information A, score outer product B."""
+    from wavetrail.sem.casewise import casewise_scores
+    from wavetrail.sem.saturated import _saturated_spec
+
+    p = len(mu)
+    sat = _saturated_spec(p)
+    cms = sat.compile()
+    th = np.zeros(cms.k)
+    for e in cms.entries:
+        th[e.param] = mu[e.row] if e.matrix == NU else sigma[e.row, e.col]
+    A1 = observed_information(cms, th, stats)
+    S1 = casewise_scores(sat, th, rows)
+    return float(np.trace(np.linalg.solve(A1, S1.T @ S1)))
 
 
 def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="observed", meanstructure=True,

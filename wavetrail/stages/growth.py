@@ -19,8 +19,8 @@ __all__ = ["fit_growth_models", "fit_growth", "compare_models"]
 log = logging.getLogger("wavetrail.growth")
 
 FIT_COLUMNS = ["outcome", "model", "estimation", "n", "loglik", "chisq", "df", "p", "cfi", "tli", "rmsea",
-               "rmsea_lo", "rmsea_hi", "srmr", "srmr_corr", "aic", "bic", "sabic", "converged", "admissible",
-               "boundary", "note"]
+               "rmsea_lo", "rmsea_hi", "srmr", "srmr_corr", "aic", "bic", "sabic", "chisq_scaled", "scaling",
+               "p_scaled", "se_type", "converged", "admissible", "boundary", "note"]
 EST_COLUMNS = ["outcome", "model", "parameter", "kind", "estimate", "se", "z", "p", "std"]
 #: (smaller, larger): the smaller model is nested in the larger one
 NESTED = [("linear", "quadratic"), ("linear", "basis")]
@@ -31,7 +31,7 @@ def model_name(shape: str, residuals: str) -> str:
 
 
 def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes, residuals="free", bounded=True,
-                      seed=0):
+                      seed=0, robust=False):
     """Fit every shape for every outcome; returns (fit table, estimates table, fits dict).
 
     A model that cannot be fitted is a row with converged False and the reason as note.
@@ -45,7 +45,7 @@ def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes
             name = model_name(shape, residuals)
             try:
                 g = fit_growth_model(wide, time_scores, shape=shape, residuals=residuals, where=f"scale {outcome}",
-                                     bounded=bounded, seed=seed)
+                                     bounded=bounded, seed=seed, robust=robust)
             except WavetrailError as err:
                 row = {c: np.nan for c in FIT_COLUMNS}
                 row.update(outcome=outcome, model=name, estimation="bounded" if bounded else "unrestricted",
@@ -183,8 +183,9 @@ def fit_growth(job) -> None:
     shapes = list(settings.get("shapes") or ["linear"])
     residuals = settings.get("residuals", "free")
     bounded = bool(settings.get("bounded", True))
+    robust = bool(settings.get("robust", False))
     fit_df, est_df, fits = fit_growth_models(scores, waves, time_scores, outcomes, shapes, residuals,
-                                             bounded=bounded, seed=job.seed)
+                                             bounded=bounded, seed=job.seed, robust=robust)
     write_table(job.path(job.output["fit"]), fit_df)
     write_table(job.path(job.output["estimates"]), est_df)
     write_table(job.path(job.output["comparison"]), compare_models(fits, residuals))
