@@ -80,7 +80,11 @@ def test_holzinger_swineford_three_factor_cfa():
     # values at the optimum measured with semopy 2.3.11 (ftol 1e-14) and recorded in NOTES.md:
     # loglik -3737.745, SRMR .0652051, RMSEA 90% CI .0714-.1137
     assert f["loglik"] == pytest.approx(-3737.745, abs=1e-3)
-    assert f["srmr"] == pytest.approx(0.0652051, abs=1e-6)
+    assert f["srmr_corr"] == pytest.approx(0.0652051, abs=1e-6)
+    # Bentler's SRMR with the mean structure: here the diagonal and mean residuals are zero at
+    # the ML estimate, so it is the value above times sqrt(45 / 54) (lavaan 0.6-14,
+    # cfa(..., meanstructure=TRUE): srmr .060, crmr .065)
+    assert f["srmr"] == pytest.approx(0.0652051 * np.sqrt(45 / 54), abs=1e-6)
     assert f["rmsea_lo"] == pytest.approx(0.0714, abs=1e-4)
     assert f["rmsea_hi"] == pytest.approx(0.1137, abs=1e-4)
 

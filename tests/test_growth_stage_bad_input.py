@@ -23,8 +23,9 @@ def scores():
                          "scale": "distance", "score": o["distance"].astype(float), "n_items": 1})
 
 
-def fit(scores, shapes=("linear",)):
-    table, est, fits = fit_growth_models(scores, WAVES, TIMES, ["distance"], list(shapes), residuals="free")
+def fit(scores, shapes=("linear",), bounded=True):
+    table, est, fits = fit_growth_models(scores, WAVES, TIMES, ["distance"], list(shapes), residuals="free",
+                                         bounded=bounded)
     return table.set_index("model").iloc[0], est
 
 
@@ -62,8 +63,16 @@ def test_singular_sample_covariance_is_noted(scores):
     w3 = bad.loc[bad["wave"] == 3].set_index("id")["score"]
     w2 = bad.loc[bad["wave"] == 2].set_index("id")["score"]
     bad.loc[bad["wave"] == 4, "score"] = (2 * w3 - w2).reindex(bad.loc[bad["wave"] == 4, "id"]).to_numpy()
-    row, _ = fit(bad)
+    row, _ = fit(bad, bounded=False)
     # wave 4 is an exact linear function of waves 2 and 3: the sample covariance is singular
     assert "not positive definite" in row["note"]
     assert np.isnan(row["chisq"]) and np.isnan(row["cfi"]) and np.isnan(row["rmsea"])  # no nonsense indices
     assert not bool(row["admissible"])
+    # bounded (the default): the admissible maximum puts a residual variance at its bound, says
+    # so, and the unrestricted maximum stays in the table as a second row
+    table, _, _ = fit_growth_models(bad, WAVES, TIMES, ["distance"], ["linear"], residuals="free")
+    assert list(table["estimation"]) == ["bounded", "unrestricted"]
+    b, u = table.iloc[0], table.iloc[1]
+    assert bool(b["admissible"]) and "var(" in b["boundary"] and not bool(u["admissible"])
+    assert b["loglik"] <= u["loglik"] + 1e-9
+    assert "not positive definite" in b["note"] and np.isnan(b["chisq"])

@@ -131,3 +131,37 @@ def test_implied_moments():
     L = np.c_[np.ones(3), [0, 1, 3]]
     np.testing.assert_allclose(mu, L @ [1.0, 0.5])
     np.testing.assert_allclose(S, L @ [[2.0, 0.3], [0.3, 0.2]] @ L.T + 0.5 * np.eye(3))
+
+
+def test_latent_regression_implied_mean_and_gradient_agree():
+    # mu = nu + Lambda (I - B)^-1 alpha, Sigma = Lambda A Psi A^T Lambda^T + Theta, written out
+    # by hand here; and the analytic gradient equals central differences of the log-likelihood
+    # (both fail if the mean formula and its derivatives disagree).
+    rng = np.random.default_rng(5)
+    n = 300
+    x = rng.normal(12.0, 2.0, n)  # a covariate far from zero
+    t = np.arange(4.0)
+    eta0 = 1.0 + 0.3 * x + rng.normal(0, 1, n)
+    eta1 = 0.5 - 0.04 * x + rng.normal(0, 0.3, n)
+    Y = np.c_[eta0[:, None] + eta1[:, None] * t + rng.normal(0, 0.5, (n, 4)), x]
+    Y[:, :4][rng.random((n, 4)) < 0.15] = np.nan  # missing waves; the covariate is complete
+    spec = growth_spec(t, "linear", "free", covariates=["x"])
+    cm = spec.compile()
+    st = SuffStats.from_data(Y)
+    th = spec.start(st)[0]
+    th = th + 0.05 * rng.normal(size=len(th)) * np.maximum(np.abs(th), 0.1)
+    mats = cm.matrices(th[None])
+    from wavetrail.sem.spec import ALPHA, BETA, LAMBDA, NU, PSI, THETA
+
+    A = np.linalg.inv(np.eye(spec.m) - mats[BETA][0])
+    mu_hand = mats[NU][0] + mats[LAMBDA][0] @ A @ mats[ALPHA][0]
+    sig_hand = mats[LAMBDA][0] @ A @ mats[PSI][0] @ A.T @ mats[LAMBDA][0].T + mats[THETA][0]
+    mu, sig = spec.implied(th)
+    np.testing.assert_allclose(mu, mu_hand, rtol=1e-12)
+    np.testing.assert_allclose(sig, sig_hand, rtol=1e-12)
+    ll, g, _ = evaluate(cm, th[None], st)
+    h = 1e-6 * np.maximum(np.abs(th), 1.0)
+    num = np.array([(evaluate(cm, (th + hi * e)[None], st, grad=False, info=False)[0]
+                     - evaluate(cm, (th - hi * e)[None], st, grad=False, info=False)[0]) / (2 * hi)
+                    for hi, e in zip(h, np.eye(cm.k))])
+    np.testing.assert_allclose(g[0], num, rtol=1e-5, atol=1e-3)

@@ -124,6 +124,7 @@ class GrowthFit:
         self.implied_mean = np.asarray(sem.implied_mean)[:T]
         self.implied_cov = np.asarray(sem.implied_cov)[:T, :T]
         self.theta = sem.theta
+        self.unrestricted = None  # with bounded=True: the unrestricted fit when it differs
 
     def __repr__(self) -> str:
         return (f"GrowthFit(shape={self.shape!r}, residuals={self.residuals!r}, n={self.fit.get('n')}, "
@@ -131,7 +132,7 @@ class GrowthFit:
 
 
 def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, information="observed",
-               where="data", max_iter=500):
+               where="data", max_iter=500, search="auto", seed=0, bounded=False, robust=False):
     """Fit a latent growth curve model by ML, FIML for missing waves.
 
     Parameters
@@ -151,6 +152,28 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     information : {"observed", "expected"} information for the standard errors
     where : names the data in error messages
     max_iter : int, iterations of the optimiser
+    search : {"auto", True, False}
+        multiple starts: ``"auto"`` searches for latent-basis models and free
+        residuals. The starts are the moment-based default, the estimates of the
+        simpler nested models (equal residuals; the linear shape) and 8 perturbed
+        copies of each, drawn with ``seed``; the highest maximum is reported and
+        ``fit["note"]`` says when converged starts reached different maxima
+        (``fit["starts"]``, ``fit["maxima"]``).
+    seed : int, seed of the perturbed starts
+    robust : bool
+        sandwich standard errors (observed information, casewise score outer product;
+        FIML) and the scaled chi-square ``fit["chisq_scaled"]`` with its scaling factor
+        ``fit["scaling"]`` and p-value ``fit["p_scaled"]`` (Yuan & Bentler 2000,
+        Sociological Methodology 30; the estimator lavaan calls MLR). Not with
+        individually varying time scores.
+    bounded : bool
+        ``True`` keeps the residual variances >= 0 and the growth factors' covariance
+        matrix positive semi-definite (admissible ML, :mod:`wavetrail.sem.bounded`).
+        When the unrestricted maximum is admissible the two coincide and it is
+        returned; otherwise the admissible maximum is returned, estimates at a bound
+        are named in ``fit["boundary"]`` and have no standard error, and the
+        unrestricted fit stays available as ``.unrestricted`` (its log-likelihood in
+        ``fit["unrestricted_loglik"]``). ``fit["estimation"]`` says which was done.
 
     Returns
     -------
@@ -166,8 +189,9 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     and the indices built on it are NaN (log-likelihood, AIC and BIC remain), and
     ``implied_mean``/``implied_cov`` are evaluated at each wave's average time score.
 
-    Estimation is unrestricted ML: a negative variance or a latent correlation
-    beyond +-1 is kept and reported (``fit["admissible"]`` False, ``fit["note"]``).
+    With ``bounded=False`` estimation is unrestricted ML: a negative variance or a
+    latent correlation beyond +-1 is kept and reported (``fit["admissible"]`` False,
+    ``fit["note"]``).
     """
     import pandas as pd
 
@@ -200,11 +224,125 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     data = data.astype(float)
     data = data.loc[data[wave_cols].notna().any(axis=1)]
     if person_times is not None:
-        return _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
-                            information, where, max_iter)
+        if robust:
+            raise ModelError(f"{where}: robust standard errors are not available with individually varying "
+                             "time scores", hint="drop robust= or give one time score per wave")
+        g = _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
+                         information, where, max_iter)
+        g.fit["estimation"], g.fit["boundary"] = "unrestricted", ""
+        if bounded:
+            g.fit["note"] = "; ".join(x for x in (g.fit["note"], "bounded estimation is not available with "
+                                                  "individually varying time scores: unrestricted ML") if x)
+        return g
     spec = growth_spec(time_scores, shape=shape, residuals=residuals, covariates=cov_names, observed=wave_cols)
-    res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter)
-    return GrowthFit(res, shape, residuals, time_scores, wave_cols)
+    starts = []
+    if search is True or (search == "auto" and (shape == "basis" or residuals == "free")):
+        starts = nested_starts(spec, data[wave_cols + cov_names], time_scores, shape, residuals, cov_names,
+                               wave_cols)
+    res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter,
+                  search=search, starts=starts, seed=seed, robust=robust)
+    g = GrowthFit(res, shape, residuals, time_scores, wave_cols)
+    g.fit["estimation"] = "unrestricted"
+    g.fit["boundary"] = ""
+    g.unrestricted = None
+    if not bounded:
+        return g
+    g.fit["estimation"] = "bounded"
+    g.fit["unrestricted_loglik"] = g.fit["loglik"]
+    if res.admissible and res.converged:
+        return g  # the unrestricted maximum is admissible: it is the bounded maximum too
+    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, information, where, robust)
+    out = GrowthFit(b, shape, residuals, time_scores, wave_cols)
+    out.fit["estimation"] = "bounded"
+    out.fit["boundary"] = b.fit["boundary"]
+    out.fit["unrestricted_loglik"] = g.fit["loglik"]
+    out.unrestricted = g
+    return out
+
+
+def _fit_bounded(spec, data, unrestricted, starts, seed, information, where, robust=False):
+    """Admissible maximum (variances >= 0, growth-factor covariance PSD) as a SemFit."""
+    from wavetrail.sem.bounded import fit_bounded
+    from wavetrail.sem.fitting import check_data, data_matrix, robust_errors, summarise
+    from wavetrail.sem.stats import SuffStats
+
+    Y = data_matrix(spec, data, where)
+    notes = check_data(spec, Y, where)
+    stats = SuffStats.from_data(Y)
+    block = [spec.latent.index(f) for f in spec.latent if not f.endswith("_cov")]
+    r = fit_bounded(spec, stats, block, [unrestricted.theta, spec.start(stats)[0]] + list(starts), seed=seed)
+    cm = spec.compile()
+    at = [a for a, name in enumerate(cm.names) if name in r.boundary]
+    if not r.converged:
+        notes.append(f"bounded fit did not converge (largest projected gradient {r.pgrad:.3g} in standard-error "
+                     "units)")
+    if len(r.maxima) > 1:
+        notes.append(f"bounded fit: {r.n_starts} starts (seed {seed}) reached {len(r.maxima)} different ends; "
+                     f"the highest ({r.maxima[0]:.3f}) is reported")
+    if r.boundary:
+        notes.append("boundary estimate(s): " + ", ".join(r.boundary) + "; no standard error at a bound, and "
+                     "Wald and likelihood-ratio tests there are not chi-square (a chi-bar-square mixture; "
+                     "Self & Liang 1987)")
+    notes.append(f"unrestricted maximum {unrestricted.fit['loglik']:.3f} is inadmissible; admissible maximum "
+                 f"{r.loglik:.3f}")
+    fit = summarise(spec, stats, r.theta, r.loglik, r.converged, 0, notes, information,
+                    search_info={"starts": r.n_starts, "maxima": len(r.maxima)}, at_bound=at)
+    fit.fit["boundary"] = "; ".join(r.boundary)
+    fit.fit["se_type"] = information
+    if robust:
+        robust_errors(fit, stats, Y, at_bound=at)
+    return fit
+
+
+def nested_starts(spec, data, time_scores, shape, residuals, cov_names, wave_cols):
+    """Starting values from simpler nested models (fitted by scoring only, no SEs).
+
+    Equal residuals give a start for free residuals (every wave's variance at the
+    shared value); the linear shape gives a start for quadratic and latent-basis
+    models (the curvature factor at a small variance, the shape factor at the
+    slope's values). Names the nested model does not have keep the default start.
+    """
+    from wavetrail.sem.fitting import data_matrix
+    from wavetrail.sem.optimise import fit_batch, start_values
+    from wavetrail.sem.stats import SuffStats
+
+    Y = data_matrix(spec, data)
+    Y = Y[~np.isnan(Y).all(axis=1)]
+    stats = SuffStats.from_data(Y)
+    default = start_values(spec, stats)[0]
+    names = spec.param_names
+    out = []
+    plans = []
+    if residuals == "free":
+        plans.append((shape, "equal"))
+    if shape != "linear":
+        plans.append(("linear", residuals))
+        if residuals == "free":
+            plans.append(("linear", "equal"))
+    for sh, res in plans:
+        try:
+            sub = growth_spec(time_scores, shape=sh, residuals=res, covariates=cov_names, observed=wave_cols)
+            bf = fit_batch(sub, stats, max_iter=200)
+        except (ModelError, np.linalg.LinAlgError, ValueError):
+            continue
+        if not np.isfinite(bf.loglik[0]):
+            continue
+        got = dict(zip(sub.param_names, bf.theta[0]))
+        theta = default.copy()
+        for a, name in enumerate(names):
+            key = name.replace("shape", "slope") if sh == "linear" else name
+            if key in got:
+                theta[a] = got[key]
+            elif name.startswith("var(") and "resvar" in got and name[4:-1] in wave_cols:
+                theta[a] = got["resvar"]
+            elif name == "resvar" and sh == shape:
+                theta[a] = np.mean([got[f"var({w})"] for w in wave_cols if f"var({w})" in got])
+            elif name == "var(quadratic)" and "var(slope)" in got:
+                theta[a] = 1e-2 * abs(got["var(slope)"]) + 1e-8
+            elif name.startswith(("cov(", "mean(quadratic")) and "quadratic" in name:
+                theta[a] = 0.0
+        out.append(theta)
+    return out
 
 
 def _person_times(wide, time_scores, wave_cols, where):

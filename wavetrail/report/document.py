@@ -453,6 +453,10 @@ class Report:
 
     def _fit(self, fit: pd.DataFrame) -> str:
         rows = []
+        fit = fit.copy()
+        if "estimation" in fit.columns:  # the unrestricted maximum beside a bounded fit
+            unres = fit["estimation"].astype(str).eq("unrestricted") & fit.duplicated(["outcome", "model"], keep=False)
+            fit.loc[unres, "model"] = fit.loc[unres, "model"].astype(str) + " (unrestricted)"
         for _, r in fit.iterrows():
             rows.append([
                 self.study.scale_label(r["outcome"]) if "outcome" in r and pd.notna(r.get("outcome")) else MISSING,
@@ -471,7 +475,9 @@ class Report:
         table = Table("Fit of the latent growth curve models",
                       ["Outcome", "Model", "N", "\u03c7\u00b2(df)", "p", "CFI", "TLI", "RMSEA", "90% CI", "SRMR", "AIC", "BIC"],
                       rows, key="growth-fit",
-                      note="Maximum likelihood with missing waves handled by full-information ML. Cut-offs often "
+                      note="Maximum likelihood with missing waves handled by full-information ML. SRMR is "
+                           "Bentler's standardised root mean square residual over variances, covariances and "
+                           "means (the correlation-residual version is srmr_corr in fit.csv). Cut-offs often "
                            "used for good fit (rules of thumb): CFI and TLI \u2265 .95, RMSEA \u2264 .06, SRMR \u2264 .08 "
                            "(Hu & Bentler, 1999). " + " ".join(notes) + (" " if notes else "") + self._source("growth_fit"))
         return self._table(table)

@@ -111,7 +111,7 @@ def check_data(spec, Y, where="data"):
 
 
 def fit(spec, data, missing="fiml", start=None, information="observed", max_iter=500, tol=1e-10,
-        where="data", meanstructure=True) -> SemFit:
+        where="data", meanstructure=True, search="auto", starts=None, n_random=8, seed=0, robust=False) -> SemFit:
     """Fit ``spec`` by maximum likelihood.
 
     Parameters
@@ -123,6 +123,18 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
     start : (k,) starting values, optional
     information : {"observed", "expected"} for the standard errors
     where : str, names the data in error messages (e.g. the file)
+    search : {"auto", True, False}
+        multiple starts (:func:`wavetrail.sem.search.multistart`): ``"auto"`` searches when
+        the model has free loadings or more than one free residual variance (where local
+        maxima are common); the highest maximum is reported, and a note says when
+        converged starts reached different maxima.
+    starts : list of (k,) arrays, optional, further starts for the search (e.g. the
+        estimates of a simpler nested model)
+    n_random, seed : perturbed copies of each start, drawn with this seed
+    robust : bool
+        sandwich standard errors ``A^-1 B A^-1`` with ``A`` the observed information and
+        ``B`` the outer product of the casewise scores (FIML; Huber 1967; White 1982;
+        the estimator lavaan calls MLR). Needs the data rows, not statistics.
     meanstructure : bool
         ``False`` counts neither the free intercepts nor the means in parameters,
         moments, AIC and BIC (a covariance-structure model). Every observed
@@ -151,17 +163,84 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
             Y = Y[keep]
         notes += check_data(spec, Y, where)
         stats = SuffStats.from_data(Y)
+    theta, ll, converged, n_iter, search_info = _maximise(spec, stats, start, max_iter, tol, search, starts,
+                                                           n_random, seed, notes)
+    res = summarise(spec, stats, theta, ll, converged, n_iter, notes, information, meanstructure, search_info)
+    res.fit["se_type"] = information
+    if robust:
+        if isinstance(data, SuffStats):
+            raise ModelError("robust standard errors need the data rows, not sufficient statistics")
+        robust_errors(res, stats, Y)
+    return res
+
+
+def robust_errors(res, stats, Y, at_bound=()):
+    """Replace the standard errors of ``res`` by sandwich ones (in place)."""
+    from wavetrail.sem.casewise import casewise_scores
+
+    cm = res.spec.compile()
+    A = observed_information(cm, res.theta, stats)
+    rows = Y[~np.isnan(Y).all(axis=1)]
+    S = casewise_scores(res.spec, res.theta, rows)
+    keep = np.setdiff1d(np.arange(cm.k), np.asarray(list(at_bound), dtype=int))
+    vc = np.full((cm.k, cm.k), np.nan)
+    try:
+        Ai = np.linalg.inv(A[np.ix_(keep, keep)])
+        Sk = S[:, keep]
+        vc[np.ix_(keep, keep)] = Ai @ (Sk.T @ Sk) @ Ai
+    except np.linalg.LinAlgError:
+        res.notes.append("information matrix is singular: no robust standard errors")
+    res.vcov = vc
+    res.estimates = estimates_table(res.spec, res.theta, vc)
+    res.fit["se_type"] = "robust (sandwich: observed information, casewise score outer product)"
+    # scaled chi-square: c = (tr(A1^-1 B1) - tr(A0^-1 B0)) / df, h1 = the saturated model at its
+    # (EM) estimate, A observed information, B casewise score outer product
+    res.fit["scaling"] = res.fit["chisq_scaled"] = res.fit["p_scaled"] = np.nan
+    df = res.fit.get("df", 0)
+    if df > 0 and np.isfinite(res.fit.get("chisq", np.nan)) and res.saturated_mean is not None:
+        try:
+            tr0 = float(np.trace(np.linalg.solve(A[np.ix_(keep, keep)], Sk.T @ Sk)))
+            tr1 = _h1_trace(res.saturated_mean, res.saturated_cov, stats, rows)
+            c = (tr1 - tr0) / df
+        except np.linalg.LinAlgError:
+            c = np.nan
+        if np.isfinite(c) and c > 0:
+            res.fit["scaling"] = float(c)
+            res.fit["chisq_scaled"] = float(res.fit["chisq"] / c)
+            res.fit["p_scaled"] = float(sps.chi2.sf(res.fit["chisq_scaled"], df))
+    return res
+
+
+def _h1_trace(mu, sigma, stats, rows):
+    """tr(A^-1 B) of the saturated model at (mu, sigma): observed information A, score outer product B."""
+    from wavetrail.sem.casewise import casewise_scores
+    from wavetrail.sem.saturated import _saturated_spec
+
+    p = len(mu)
+    sat = _saturated_spec(p)
+    cms = sat.compile()
+    th = np.zeros(cms.k)
+    for e in cms.entries:
+        th[e.param] = mu[e.row] if e.matrix == NU else sigma[e.row, e.col]
+    A1 = observed_information(cms, th, stats)
+    S1 = casewise_scores(sat, th, rows)
+    return float(np.trace(np.linalg.solve(A1, S1.T @ S1)))
+
+
+def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="observed", meanstructure=True,
+              search_info=None, at_bound=()) -> SemFit:
+    """Standard errors, admissibility, fit indices and the estimates table at ``theta``.
+
+    ``at_bound``: parameter indices held at a bound (a bounded fit); they get no
+    standard error and the others' come from the information with them held fixed.
+    """
     cm = spec.compile()
     N = float(stats.total[0])
-    bf = fit_batch(spec, stats, start=start, max_iter=max_iter, tol=tol)
-    theta = bf.theta[0]
-    converged = bool(bf.converged[0]) and np.isfinite(bf.loglik[0])
-    ll = float(bf.loglik[0])
-    if not converged:
-        notes.append(f"did not converge in {bf.n_iter} iterations (decrement {bf.decrement[0]:.3g})")
+    search_info = search_info or {"starts": 1, "maxima": 1}
+    notes = list(notes)
     # standard errors
-    vcov = _vcov(cm, theta, stats, information)
-    if not np.all(np.isfinite(vcov)):
+    vcov = _vcov(cm, theta, stats, information, drop=at_bound)
+    if not np.all(np.isfinite(np.delete(np.diag(vcov), list(at_bound)))):
         notes.append("information matrix is singular: the model may not be identified; no standard errors")
     mu, sigma = spec.implied(theta)
     adm, adm_notes = admissibility(spec, theta)
@@ -185,14 +264,65 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
         k_count -= own
         n_moments -= p
     fitd = fit_indices(ll, k_count, N, p, ll_s, ll_b, sig_s if np.isfinite(ll_s) else None, sigma,
-                       n_moments=n_moments, n_base=p if meanstructure else 0)
+                       n_moments=n_moments, n_base=p if meanstructure else 0,
+                       sample_mean=mu_s if meanstructure else None, implied_mean=mu if meanstructure else None)
     fitd["converged"] = converged
     fitd["admissible"] = adm
+    fitd["starts"] = int(search_info["starts"])
+    fitd["maxima"] = int(search_info["maxima"])
     fitd["note"] = "; ".join(notes)
     est = estimates_table(spec, theta, vcov)
     return SemFit(spec=spec, theta=theta, estimates=est, fit=fitd, implied_mean=mu, implied_cov=sigma,
-                  vcov=vcov, converged=converged, admissible=adm, notes=notes, n_iter=int(bf.n_iter),
+                  vcov=vcov, converged=converged, admissible=adm, notes=notes, n_iter=int(n_iter),
                   information=information, saturated_mean=mu_s, saturated_cov=sig_s)
+
+
+def needs_search(spec) -> bool:
+    """Free loadings or more than one free residual variance: local maxima are common."""
+    cm = spec.compile()
+    loads = any(e.matrix == LAMBDA and e.param >= 0 for e in cm.entries)
+    resid = {e.param for e in cm.entries if e.matrix == THETA and e.row == e.col and e.param >= 0}
+    return loads or len(resid) > 1
+
+
+def _maximise(spec, stats, start, max_iter, tol, search, starts, n_random, seed, notes):
+    """(theta, loglik, converged, iterations, search info) of the single-model path:
+    Fisher scoring, then Newton polishing with the observed information; with
+    ``search`` a multistart search (see :mod:`wavetrail.sem.search`)."""
+    from wavetrail.sem.optimise import start_values
+    from wavetrail.sem.search import decrement_limit, multistart, polish
+
+    cm = spec.compile()
+    if search not in ("auto", True, False):
+        raise ModelError(f"search={search!r}: use 'auto', True or False")
+    use = needs_search(spec) if search == "auto" else bool(search)
+    if use:
+        first = np.asarray(start, dtype=float) if start is not None else start_values(spec, stats)[0]
+        sr = multistart(spec, stats, [first] + list(starts or []), n_random=n_random, seed=seed,
+                        max_iter=min(max_iter, 30), tol=tol)
+        best = sr.best
+        info = {"starts": sr.n_starts, "maxima": sum(1 for m in sr.maxima if m[1])}
+        if sr.disagree:
+            found = ", ".join(f"{m[0]:.3f} ({m[2]})" for m in sr.maxima if m[1])
+            notes.append(f"starts disagree: {sr.n_starts} starts (seed {seed}) reached {info['maxima']} different "
+                         f"maxima, log-likelihood (number of starts) {found}; the highest is reported")
+    else:
+        bf = fit_batch(spec, stats, start=start, max_iter=max_iter, tol=tol)
+        best = polish(cm, bf.theta[0], stats, tol=tol) if np.isfinite(bf.loglik[0]) else None
+        if best is None or not best.loglik >= bf.loglik[0]:
+            from wavetrail.sem.search import Polished
+
+            best = Polished(bf.theta[0], float(bf.loglik[0]), bool(bf.converged[0]), float(bf.decrement[0]),
+                            int(bf.n_iter))
+        else:
+            best.n_iter += int(bf.n_iter)
+        info = {"starts": 1, "maxima": 1}
+    converged = bool(best.converged) and np.isfinite(best.loglik)
+    if not converged:
+        why = "the observed information is not positive definite there (a saddle point or a boundary)" \
+            if best.saddle else f"Newton decrement {best.decrement:.3g} > {decrement_limit(best.loglik, tol):.3g}"
+        notes.append(f"did not converge: {why}")
+    return best.theta, float(best.loglik), converged, best.n_iter, info
 
 
 def _own_intercepts(spec):
@@ -233,18 +363,22 @@ def observed_information(cm, theta, stats, base=None, numeric=False):
     return -0.5 * (Hs + Hs.T)
 
 
-def _vcov(cm, theta, stats, information):
+def _vcov(cm, theta, stats, information, drop=()):
     if information == "expected":
         I = evaluate(cm, theta[None], stats, grad=False, info=True)[1][0]
     else:
         I = observed_information(cm, theta, stats)
+    keep = np.setdiff1d(np.arange(cm.k), np.asarray(list(drop), dtype=int))
+    out = np.full((cm.k, cm.k), np.nan)
     try:
-        ev = np.linalg.eigvalsh(I)
+        Ik = I[np.ix_(keep, keep)]
+        ev = np.linalg.eigvalsh(Ik)
         if ev[0] <= 1e-10 * max(abs(ev[-1]), 1e-300):
             raise np.linalg.LinAlgError
-        return np.linalg.inv(I)
+        out[np.ix_(keep, keep)] = np.linalg.inv(Ik)
+        return out
     except np.linalg.LinAlgError:
-        return np.full((cm.k, cm.k), np.nan)
+        return out
 
 
 def admissibility(spec, theta):

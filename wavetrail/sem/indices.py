@@ -12,11 +12,18 @@ Conventions (documented in docs/methods/sem.md):
   Structural Equation Models*, Sage).
 * CFI (Bentler 1990, Psychological Bulletin 107(2)); TLI (Tucker & Lewis 1973,
   Psychometrika 38(1)).
-* SRMR: root mean square of the differences between sample and implied
-  correlations over the ``p (p + 1) / 2`` variances and covariances, each matrix
-  standardised by its own standard deviations (so diagonal residuals are zero);
-  mean residuals are not included. With missing data the sample moments are
-  the saturated (EM) estimates.
+* SRMR (``srmr``): Bentler's standardised root mean square residual (Bentler 1995,
+  *EQS Structural Equations Program Manual*; Hu & Bentler 1999, Structural Equation
+  Modeling 6(1)): residuals ``(s_ij - sigma_ij) / sqrt(s_ii s_jj)`` over the
+  ``p (p + 1) / 2`` variances and covariances and, with a mean structure, the ``p``
+  standardised mean residuals ``(m_i - mu_i) / sqrt(s_ii)``; the root of their mean
+  square. The sample moments ``s``, ``m`` are the saturated (EM) estimates with missing
+  data. This is the default SRMR of lavaan (``srmr_bentler``).
+* ``srmr_corr``: the correlation-residual version, kept as a second column: sample
+  and implied covariance matrices each standardised by their own standard deviations
+  (diagonal residuals zero), no means, averaged over ``p (p + 1) / 2`` entries.
+  It is smaller than ``srmr`` whenever variances or means are misfitted; do not
+  compare it with cut-offs stated for ``srmr``.
 * AIC ``= -2 loglik + 2 k``; BIC ``= -2 loglik + k log N``; sample-size adjusted
   BIC uses ``log((N + 2) / 24)`` (Sclove 1987, Psychometrika 52(3)).
 """
@@ -49,8 +56,21 @@ def rmsea_ci(chisq, df, n, level=0.90):
     return point, np.sqrt(lam_lo / (df * n)), np.sqrt(lam_hi / (df * n))
 
 
-def srmr(sample_cov, implied_cov):
-    """Standardised root mean square residual over variances and covariances."""
+def srmr(sample_cov, implied_cov, sample_mean=None, implied_mean=None):
+    """Bentler's SRMR: residual (co)variances standardised by the sample standard
+    deviations, and the standardised mean residuals when both means are given."""
+    s = np.sqrt(np.diag(sample_cov))
+    R = (sample_cov - implied_cov) / np.outer(s, s)
+    i, j = np.triu_indices(len(s))
+    total, count = float(np.sum(R[i, j] ** 2)), len(i)
+    if sample_mean is not None and implied_mean is not None:
+        total += float(np.sum(((np.asarray(sample_mean) - np.asarray(implied_mean)) / s) ** 2))
+        count += len(s)
+    return float(np.sqrt(total / count))
+
+
+def srmr_corr(sample_cov, implied_cov):
+    """Correlation-residual RMR over variances and covariances (diagonal residuals zero, no means)."""
     s = np.sqrt(np.diag(sample_cov))
     h = np.sqrt(np.diag(implied_cov))
     R = sample_cov / np.outer(s, s) - implied_cov / np.outer(h, h)
@@ -59,7 +79,7 @@ def srmr(sample_cov, implied_cov):
 
 
 def fit_indices(loglik, k, n, p, loglik_sat, loglik_base, sample_cov=None, implied_cov=None, n_moments=None,
-                n_base=None):
+                n_base=None, sample_mean=None, implied_mean=None):
     """All fit indices of one model as a dict (see the module notes for conventions)."""
     moments = p * (p + 3) // 2 if n_moments is None else n_moments
     df = moments - k
@@ -78,7 +98,8 @@ def fit_indices(loglik, k, n, p, loglik_sat, loglik_base, sample_cov=None, impli
     out = {
         "n": int(n), "loglik": float(loglik), "chisq": float(chisq), "df": int(df), "p": pval,
         "cfi": float(cfi), "tli": float(tli), "rmsea": float(r), "rmsea_lo": float(r_lo), "rmsea_hi": float(r_hi),
-        "srmr": srmr(sample_cov, implied_cov) if sample_cov is not None else np.nan,
+        "srmr": srmr(sample_cov, implied_cov, sample_mean, implied_mean) if sample_cov is not None else np.nan,
+        "srmr_corr": srmr_corr(sample_cov, implied_cov) if sample_cov is not None else np.nan,
         "aic": float(-2 * loglik + 2 * k), "bic": float(-2 * loglik + k * np.log(n)),
         "sabic": float(-2 * loglik + k * np.log((n + 2) / 24.0)),
         "baseline_chisq": float(chisq_b), "baseline_df": int(df_b), "k": int(k),

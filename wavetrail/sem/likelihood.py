@@ -70,7 +70,13 @@ def _spd_small(S):
     """:func:`_chol_logdet_inv` for many small matrices: Cholesky, triangular
     inverse and ``L^-T L^-1`` written as loops over the entries, each step one
     vector operation across the whole batch (LAPACK pays a call per matrix,
-    which dominates for thousands of 5 x 5 matrices)."""
+    which dominates for thousands of 5 x 5 matrices). Matrices far from positive
+    definite (trial points of a search) may overflow on the way; they are flagged."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        return _spd_small_loops(S)
+
+
+def _spd_small_loops(S):
     N, q = S.shape[0], S.shape[-1]
     A = np.ascontiguousarray(np.moveaxis(S, 0, -1))  # (q, q, N): entry-major, batch contiguous per entry
     tiny = 1e-12 * np.maximum(1.0, np.maximum.reduce([np.abs(A[j, j]) for j in range(q)]))

@@ -303,7 +303,7 @@ class Compiled:
         mats, L, M, Aa = self._pieces(theta, base)
         Lam = mats[LAMBDA]
         sigma = Lam @ M @ np.swapaxes(Lam, -1, -2) + mats[THETA]
-        mu = mats[NU] + np.einsum("bpm,bm->bp", L, Aa) if self.m else mats[NU].copy()
+        mu = mats[NU] + np.einsum("bpm,bm->bp", Lam, Aa) if self.m else mats[NU].copy()
         return mu, sigma
 
     def entry_terms(self, theta, base=None):
@@ -321,7 +321,7 @@ class Compiled:
         B, p, k = theta.shape[0], self.p, self.k
         Vm = Lam @ M
         sigma = Vm @ np.swapaxes(Lam, -1, -2) + mats[THETA]
-        mu = mats[NU] + np.einsum("bpm,bm->bp", L, Aa) if self.m else mats[NU].copy()
+        mu = mats[NU] + np.einsum("bpm,bm->bp", Lam, Aa) if self.m else mats[NU].copy()
         eye = np.eye(p)
         us, vs, ws, ps = [], [], [], []
         dmu = np.broadcast_to(self._dmu_nu, (B, k, p)).copy()
@@ -377,7 +377,7 @@ class Compiled:
         B, p, k = theta.shape[0], self.p, self.k
         V = Lam @ M  # (B, p, m)
         sigma = V @ np.swapaxes(Lam, -1, -2) + mats[THETA]
-        mu = mats[NU] + np.einsum("bpm,bm->bp", L, Aa) if self.m else mats[NU].copy()
+        mu = mats[NU] + np.einsum("bpm,bm->bp", Lam, Aa) if self.m else mats[NU].copy()
         R = np.broadcast_to(self._r_theta, (B, k, p, p)).copy()
         dmu = np.broadcast_to(self._dmu_nu, (B, k, p)).copy()
         # loadings: dSigma = e_i V[:, f]^T + transpose; dmu = e_i (A alpha)_f

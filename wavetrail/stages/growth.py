@@ -18,8 +18,9 @@ __all__ = ["fit_growth_models", "fit_growth", "compare_models"]
 
 log = logging.getLogger("wavetrail.growth")
 
-FIT_COLUMNS = ["outcome", "model", "n", "loglik", "chisq", "df", "p", "cfi", "tli", "rmsea", "rmsea_lo",
-               "rmsea_hi", "srmr", "aic", "bic", "sabic", "converged", "admissible", "note"]
+FIT_COLUMNS = ["outcome", "model", "estimation", "n", "loglik", "chisq", "df", "p", "cfi", "tli", "rmsea",
+               "rmsea_lo", "rmsea_hi", "srmr", "srmr_corr", "aic", "bic", "sabic", "chisq_scaled", "scaling",
+               "p_scaled", "se_type", "converged", "admissible", "boundary", "note"]
 EST_COLUMNS = ["outcome", "model", "parameter", "kind", "estimate", "se", "z", "p", "std"]
 #: (smaller, larger): the smaller model is nested in the larger one
 NESTED = [("linear", "quadratic"), ("linear", "basis")]
@@ -29,10 +30,13 @@ def model_name(shape: str, residuals: str) -> str:
     return f"{shape}-{residuals}"
 
 
-def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes, residuals="free", codebook=None):
+def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes, residuals="free", bounded=True,
+                      seed=0, robust=False, codebook=None):
     """Fit every shape for every outcome; returns (fit table, estimates table, fits dict).
 
     A model that cannot be fitted is a row with converged False and the reason as note.
+    With ``bounded`` (admissible ML) a model whose unrestricted maximum is
+    inadmissible gets a second row, ``estimation`` "unrestricted", with that maximum.
     """
     fit_rows, est_rows, fits = [], [], {}
     for outcome in outcomes:
@@ -41,10 +45,12 @@ def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes
             name = model_name(shape, residuals)
             try:
                 kind = "scale" if codebook is None or outcome in codebook.scales else "outcome"
-                g = fit_growth_model(wide, time_scores, shape=shape, residuals=residuals, where=f"{kind} {outcome}")
+                g = fit_growth_model(wide, time_scores, shape=shape, residuals=residuals, where=f"{kind} {outcome}",
+                                     bounded=bounded, seed=seed, robust=robust)
             except WavetrailError as err:
                 row = {c: np.nan for c in FIT_COLUMNS}
-                row.update(outcome=outcome, model=name, n=int(wide.notna().any(axis=1).sum()),
+                row.update(outcome=outcome, model=name, estimation="bounded" if bounded else "unrestricted",
+                           n=int(wide.notna().any(axis=1).sum()),
                            converged=False, admissible=False, note=str(err.message))
                 fit_rows.append(row)
                 log.warning("growth model %s for %s not fitted: %s", name, outcome, err.message)
@@ -52,6 +58,11 @@ def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes
             fits[(outcome, shape)] = g
             row = {c: g.fit.get(c, np.nan) for c in FIT_COLUMNS if c not in ("outcome", "model")}
             fit_rows.append({"outcome": outcome, "model": name, **row})
+            if g.unrestricted is not None:  # the unrestricted maximum differs: report it too
+                u = g.unrestricted.fit
+                row = {c: u.get(c, np.nan) for c in FIT_COLUMNS if c not in ("outcome", "model")}
+                row["estimation"] = "unrestricted"
+                fit_rows.append({"outcome": outcome, "model": name, **row})
             est = g.estimates[g.estimates["free"]].copy()
             est.insert(0, "model", name)
             est.insert(0, "outcome", outcome)
@@ -62,12 +73,26 @@ def fit_growth_models(scores: pd.DataFrame, waves, time_scores, outcomes, shapes
     return fit_df, est_df, fits
 
 
+def _usable(g) -> tuple[bool, str]:
+    """(usable, why not): a model is preferred only when converged and admissible."""
+    why = []
+    if not g.fit.get("converged", False):
+        why.append("did not converge")
+    if not g.fit.get("admissible", False):
+        why.append("inadmissible")
+    return not why, " and ".join(why)
+
+
 def compare_models(fits: dict, residuals="free") -> pd.DataFrame:
     """Likelihood-ratio tests of nested shapes, with the AIC and BIC of both models.
 
     The LR statistic is 2 (loglik_b - loglik_a) on df = k_b - k_a; a variance on
     its boundary makes the chi-square reference conservative (Stram & Lee 1994,
-    Biometrics 50(4)).
+    Biometrics 50(4)). ``preferred`` is the larger model when the test rejects at
+    .05 and its BIC is lower, else the smaller one, but a model that did not
+    converge or is inadmissible is never preferred: the other one is, if usable,
+    else none; ``note`` says why. With boundary estimates the note says that the
+    chi-square reference is conservative.
     """
     rows = []
     for outcome in sorted({o for o, _ in fits}):
@@ -79,12 +104,29 @@ def compare_models(fits: dict, residuals="free") -> pd.DataFrame:
             ddf = int(b.fit["k"] - a.fit["k"]) if "k" in a.fit else int(a.fit["df"] - b.fit["df"])
             p = float(sps.chi2.sf(max(lr, 0.0), ddf)) if ddf > 0 else np.nan
             prefer = large if (np.isfinite(p) and p < 0.05 and b.fit["bic"] < a.fit["bic"]) else small
+            ok = {small: _usable(a), large: _usable(b)}
+            notes = []
+            for shape in (small, large):
+                if not ok[shape][0]:
+                    notes.append(f"{model_name(shape, residuals)} {ok[shape][1]}")
+            if not ok[prefer][0]:
+                other = large if prefer == small else small
+                if ok[other][0]:
+                    notes.append(f"{model_name(other, residuals)} preferred because "
+                                 f"{model_name(prefer, residuals)} {ok[prefer][1]}")
+                    prefer = other
+                else:
+                    notes.append("neither model is usable: no preference")
+                    prefer = None
+            if a.fit.get("boundary") or b.fit.get("boundary"):
+                notes.append("boundary estimates: the chi-square reference of the LR test is conservative")
             rows.append({"outcome": outcome, "model_a": model_name(small, residuals),
                          "model_b": model_name(large, residuals), "lr_chisq": lr, "df": ddf, "p": p,
                          "aic_a": a.fit["aic"], "aic_b": b.fit["aic"], "bic_a": a.fit["bic"],
-                         "bic_b": b.fit["bic"], "preferred": model_name(prefer, residuals)})
+                         "bic_b": b.fit["bic"], "preferred": model_name(prefer, residuals) if prefer else "",
+                         "note": "; ".join(notes)})
     cols = ["outcome", "model_a", "model_b", "lr_chisq", "df", "p", "aic_a", "aic_b", "bic_a", "bic_b",
-            "preferred"]
+            "preferred", "note"]
     return pd.DataFrame(rows, columns=cols)
 
 
@@ -160,7 +202,10 @@ def fit_growth(job) -> None:
     outcomes, _ = resolve_outcomes({"growth": settings, "forest": {"enabled": False}}, codebook)
     shapes = list(settings.get("shapes") or ["linear"])
     residuals = settings.get("residuals", "free")
-    fit_df, est_df, fits = fit_growth_models(scores, waves, time_scores, outcomes, shapes, residuals, codebook)
+    bounded = bool(settings.get("bounded", True))
+    robust = bool(settings.get("robust", False))
+    fit_df, est_df, fits = fit_growth_models(scores, waves, time_scores, outcomes, shapes, residuals,
+                                             bounded=bounded, seed=job.seed, robust=robust, codebook=codebook)
     write_table(job.path(job.output["fit"]), fit_df)
     write_table(job.path(job.output["estimates"]), est_df)
     write_table(job.path(job.output["comparison"]), compare_models(fits, residuals))
