@@ -40,7 +40,7 @@ from wavetrail.seeds import derive_seed
 log = logging.getLogger("wavetrail")
 
 #: nodes below ``MC_PER_PARAMETER * k`` people get Monte Carlo p-values by default
-MC_PER_PARAMETER = 15
+MC_PER_PARAMETER = 10
 
 
 def default_min_size(model) -> int:
@@ -56,7 +56,7 @@ def default_min_size(model) -> int:
 
 
 def default_mc_below(model) -> int:
-    """Node size below which split tests use permutation p-values: ``15 k``."""
+    """Node size below which split tests use permutation p-values: ``10 k``."""
     return int(MC_PER_PARAMETER * model.k)
 
 
@@ -136,7 +136,7 @@ def grow_tree(wide, predictors, time_scores, shape="linear", alpha=0.05, min_siz
         (``None``: every admissible cut, at most ``max_cuts``).
     model : a node model object to use instead of the growth model (tests, reductions).
     mc_below : nodes with fewer people get a permutation (Monte Carlo) min-P test over the
-        candidates instead of asymptotic p-values with Bonferroni; default ``15 k``; 0 = never.
+        candidates instead of asymptotic p-values with Bonferroni; default ``10 k``; 0 = never.
     permutations : most permutations of one Monte Carlo test (it stops early once the
         p-value is clearly above alpha).
 

@@ -371,11 +371,8 @@ class NodeTests:
             self._t = t
             # cumulative sums as one matrix product: L[c, i, person] = 1 when the person is
             # observed and among the first i + 1 in column c's order
-            rank = np.empty_like(order)
-            np.put_along_axis(rank, order, np.arange(n)[:, None], axis=0)
-            seen = ~np.isnan(Zo)
-            tri = np.tri(n)
-            self._L = (tri[:, rank.T] * seen.T[None, :, :]).transpose(1, 0, 2).reshape(-1, n)
+            self._order_cols = order
+            self._L = None  # built on the first permuted call
             for c, j in enumerate(self.ord_cols):
                 self.npts[j] = int(ok[:, c].sum())
                 self.testable[j] = self.npts[j] > 0
@@ -421,6 +418,12 @@ class NodeTests:
         flat = Sp.transpose(1, 0, 2).reshape(self.n, B * k)
         if self.ord_cols:
             mo = len(self.ord_cols)
+            if self._L is None:
+                rank = np.empty_like(self._order_cols)
+                np.put_along_axis(rank, self._order_cols, np.arange(self.n)[:, None], axis=0)
+                seen = ~np.isnan(self.Z[:, self.ord_cols])
+                tri = np.tri(self.n)
+                self._L = (tri[:, rank.T] * seen.T[None, :, :]).transpose(1, 0, 2).reshape(-1, self.n)
             C = (self._L @ flat).reshape(mo, self.n, B, k)
             b = C - self._t.T[:, :, None, None] * C[:, -1:, :, :]
             num = np.einsum("cibk,cibk->cib", b, b)
