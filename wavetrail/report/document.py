@@ -594,7 +594,7 @@ class Report:
                 text += (f" {fmt_count(len(untested))} predictor(s) could never be tested and are not evidence of "
                          f"no association: {', '.join(self.study.label(n) for n in untested[:10])}"
                          f"{' ...' if len(untested) > 10 else ''} (see the table).")
-            return Fragment(caution + _p(esc(text)) + self._importance(imp), "moderators")
+            return Fragment(caution + _p(esc(text)) + self._importance(imp, figure=False), "moderators")
         out = [caution, "<h3>Variable importance</h3>", self._importance(imp)]
         out += ["<h3>What differs between the groups the trees form</h3>", self._differences(imp)]
         out += ["<h3>Expected trajectories of the top predictors</h3>", self._dependence(imp)]
@@ -664,7 +664,7 @@ class Report:
                 f"\u201ctoo few people in a category\u201d, merge rare levels in the codebook."
                 + (f" The forest had {fmt_count(forest['trees'])} trees." if forest.get("trees") else ""))
 
-    def _importance(self, imp: pd.DataFrame) -> str:
+    def _importance(self, imp: pd.DataFrame, figure: bool = True) -> str:
         from wavetrail.report.plots import importance_figure
 
         imp = imp.sort_values(["rank", "predictor"], kind="stable", na_position="last").reset_index(drop=True)
@@ -695,7 +695,7 @@ class Report:
                                       "twice the minimum node size), too few people in a category, no variation. "
                                       + self._source("importance")))
         top = imp.dropna(subset=["importance"]).head(TOP_IMPORTANCE)
-        if len(top):
+        if figure and len(top):
             fig, data = importance_figure(top, self.study.labels)
             html += self._figure("importance", fig, data,
                                  f"Permutation importance of the {len(top)} most important predictors (\u00b11.96 SE).",
