@@ -35,6 +35,8 @@ SCROLL_ROWS = 15
 TOP_IMPORTANCE = 15
 #: how many top predictors get expected-trajectory panels
 TOP_DEPENDENCE = 3
+#: further panels for top predictors that mainly change the spread of the trajectories
+TOP_SPREAD_EXTRA = 2
 
 EXPLORATORY = (
     "The moderator forest screens many candidate predictors at once. Its results are exploratory "
@@ -618,8 +620,9 @@ class Report:
         else:
             verdict = ("The forest does not predict the trajectories of people it was not grown on measurably better "
                        "than the single growth model: the rankings below may reflect noise.")
-        rows = [[fmt_count(r["people"]), _sig(r["loglik_forest"]), _sig(r["loglik_single"]), _sig(gain), _sig(se),
-                 f"{_sig(lo)} to {_sig(hi)}", _sig(r["gain_per_person"], 3)]]
+        rows = [[fmt_count(r["people"]), fmt_number(r["loglik_forest"], 1), fmt_number(r["loglik_single"], 1),
+                 fmt_number(gain, 1), fmt_number(se, 1), f"{fmt_number(lo, 1)} to {fmt_number(hi, 1)}",
+                 _sig(r["gain_per_person"], 3)]]
         html = "<h3>Does the forest generalise?</h3>" + _p(esc(verdict))
         html += self._table(Table("Out-of-bag log-likelihood: forest against the single growth model",
                                   ["People", "Forest", "Single model", "Gain", "SE", "95% interval", "Gain per person"],
@@ -714,11 +717,11 @@ class Report:
             shares = {k: float(part.loc[k, "share"]) if k in part.index else np.nan
                       for k in ("means", "growth (co)variances", "residual variances")}
             splits = int(part["splits"].iloc[0]) if len(part) else 0
-            main = max(shares, key=lambda k: -1 if np.isnan(shares[k]) else shares[k])
+            main = _main_part(shares, splits)
             rows.append([self.study.label(name), fmt_count(splits)] +
                         [fmt_percent(shares[k]) if not np.isnan(shares[k]) else MISSING for k in shares] +
-                        [_PART_TEXT[main] if splits else MISSING])
-            if splits and main != "means":
+                        [_PART_TEXT.get(main, main) if splits else MISSING])
+            if main in ("growth (co)variances", "residual variances"):
                 notes.append(self.study.label(name))
         html = self._table(Table("Which parts of the growth model differ between the groups the trees form",
                                  ["Predictor", "Splits", "Means of growth factors", "Growth-factor (co)variances",
@@ -726,7 +729,8 @@ class Report:
                                  note="Share of each split's score statistic carried by each part of the growth model "
                                       "(the statistic for \u201conly this part differs\u201d, normalised over the "
                                       "three parts), averaged over the predictor's splits with the likelihood ratio "
-                                      "as weight. " + self._source("differences")))
+                                      "as weight. Mainly: the part with at least half of the share, over at least "
+                                      f"{MIN_SPLITS_PART} splits. " + self._source("differences")))
         if notes:
             html += _p(esc("Mainly a difference in spread rather than in average development: "
                            + ", ".join(notes) + ". Their expected trajectories can look alike; the bands "
@@ -739,7 +743,10 @@ class Report:
         from wavetrail.report.plots import dependence_figure
 
         ranked = imp.sort_values(["rank", "predictor"], kind="stable")["predictor"].tolist()
-        top = [p for p in ranked if p in set(dep["predictor"])][:TOP_DEPENDENCE]
+        available = [p for p in ranked if p in set(dep["predictor"])]
+        top = available[:TOP_DEPENDENCE]
+        # a predictor that mainly changes the spread is shown too, since its bands are the point
+        top += [p for p in available[TOP_DEPENDENCE:] if p in self._spread_predictors()][:TOP_SPREAD_EXTRA]
         if not top:
             return _absent("None of the top predictors has expected trajectories in dependence.csv.")
         times = _sorted_waves(dep["time"])
@@ -750,7 +757,7 @@ class Report:
                                       unit=self.study.time_unit, ylabel=ylabel)
         html = self._figure("dependence", fig, data,
                             "Expected trajectories (partial dependence) at low, average and high values of the top "
-                            "predictors, or at each category.",
+                            "predictors, or at each category; bands: \u00b11 SD of individual trajectories.",
                             "Line charts of expected trajectories, one panel per predictor, one line per predictor value.")
         first, last = times[0], times[-1]
         rows = []
@@ -775,6 +782,17 @@ class Report:
                                        "and residual variances of the leaves, mixed over trees and people). "
                                        + self._source("dependence")))
         return html
+
+    def _spread_predictors(self) -> set:
+        df = self.tables.get("differences")
+        if df is None or not len(df):
+            return set()
+        out = set()
+        for name, part in df.groupby("predictor", sort=False):
+            shares = dict(zip(part["part"], pd.to_numeric(part["share"], errors="coerce")))
+            if _main_part(shares, int(part["splits"].iloc[0])) in ("growth (co)variances", "residual variances"):
+                out.add(name)
+        return out
 
     def _dep_label(self, name, curve, level) -> str:
         if "label" in curve and not pd.isna(curve["label"].iloc[0]):
@@ -1076,6 +1094,16 @@ def _without_ids(message, rows) -> str:
 
 _PART_TEXT = {"means": "average development", "growth (co)variances": "spread of development",
               "residual variances": "wave-to-wave variability"}
+#: fewest splits on a predictor before the report names the part of the model it mainly changes
+MIN_SPLITS_PART = 3
+
+
+def _main_part(shares: dict, splits: int) -> str:
+    """The part with at least half of the share ('mixed' otherwise; 'too few splits' below MIN_SPLITS_PART)."""
+    if splits < MIN_SPLITS_PART:
+        return "too few splits"
+    best = max(shares, key=lambda k: -1.0 if np.isnan(shares[k]) else shares[k])
+    return best if shares[best] >= 0.5 else "mixed"
 
 
 def _sig(x, digits: int = 3) -> str:
