@@ -202,14 +202,15 @@ def _select_score(model, terms, X, kinds, rows, theta, cand, st: Settings, count
     S = model.scores(theta, terms.Y[rows])
     Sw = _tests.whiten(S)
     Zc = X[np.ix_(rows, cand)]
-    nt = _tests.NodeTests(Zc, [kinds[j] for j in cand], min_size=st.min_size)
-    if counts is not None:
-        _count(counts, cand, nt)
-    if Sw.shape[1] == 0 or not nt.testable.any():
-        return None
     m = len(cand)
     drawn = 0
-    if len(rows) < st.mc_below and mc_rng is not None:
+    use_mc = len(rows) < st.mc_below and mc_rng is not None
+    if use_mc:
+        nt = _tests.NodeTests(Zc, [kinds[j] for j in cand], min_size=st.min_size)
+        if counts is not None:
+            _count(counts, cand, nt)
+        if Sw.shape[1] == 0 or not nt.testable.any():
+            return None
         # small node: one permutation min-P test over the candidates instead of
         # asymptotic p-values with Bonferroni
         best, stat, p_best, drawn = _tests.monte_carlo_min_p(nt, Sw, mc_rng, st.permutations)
@@ -218,14 +219,34 @@ def _select_score(model, terms, X, kinds, rows, theta, cand, st: Settings, count
     else:
         stat = np.zeros(m)
         p = np.ones(m)
+        testable = np.zeros(m, dtype=bool)
         ordered_idx = [i for i, j in enumerate(cand) if kinds[j] != UNORDERED]
         if ordered_idx:
             cols = [cand[i] for i in ordered_idx]
-            s, pv, _ = _tests.ordered_tests(Sw, Zc[:, ordered_idx], [kinds[j] for j in cols],
-                                            min_size=st.min_size)
+            s, pv, npts = _tests.ordered_tests(Sw, Zc[:, ordered_idx], [kinds[j] for j in cols],
+                                               min_size=st.min_size)
             stat[ordered_idx], p[ordered_idx] = s, pv
+            testable[ordered_idx] = npts > 0
+        # unordered predictors and the untestable ordered ones: testability and its reason
+        # (the same rules as the Monte Carlo path)
+        check = [i for i in range(m) if kinds[cand[i]] == UNORDERED or not testable[i]]
+        if check:
+            nt = _tests.NodeTests(Zc[:, check], [kinds[cand[i]] for i in check], min_size=st.min_size)
+            for c, i in enumerate(check):
+                if kinds[cand[i]] == UNORDERED:
+                    testable[i] = nt.testable[c]
+        if counts is not None:
+            cand_arr = np.asarray(cand)
+            counts["candidate"][cand_arr] += 1
+            counts["tested"][cand_arr[testable]] += 1
+            if check:
+                for c, i in enumerate(check):
+                    if not testable[i]:
+                        counts[nt.reason[c] or "no variation"][cand[i]] += 1
+        if Sw.shape[1] == 0 or not testable.any():
+            return None
         for i, j in enumerate(cand):
-            if kinds[j] == UNORDERED:
+            if kinds[j] == UNORDERED and testable[i]:
                 stat[i], p[i], _ = _tests.unordered_test(Sw, Zc[:, i], min_size=st.min_size)
         p_adj = np.minimum(1.0, p * m)
         # smallest adjusted p; ties broken by the larger statistic, then the lower column

@@ -212,6 +212,8 @@ class Report:
             facts.append(("Moderator forest", "configured; results absent"))
         elif imp is None:
             facts.append(("Moderator forest", "not configured"))
+        elif len(imp) and pd.to_numeric(imp["importance"], errors="coerce").isna().all():
+            facts.append(("Moderator forest", "no split was possible (no predictor could be tested)"))
         elif _found_nothing(imp):
             facts.append(("Moderator forest", "no predictor was selected for a split"))
         else:
