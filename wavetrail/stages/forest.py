@@ -228,6 +228,10 @@ def summarise_forest(job) -> None:
     top = int(cfg.get("top", 10))
     imp = forest.importance()
     write_table(job.path(job.output["importance"]), imp)
+    if imp["importance"].isna().all():
+        progress_log.info("forest: no split was possible, no predictor could be tested at any node (node size "
+                          "%s); lower forest.min_size or raise forest.sample_share",
+                          forest.settings_.get("min_size"))
     if "overview" in job.output.keys():
         write_table(job.path(job.output["overview"]), overview_table(forest, wide, predictors))
     if "trees" in job.output.keys():
