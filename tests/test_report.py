@@ -159,6 +159,18 @@ def make_project(root: Path, *, forest: str = "found") -> Path:
          "delta_df": 4, "p": 0.00003, "delta_aic": -14.6, "delta_bic": -3.5, "preferred": "quadratic"}]))
     if forest == "absent":
         return root
+    # the forest stage's overview, per-tree and model-part tables
+    write_table(r / "forest" / "overview.csv", pd.DataFrame([{
+        "people": 120, "trees": 200, "min_size": 12, "mc_below": 100, "trees_split": 0 if forest == "nothing" else 150,
+        "failed_fits": 0, "trees_with_failed_fits": 0, "loglik_forest": -800.0, "loglik_single": -812.5,
+        "gain": 0.0 if forest == "nothing" else 12.5, "se": 4.1, "gain_per_person": 0.0 if forest == "nothing" else 0.104,
+        "se_per_person": 0.034}]))
+    write_table(r / "forest" / "trees.csv", pd.DataFrame({"tree": range(3), "people": [76] * 3, "leaves": [1, 2, 2],
+                                                          "failed_fits": [0, 0, 0]}))
+    write_table(r / "forest" / "differences.csv", pd.DataFrame({
+        "predictor": ["screen"] * 3, "part": ["means", "growth (co)variances", "residual variances"],
+        "share": [0.8, 0.15, 0.05], "splits": [40] * 3}) if forest != "nothing"
+        else pd.DataFrame(columns=["predictor", "part", "share", "splits"]))
     if forest == "nothing":
         imp = pd.DataFrame({"predictor": ["chrono", "rules", "screen"], "importance": [0.0, 0.0, 0.0],
                             "se": [0.0, 0.0, 0.0], "rank": [1, 1, 1]})
@@ -310,7 +322,7 @@ def test_report_shows_the_numbers_of_the_result_tables(built):
     # the top predictor of importance.csv, first in the importance table, and named in the overview
     imp = _cells(page, "importance")
     assert imp[0][:4] == ["1", "Evening screen time", "screen", "4.57"]
-    assert imp[2][3] == "\u22120.01"
+    assert imp[2][3] == "\u22120.0123"  # three significant digits, so small importances do not print as 0.00
     assert "Top moderator (exploratory)</dt><dd>Evening screen time" in page
     # interactions sorted by H; H printed without leading zero
     assert _cells(page, "interactions")[0] == ["Evening screen time", "Chronotype", ".31"]
