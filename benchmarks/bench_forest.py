@@ -14,7 +14,13 @@ the goals below refer to the full sizes.
              four true moderators (one acting only on the spread of the slopes) among
              noise: time and how often they take ranks 1-4, side by side;
 * memory   — 100,000 people, 6 waves, 100 trees: peak resident memory (run alone);
-* demo     — demo-sized panel (800 people, 5 waves, 36 predictors, quadratic).
+* demo     — demo-sized panel (800 people, 5 waves, 36 predictors, quadratic);
+* small    — calibration and power of the root split with default settings at 60, 150
+             and 1,000 people x 5 waves (linear growth, 8 noise predictors and one binary
+             predictor): null root-split rate (goal: within 5 % +- 2.5 SE; 200 panels at
+             60 people) and how often a binary slope moderator (+0.6 per wave) is found at
+             the root (goal >= 75 % at 60 people), beside asymptotic tests only
+             (``mc_below=0``) and the former default node size of 10 per parameter.
 
 The machine is shared while these run; wall-clock numbers carry that noise.
 """
@@ -184,7 +190,39 @@ def bench_demo(trees=(100, 200, 300), n_jobs=2):
               f"top 4 {list(f.importance()['predictor'][:4])}")
 
 
+def _binary_panel(n, seed, effect):
+    rng = np.random.default_rng(seed)
+    wide, X, times = simulate_panel(n, 5, n_noise=8, seed=seed, moderators=False)
+    g = rng.integers(0, 2, size=n).astype(float)
+    wide = wide + effect * g[:, None] * np.asarray(times)[None, :]
+    X = X.drop(columns=["lin_intercept", "step_slope", "spread_slope"])
+    X["binary"] = g
+    return wide, X, times
+
+
+def bench_small(sizes=((60, 200, 60), (150, 100, 40), (1000, 40, 20))):
+    from wavetrail.forest import grow_tree
+
+    variants = {"default": {}, "asymptotic only": {"mc_below": 0}, "10 per parameter": {"min_size": 100}}
+    for n, null_reps, power_reps in sizes:
+        for label, kw in variants.items():
+            t0 = time.perf_counter()
+            null = sum(grow_tree(*_binary_panel(n, 1000 + r, 0.0), max_depth=1, seed=r, **kw).n_leaves_ > 1
+                       for r in range(null_reps))
+            found = 0
+            for r in range(power_reps):
+                tree = grow_tree(*_binary_panel(n, 50_000 + r, 0.6), max_depth=1, seed=r, **kw)
+                found += tree.n_leaves_ > 1 and tree.splits_["predictor"].iloc[0] == "binary"
+            rate = null / null_reps
+            se = (0.05 * 0.95 / null_reps) ** 0.5
+            band = "in" if abs(rate - 0.05) <= 2.5 * se else "OUTSIDE"
+            print(f"small: {n:5d} people, {label:16s}: null root splits {null:3d} of {null_reps} ({rate:.3f}, "
+                  f"{band} the band 5 % +- 2.5 SE); binary slope moderator at the root {found} of {power_reps} "
+                  f"({found / power_reps:.2f}); {time.perf_counter() - t0:.0f} s")
+
+
 QUICK = {
+    "small": dict(sizes=((60, 40, 10), (150, 20, 10))),
     "speed": dict(n=600, n_pred=30, trees=50),
     "naive": dict(n=400, cuts=8),
     "recovery": dict(seeds=2, n=600, n_noise=12, trees=30),

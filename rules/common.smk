@@ -67,6 +67,9 @@ def report_inputs(wildcards=None):
             dependence="results/forest/dependence.csv",
             interactions="results/forest/interactions.csv",
             dependence_pairs="results/forest/dependence_pairs.csv",
+            forest_overview="results/forest/overview.csv",
+            forest_trees="results/forest/trees.csv",
+            differences="results/forest/differences.csv",
             importance_figure="results/forest/importance_plot.png",
             trajectories_figure="results/forest/trajectories.png",
         )

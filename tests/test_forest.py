@@ -219,7 +219,7 @@ def small_forest():
 def test_forest_importance_ranks_the_moderators_first(small_forest):
     _, _, forest = small_forest
     imp = forest.importance()
-    assert list(imp.columns) == ["predictor", "importance", "se", "rank"]
+    assert list(imp.columns) == ["predictor", "importance", "se", "rank", "tested", "candidate", "untested"]
     assert set(imp["predictor"][:2]) == {"x1", "cat"}
     assert imp["rank"].tolist() == list(range(1, len(imp) + 1))
     assert (imp["se"][:2] > 0).all()
@@ -243,7 +243,7 @@ def test_forest_is_identical_for_n_jobs_and_shards(small_forest):
 def test_dependence_and_prediction(small_forest):
     wide, X, forest = small_forest
     dep = forest.dependence("x1", [-1.0, 1.0])
-    assert list(dep.columns) == ["value", "time", "expected"]
+    assert list(dep.columns) == ["value", "time", "expected", "sd"]
     lo = dep[dep["value"] == -1.0]["expected"].to_numpy()
     hi = dep[dep["value"] == 1.0]["expected"].to_numpy()
     # true shift 0.8 above x1 = 0.3; a forest with mtry < m shrinks it (trees not using x1)

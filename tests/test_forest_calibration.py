@@ -30,13 +30,13 @@ from wavetrail.forest import grow_tree
 from wavetrail.forest import tests as T
 from wavetrail.forest._encode import encode_predictors
 from wavetrail.forest._simulate import simulate_panel
-from wavetrail.forest.forest import MIN_SIZE_PER_PARAMETER
 from wavetrail.forest.models import GrowthNodeModel, PanelTerms
 from wavetrail.forest.tree import Settings, build_tree
 
 LEVELS = (3, 4, 5, 6)
 REPS = 300
-N = 600  # people per panel; linear growth over 5 waves has k = 10, so min_size = 100
+N = 600  # people per panel; linear growth over 5 waves has k = 10
+MIN_SIZE = 100  # 10 per parameter: large nodes, where the asymptotic p-values are used
 ALPHA = 0.05
 
 
@@ -69,10 +69,10 @@ def null_runs():
         wide, _, times = simulate_panel(N, 5, n_noise=0, seed=20_000 + r, moderators=False)
         rng = np.random.default_rng(30_000 + r)
         Xo, Xu = (_categories(rng, N, ordered).set_axis(wide.index) for ordered in (True, False))
-        tree_o = grow_tree(wide, Xo, times, shape="linear", alpha=ALPHA, max_depth=1)
+        tree_o = grow_tree(wide, Xo, times, shape="linear", alpha=ALPHA, max_depth=1, min_size=MIN_SIZE)
         model = GrowthNodeModel(times, "linear")
         Y = wide.to_numpy(dtype=float)
-        min_size = MIN_SIZE_PER_PARAMETER * model.k  # the default of grow_tree
+        min_size = MIN_SIZE
         Zu, info_u = encode_predictors(Xu)
         tree_u = build_tree(model, PanelTerms(Y), Zu, info_u, np.arange(N), np.random.default_rng(0),
                             Settings(alpha=ALPHA, min_size=min_size, max_depth=1, mtry=Zu.shape[1]),

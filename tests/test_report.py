@@ -159,6 +159,18 @@ def make_project(root: Path, *, forest: str = "found") -> Path:
          "delta_df": 4, "p": 0.00003, "delta_aic": -14.6, "delta_bic": -3.5, "preferred": "quadratic"}]))
     if forest == "absent":
         return root
+    # the forest stage's overview, per-tree and model-part tables
+    write_table(r / "forest" / "overview.csv", pd.DataFrame([{
+        "people": 120, "trees": 200, "min_size": 12, "mc_below": 100, "trees_split": 0 if forest == "nothing" else 150,
+        "failed_fits": 0, "trees_with_failed_fits": 0, "loglik_forest": -800.0, "loglik_single": -812.5,
+        "gain": 0.0 if forest == "nothing" else 12.5, "se": 4.1, "gain_per_person": 0.0 if forest == "nothing" else 0.104,
+        "se_per_person": 0.034}]))
+    write_table(r / "forest" / "trees.csv", pd.DataFrame({"tree": range(3), "people": [76] * 3, "leaves": [1, 2, 2],
+                                                          "failed_fits": [0, 0, 0]}))
+    write_table(r / "forest" / "differences.csv", pd.DataFrame({
+        "predictor": ["screen"] * 3, "part": ["means", "growth (co)variances", "residual variances"],
+        "share": [0.8, 0.15, 0.05], "splits": [40] * 3}) if forest != "nothing"
+        else pd.DataFrame(columns=["predictor", "part", "share", "splits"]))
     if forest == "nothing":
         imp = pd.DataFrame({"predictor": ["chrono", "rules", "screen"], "importance": [0.0, 0.0, 0.0],
                             "se": [0.0, 0.0, 0.0], "rank": [1, 1, 1]})
@@ -310,7 +322,7 @@ def test_report_shows_the_numbers_of_the_result_tables(built):
     # the top predictor of importance.csv, first in the importance table, and named in the overview
     imp = _cells(page, "importance")
     assert imp[0][:4] == ["1", "Evening screen time", "screen", "4.57"]
-    assert imp[2][3] == "\u22120.01"
+    assert imp[2][3] == "\u22120.0123"  # three significant digits, so small importances do not print as 0.00
     assert "Top moderator (exploratory)</dt><dd>Evening screen time" in page
     # interactions sorted by H; H printed without leading zero
     assert _cells(page, "interactions")[0] == ["Evening screen time", "Chronotype", ".31"]
@@ -453,7 +465,7 @@ def test_forest_without_a_split_reads_sensibly(tmp_path):
     page = html_path.read_text(encoding="utf-8")
     assert "The forest of 200 trees found no split" in page
     assert "at \u03b1 = .05" in page
-    assert "This is a result, not an error" in page
+    assert "the growth model fits everyone alike as far as the tested predictors can tell" in page
     assert "Traceback" not in page and 'id="figure-importance"' not in page
 
 
@@ -595,3 +607,66 @@ def test_implied_trajectories_from_factor_means(tmp_path):
     assert report.implied_means("sleep_difficulty", "no-such-model", t) is None
     assert _parameter_text("var(3)", {"3"}) == "Residual variance at wave 3"
     assert _parameter_text("cov(intercept,slope)") == "Covariance of intercept and slope"
+
+
+def _forest_tables(root, importance, overview=None, differences=None):
+    paths = {}
+    for name, df in (("importance", importance), ("forest_overview", overview), ("differences", differences)):
+        if df is not None:
+            path = root / "results" / "forest" / f"{name}.csv"
+            path.parent.mkdir(parents=True, exist_ok=True)
+            write_table(path, df)
+            paths[name] = str(path.relative_to(root))
+    return paths
+
+
+def _overview(gain, se, failed=0):
+    return pd.DataFrame([{"people": 120, "trees": 50, "min_size": 12, "mc_below": 100, "trees_split": 31,
+                          "failed_fits": failed, "trees_with_failed_fits": min(failed, 3),
+                          "loglik_forest": -1000.0 + gain, "loglik_single": -1000.0, "gain": gain, "se": se,
+                          "gain_per_person": gain / 120, "se_per_person": se / 120}])
+
+
+def test_moderators_say_could_not_test_and_no_split_possible(tmp_path):
+    """Every predictor untested: importance missing, the section says no split was possible,
+    that this is not evidence of no association, and names the setting to change."""
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p", forest="absent")
+    imp = pd.DataFrame({"predictor": ["sex", "chronotype"], "importance": [np.nan, np.nan], "se": [np.nan, np.nan],
+                        "rank": [np.nan, np.nan], "tested": [0, 0], "candidate": [50, 50],
+                        "untested": ["node size 50", "node size 50"]})
+    report = open_report(root, _forest_tables(root, imp, _overview(0.0, 0.0)),
+                         {"forest": {"enabled": True, "trees": 50}, "figures": "results/reports/figures"})
+    text = html.unescape(re.sub(r"<[^>]+>", " ", report.moderators().html))
+    assert "No split was possible" in text and "not evidence of no association" in text
+    assert "forest.min_size (now 12)" in text and "reasons: node size" in text
+
+
+def test_moderators_show_generalisation_untested_and_spread(tmp_path):
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p", forest="absent")
+    imp = pd.DataFrame({"predictor": ["chronotype", "sex", "siblings"], "importance": [0.0123, 0.00042, np.nan],
+                        "se": [0.0021, 0.00011, np.nan], "rank": [1, 2, np.nan], "tested": [40, 38, 0],
+                        "candidate": [40, 41, 39], "untested": ["", "too few people in a category 3",
+                                                               "too few people in a category 39"]})
+    diff = pd.DataFrame({"predictor": ["chronotype"] * 3 + ["sex"] * 3,
+                         "part": ["means", "growth (co)variances", "residual variances"] * 2,
+                         "share": [0.1, 0.8, 0.1, 0.7, 0.2, 0.1], "splits": [12] * 3 + [5] * 3})
+    report = open_report(root, _forest_tables(root, imp, _overview(25.0, 6.0, failed=4), diff),
+                         {"forest": {"enabled": True, "trees": 50}, "figures": "results/reports/figures"})
+    page = report.moderators().html
+    text = html.unescape(re.sub(r"<[^>]+>", " ", page))
+    # generalisation comes first, with its verdict
+    assert text.index("Does the forest generalise?") < text.index("Variable importance")
+    assert "better than the single growth model" in text
+    assert "4 node model(s) in 3 tree(s) did not converge" in text
+    rows = _cells(page, "importance")
+    assert rows[0][3:5] == ["0.0123", "0.0021"]  # three significant digits, not 0.01 / 0.00
+    assert rows[1][3:5] == ["0.00042", "0.00011"]
+    assert rows[2][0] == F.MISSING and rows[2][3] == F.MISSING
+    assert rows[2][6].startswith("never tested: too few people in a category")
+    assert "Mainly a difference in spread rather than in average development" in text
+    diffs = _cells(page, "differences")
+    assert diffs[0][-1] == "spread of development" and diffs[1][-1] == "average development"

@@ -378,8 +378,6 @@ forest:
   shape: quadratic            # the node model: intercept, slope and curvature
   predictors: wave1           # the 36 first-wave predictors and age
   trees: {trees}                  # small, so that the demo builds in minutes
-  min_size: 70                # 5 people per model parameter: each tree sees 505 of the 800 people,
-                              # and the default of 10 per parameter (140) stops most trees after one split
   shards: {shards}                   # two jobs: one per core on a laptop
   threads: 1
   runtime: 60

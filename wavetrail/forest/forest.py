@@ -33,14 +33,35 @@ from wavetrail.forest._encode import PredictorInfo, encode_like, encode_predicto
 from wavetrail.forest.dependence import background_rows, partial_dependence
 from wavetrail.forest.importance import importance_table, oob_drop
 from wavetrail.forest.interactions import h_statistic
-from wavetrail.forest.models import GrowthNodeModel, PanelTerms, model_from_dict
+from wavetrail.forest.models import GrowthNodeModel, PanelTerms, fit_robust, model_from_dict
 from wavetrail.forest.tree import Settings, Tree, build_tree
 from wavetrail.seeds import derive_seed
 
 log = logging.getLogger("wavetrail")
 
-#: minimum node size per free parameter when ``min_size`` is not given
-MIN_SIZE_PER_PARAMETER = 10
+#: nodes below ``MC_PER_PARAMETER * k`` people get Monte Carlo p-values by default
+MC_PER_PARAMETER = 10
+
+
+def default_min_size(model) -> int:
+    """Smallest node the node model needs: ``max(k, 2 (p + 1))``.
+
+    A child must identify the model's ``k`` free parameters (at least one person
+    per parameter) and give a nonsingular covariance of the ``p`` waves with some
+    room (``n > p``, doubled). Linear growth over 5 waves (k = 10): 12 people;
+    quadratic (k = 14): 14. Split tests at such small nodes are calibrated by
+    Monte Carlo p-values (see ``mc_below``).
+    """
+    return int(max(model.k, 2 * (model.p + 1)))
+
+
+def default_mc_below(model) -> int:
+    """Node size below which split tests use permutation p-values: ``10 k``."""
+    return int(MC_PER_PARAMETER * model.k)
+
+
+#: the parts of the growth model whose differences :meth:`Forest.differences` reports
+PARTS = ("means", "growth (co)variances", "residual variances")
 
 
 # ---------------------------------------------------------------- input checks
@@ -67,19 +88,23 @@ def _prepare(wide, predictors, time_scores):
 
 
 def _resolve(model, m, n, alpha, min_size, max_depth, mtry, split, max_cuts, max_levels,
-             refine=8) -> Settings:
+             refine=8, mc_below=None, permutations=199) -> Settings:
     if split not in ("score", "likelihood"):
         raise ModelError(f"split must be 'score' or 'likelihood', not {split!r}")
     if not 0 < alpha <= 1:
         raise ModelError(f"alpha must lie in (0, 1], not {alpha!r}")
-    ms = MIN_SIZE_PER_PARAMETER * model.k if min_size is None else int(min_size)
+    ms = default_min_size(model) if min_size is None else int(min_size)
+    mc = default_mc_below(model) if mc_below is None else int(mc_below)
+    if int(permutations) < 19:
+        raise ModelError(f"permutations must be at least 19, not {permutations!r}")
     mt = m if mtry is None else int(mtry)
     if not 1 <= mt <= m:
         raise ModelError(f"mtry must lie between 1 and the number of predictors ({m}), not {mtry!r}")
     return Settings(alpha=float(alpha), min_size=max(1, ms),
                     max_depth=1_000_000 if max_depth is None else int(max_depth), mtry=mt,
                     split=split, max_cuts=int(max_cuts), max_levels=int(max_levels),
-                    refine=None if refine is None else max(1, int(refine)))
+                    refine=None if refine is None else max(1, int(refine)), mc_below=mc,
+                    permutations=int(permutations))
 
 
 def _default_mtry(m: int) -> int:
@@ -91,7 +116,7 @@ def _default_mtry(m: int) -> int:
 
 def grow_tree(wide, predictors, time_scores, shape="linear", alpha=0.05, min_size=None, seed=0, *,
               residuals="free", max_depth=None, split="score", max_cuts=32, max_levels=6,
-              refine=8, model=None) -> Tree:
+              refine=8, model=None, mc_below=None, permutations=199) -> Tree:
     """Grow one SEM tree of the growth model on all people, testing every predictor at each node.
 
     Parameters
@@ -101,14 +126,19 @@ def grow_tree(wide, predictors, time_scores, shape="linear", alpha=0.05, min_siz
     time_scores : one time score per wave column.
     shape, residuals : growth model (see :func:`wavetrail.growth.growth_spec`).
     alpha : significance level of the Bonferroni-adjusted split test.
-    min_size : smallest node; default ``10 * k`` for ``k`` free model parameters.
-    seed : used only for ties in random choices (a single tree tests all predictors).
+    min_size : smallest node; default :func:`default_min_size` (``max(k, 2 (p + 1))`` for
+        ``k`` free model parameters and ``p`` waves).
+    seed : seeds the Monte Carlo tests (a single tree tests all predictors).
     split : ``"score"`` (score-based tests, default) or ``"likelihood"`` (likelihood-ratio search over all predictors).
     max_cuts : most candidate cuts fitted per predictor without pre-screening (spread evenly).
     max_levels : unordered categories with at most this many levels try every two-group partition.
     refine : score method: fit only the cuts with the ``refine`` largest LM statistics
         (``None``: every admissible cut, at most ``max_cuts``).
     model : a node model object to use instead of the growth model (tests, reductions).
+    mc_below : nodes with fewer people get a permutation (Monte Carlo) min-P test over the
+        candidates instead of asymptotic p-values with Bonferroni; default ``10 k``; 0 = never.
+    permutations : most permutations of one Monte Carlo test (it stops early once the
+        p-value is clearly above alpha).
 
     Returns
     -------
@@ -119,7 +149,7 @@ def grow_tree(wide, predictors, time_scores, shape="linear", alpha=0.05, min_siz
     if model is None:
         model = GrowthNodeModel(time_scores, shape, residuals)
     st = _resolve(model, X.shape[1], len(Y), alpha, min_size, max_depth, None, split, max_cuts,
-                  max_levels, refine)
+                  max_levels, refine, mc_below, permutations)
     terms = PanelTerms(Y)
     return build_tree(model, terms, X, info, np.arange(len(Y)), np.random.default_rng(seed), st,
                       index=0, seed=seed)
@@ -138,8 +168,9 @@ def _grow_one(i: int) -> dict:
     size = min(n, max(2, int(round(s["sample_share"] * n))))
     inbag = np.sort(rng.choice(n, size=size, replace=False))
     tree = build_tree(s["model"], s["terms"], s["X"], s["info"], inbag, rng, s["settings"],
-                      start=s["start"], index=i, seed=seed)
-    out = {"index": i, "seed": seed, "nodes": tree.nodes, "n_oob": 0, "oob_drop": None}
+                      start=s["start"], index=i, seed=seed, strict=False)
+    out = {"index": i, "seed": seed, "nodes": tree.nodes, "n_oob": 0, "oob_drop": None,
+           "counts": {k: [int(v) for v in c] for k, c in tree.counts.items()}}
     if s["importance"]:
         oob = np.setdiff1d(np.arange(n), inbag)
         out["n_oob"] = int(len(oob))
@@ -150,7 +181,8 @@ def _grow_one(i: int) -> dict:
 def grow_forest(wide, predictors, time_scores, shape="linear", trees=500, seed=0, n_jobs=1, *,
                 residuals="free", alpha=0.05, min_size=None, max_depth=None, mtry=None,
                 sample_share=0.632, split="score", max_cuts=32, max_levels=6, refine=8,
-                importance=True, tree_indices=None, model=None) -> "Forest":
+                importance=True, tree_indices=None, model=None, mc_below=None, permutations=199,
+                progress=None) -> "Forest":
     """Grow a forest of SEM trees of the growth model.
 
     Parameters
@@ -165,10 +197,20 @@ def grow_forest(wide, predictors, time_scores, shape="linear", trees=500, seed=0
     importance : compute out-of-bag permutation importance while growing.
     tree_indices : grow only these tree indices (a shard); default all.
     model : node model object replacing the growth model (tests).
+    mc_below, permutations : as in :func:`grow_tree`.
+    progress : optional callable ``progress(done, total)`` called as trees finish (for a
+        console display; it does not influence any result).
 
     Returns
     -------
     Forest
+
+    Notes
+    -----
+    A node model that does not converge, even after the retries of
+    :func:`wavetrail.forest.models.fit_robust`, becomes a leaf marked ``failed``;
+    :meth:`Forest.fit_failures` counts them per tree. Only the model of the whole
+    sample must converge.
     """
     Y, P, index = _prepare(wide, predictors, time_scores)
     X, info = encode_predictors(P)
@@ -178,32 +220,42 @@ def grow_forest(wide, predictors, time_scores, shape="linear", trees=500, seed=0
         raise ModelError(f"sample_share must lie in (0, 1], not {sample_share!r}")
     m = X.shape[1]
     st = _resolve(model, m, len(Y), alpha, min_size, max_depth,
-                  _default_mtry(m) if mtry is None else mtry, split, max_cuts, max_levels, refine)
+                  _default_mtry(m) if mtry is None else mtry, split, max_cuts, max_levels, refine,
+                  mc_below, permutations)
     terms = PanelTerms(Y)
     root = terms.group_stats(np.arange(len(Y)), np.zeros(len(Y), dtype=np.int64), 1)
-    theta, _, conv = model.fit(root)
+    theta, _, conv = fit_robust(model, root)
     if not conv[0]:
-        raise ModelError("the growth model did not converge on the whole sample",
-                         hint="fit it in the growth step first and check its warnings")
+        raise ModelError(
+            f"the growth model did not converge on the whole sample of {len(Y)} people, even after "
+            "retrying from moment-based starting values with more iterations",
+            hint="common causes: a wave with (almost) no variance, very few people observed at some waves, "
+                 "a residual or growth-factor variance near zero (try residuals: equal or a simpler shape), "
+                 "or time scores that do not match the waves; the growth step's fit table shows which")
     idx = list(range(int(trees))) if tree_indices is None else sorted(int(i) for i in tree_indices)
     _SHARED.clear()
     _SHARED.update(model=model, terms=terms, X=X, info=info, settings=st, start=theta[0],
                    seed=int(seed), sample_share=float(sample_share), importance=bool(importance))
     results: list[dict] = []
-    step = max(1, len(idx) // 10)
+    step = max(1, len(idx) // 20)
+
+    def _done():
+        if len(results) % step == 0 or len(results) == len(idx):
+            log.info("forest: %d of %d trees grown", len(results), len(idx))
+            if progress is not None:
+                progress(len(results), len(idx))
+
     try:
         if n_jobs is not None and int(n_jobs) > 1 and len(idx) > 1:
             ctx = mp.get_context("fork")
             with ProcessPoolExecutor(max_workers=int(n_jobs), mp_context=ctx) as pool:
                 for r in pool.map(_grow_one, idx, chunksize=max(1, len(idx) // (8 * int(n_jobs)))):
                     results.append(r)
-                    if len(results) % step == 0:
-                        log.info("forest: %d of %d trees grown", len(results), len(idx))
+                    _done()
         else:
             for i in idx:
                 results.append(_grow_one(i))
-                if len(results) % step == 0:
-                    log.info("forest: %d of %d trees grown", len(results), len(idx))
+                _done()
     finally:
         _SHARED.clear()
     settings = asdict(st)
@@ -215,7 +267,7 @@ def grow_forest(wide, predictors, time_scores, shape="linear", trees=500, seed=0
 
 
 def _tree_from_dict(d: dict, info: PredictorInfo) -> Tree:
-    tree = Tree(d["nodes"], info, index=d["index"], seed=d["seed"])
+    tree = Tree(d["nodes"], info, index=d["index"], seed=d["seed"], counts=d.get("counts"))
     tree.n_oob = int(d.get("n_oob") or 0)
     tree.oob_drop = None if d.get("oob_drop") is None else np.asarray(d["oob_drop"], dtype=float)
     return tree
@@ -273,11 +325,140 @@ class Forest:
 
     # -- importance
     def importance(self) -> pd.DataFrame:
-        """Permutation importance: DataFrame predictor, importance, se, rank (by importance)."""
+        """Permutation importance: DataFrame predictor, importance, se, rank, tested, candidate, untested.
+
+        ``importance`` and ``rank`` are missing (NaN) for a predictor that was never
+        tested at any node (see :meth:`testing`): "could not be tested" is not
+        "no association". ``untested`` names the reasons it could not be tested.
+        """
         drops = [t.oob_drop for t in self.trees_ if t.oob_drop is not None]
         if not drops:
             raise ModelError("the forest was grown without importance", hint="grow it with importance=True")
-        return importance_table(self.info_.names, np.vstack(drops))
+        return importance_table(self.info_.names, np.vstack(drops), self.testing())
+
+    def testing(self) -> pd.DataFrame:
+        """Per predictor: nodes where it was a candidate, where it was tested, and why not.
+
+        Columns predictor, candidate, tested, node_size, small_category, no_variation
+        (counts of nodes summed over trees; a candidate node is one where the predictor
+        was drawn for the split test or where the whole subsample was too small to test).
+        """
+        from wavetrail.forest.tree import COUNT_KEYS
+
+        tot = {k: np.zeros(len(self.info_.names), dtype=np.int64) for k in COUNT_KEYS}
+        for t in self.trees_:
+            for k in COUNT_KEYS:
+                tot[k] += t.counts[k]
+        return pd.DataFrame({"predictor": self.info_.names, "candidate": tot["candidate"],
+                             "tested": tot["tested"], "node_size": tot["node size"],
+                             "small_category": tot["too few people in a category"],
+                             "no_variation": tot["no variation"]})
+
+    def fit_failures(self) -> pd.DataFrame:
+        """Per tree: people, leaves, and node fits that did not converge (they became leaves)."""
+        return pd.DataFrame({"tree": [t.index for t in self.trees_],
+                             "people": [int(t.nodes[0]["n"]) for t in self.trees_],
+                             "leaves": [t.n_leaves_ for t in self.trees_],
+                             "failed_fits": [t.failed_fits_ for t in self.trees_]},
+                            columns=["tree", "people", "leaves", "failed_fits"])
+
+    def splits_possible(self) -> bool:
+        """Whether any tree split at all."""
+        return any(t.n_leaves_ > 1 for t in self.trees_)
+
+    # -- generalisation
+    def _inbag(self, tree: Tree, n: int) -> np.ndarray:
+        """The tree's subsample, redrawn from its seed exactly as when it was grown."""
+        rng = np.random.default_rng(tree.seed)
+        size = min(n, max(2, int(round(float(self.settings_.get("sample_share", 0.632)) * n))))
+        return np.sort(rng.choice(n, size=size, replace=False))
+
+    def oob_gain(self, wide: pd.DataFrame, predictors: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """Out-of-bag log-likelihood of the forest against the single growth model.
+
+        ``wide`` and ``predictors`` must be the people the forest was grown on, in the
+        same order. For person ``i`` and the trees ``b`` that did not draw them, the
+        forest predicts the density ``mean_b f(y_i | leaf_b(x_i))`` and the single
+        growth model ``mean_b f(y_i | root_b)`` (each tree's root model, fitted to the
+        same subsample). The gain of person ``i`` is the difference of the two log
+        densities; the total is their sum over people with at least one such tree and
+        its standard error ``sqrt(n) * SD`` of the per-person gains.
+
+        Returns ``(summary, per_person)``: summary columns people, trees, loglik_forest,
+        loglik_single, gain, se, gain_per_person, se_per_person; per_person columns
+        id, n_trees, loglik_forest, loglik_single, gain.
+        """
+        from scipy.special import logsumexp
+
+        Y, P, index = _prepare(wide, predictors, self.times_)
+        X = encode_like(self.info_, P)
+        n = len(Y)
+        model = self.model_
+        lf = [[] for _ in range(n)]
+        ls = [[] for _ in range(n)]
+        for t in self.trees_:
+            oob = np.setdiff1d(np.arange(n), self._inbag(t, n))
+            if oob.size == 0:
+                continue
+            leaf = t.apply(X[oob])
+            root = model.loglik(t.theta_[0], Y[oob])
+            leaf_ll = np.empty(oob.size)
+            for node in np.unique(leaf):
+                sel = leaf == node
+                leaf_ll[sel] = model.loglik(t.theta_[node], Y[oob[sel]])
+            for i, a, b in zip(oob, leaf_ll, root):
+                lf[i].append(a)
+                ls[i].append(b)
+        rows = []
+        for i in range(n):
+            if not lf[i]:
+                continue
+            a = float(logsumexp(lf[i]) - np.log(len(lf[i])))
+            b = float(logsumexp(ls[i]) - np.log(len(ls[i])))
+            rows.append({"id": index[i], "n_trees": len(lf[i]), "loglik_forest": a, "loglik_single": b,
+                         "gain": a - b})
+        per = pd.DataFrame(rows, columns=["id", "n_trees", "loglik_forest", "loglik_single", "gain"])
+        m = len(per)
+        g = per["gain"].to_numpy(dtype=float)
+        sd = float(np.std(g, ddof=1)) if m > 1 else float("nan")
+        summary = pd.DataFrame([{
+            "people": m, "trees": len(self.trees_),
+            "loglik_forest": float(per["loglik_forest"].sum()), "loglik_single": float(per["loglik_single"].sum()),
+            "gain": float(g.sum()), "se": sd * np.sqrt(m) if m > 1 else float("nan"),
+            "gain_per_person": float(g.mean()) if m else float("nan"),
+            "se_per_person": sd / np.sqrt(m) if m > 1 else float("nan")}])
+        return summary, per
+
+    # -- what differs
+    def differences(self, predictors=None) -> pd.DataFrame:
+        """Which parts of the growth model differ between the groups a predictor's splits form.
+
+        For every split on the predictor, the shares of its score statistic carried by
+        the growth-factor means, the growth-factor (co)variances and the residual
+        variances (see :func:`wavetrail.forest.tree.split_parts`), weighted by the
+        split's likelihood ratio and averaged. Columns predictor, part, share, splits.
+        """
+        names = list(self.info_.names) if predictors is None else list(predictors)
+        rows = []
+        for name in names:
+            j = self.info_.index(name)
+            acc: dict[str, float] = {}
+            weight, count = 0.0, 0
+            for t in self.trees_:
+                for nid in t.internal:
+                    d = t.nodes[nid]
+                    if d["feature"] != j or not d.get("parts"):
+                        continue
+                    w = max(float(d.get("lr") or 0.0), 0.0)
+                    count += 1
+                    weight += w
+                    for part, share in d["parts"].items():
+                        acc[part] = acc.get(part, 0.0) + w * float(share)
+            for part in PARTS:
+                rows.append({"predictor": name, "part": part,
+                             "share": acc.get(part, 0.0) / weight if weight > 0 else float("nan"),
+                             "splits": count})
+        return pd.DataFrame(rows, columns=["predictor", "part", "share", "splits"])
 
     # -- prediction
     def predict(self, predictors: pd.DataFrame) -> pd.DataFrame:
@@ -317,16 +498,22 @@ class Forest:
         return sorted({float(v) for v in np.quantile(col, np.linspace(0.05, 0.95, 9))})
 
     def dependence(self, predictor: str, values=None, background=None) -> pd.DataFrame:
-        """Expected trajectory at each value: DataFrame value, time, expected."""
+        """Expected trajectory at each value: DataFrame value, time, expected, sd.
+
+        ``sd`` is the spread (standard deviation) of individual trajectories around the
+        expected one at that wave (see :mod:`wavetrail.forest.dependence`).
+        """
         j = self.info_.index(predictor)
         if values is None:
             values = self.default_values(predictor, background)
         codes, labels = self._codes(j, values)
-        E = partial_dependence(self.trees_, self.model_, self._background(background), [(j, codes)])
+        E, SD = partial_dependence(self.trees_, self.model_, self._background(background), [(j, codes)],
+                                   spread=True)
         times = self.times_
-        rows = [{"value": labels[v], "time": float(times[w]), "expected": float(E[v, w])}
+        rows = [{"value": labels[v], "time": float(times[w]), "expected": float(E[v, w]),
+                 "sd": float(SD[v, w])}
                 for v in range(len(labels)) for w in range(len(times))]
-        return pd.DataFrame(rows, columns=["value", "time", "expected"])
+        return pd.DataFrame(rows, columns=["value", "time", "expected", "sd"])
 
     def dependence2(self, predictor_a: str, predictor_b: str, values_a=None, values_b=None,
                     background=None) -> pd.DataFrame:
@@ -379,6 +566,7 @@ class Forest:
             "predictors": self.info_.to_dict(),
             "settings": self.settings_,
             "trees": [{"index": t.index, "seed": t.seed, "n_oob": t.n_oob,
+                       "counts": {k: [int(v) for v in c] for k, c in t.counts.items()},
                        "oob_drop": None if t.oob_drop is None else [float(v) for v in t.oob_drop],
                        "nodes": t.nodes} for t in self.trees_],
         }

@@ -8,7 +8,10 @@ out-of-bag person,
 
     D_bj = (1 / |O_b|) * sum_{i in O_b} [ l_i(leaf_b(x_i)) - l_i(leaf_b(x_i with x_j permuted)) ].
 
-A tree that never splits on ``j`` has ``D_bj = 0`` exactly. The forest
+A tree that never splits on ``j`` has ``D_bj = 0`` exactly. A predictor that
+was never tested at any node (too small nodes, too few people in a category,
+no variation) has a missing importance instead, since 0 would read as "no
+association". The forest
 importance is the mean of ``D_bj`` over trees and its standard error the
 standard deviation over trees divided by the square root of the number of trees.
 
@@ -48,13 +51,37 @@ def oob_drop(tree, model, Y_oob: np.ndarray, X_oob: np.ndarray, rng: np.random.G
     return drop
 
 
-def importance_table(names: list[str], drops: np.ndarray) -> pd.DataFrame:
-    """Tidy importance table (predictor, importance, se, rank) from a (trees, m) drop matrix."""
+def untested_text(row) -> str:
+    """Why a predictor could not be tested at some nodes, e.g. 'node size 40; no variation 3'."""
+    parts = [(label, int(row[key])) for key, label in
+             (("node_size", "node size"), ("small_category", "too few people in a category"),
+              ("no_variation", "no variation")) if int(row[key]) > 0]
+    return "; ".join(f"{label} {count}" for label, count in parts)
+
+
+def importance_table(names: list[str], drops: np.ndarray, testing: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Tidy importance table from a (trees, m) drop matrix.
+
+    Columns predictor, importance, se, rank and, with ``testing`` (see
+    :meth:`wavetrail.forest.Forest.testing`), tested and candidate node counts
+    and ``untested`` (reasons with node counts). A predictor never tested has
+    missing importance, se and rank and is listed after the ranked ones.
+    """
     T = drops.shape[0]
     imp = drops.mean(axis=0) if T else np.zeros(len(names))
     se = drops.std(axis=0, ddof=1) / np.sqrt(T) if T > 1 else np.full(len(names), np.nan)
     df = pd.DataFrame({"predictor": names, "importance": imp, "se": se})
-    order = sorted(range(len(names)), key=lambda j: (-imp[j], names[j]))
+    if testing is not None:
+        tested = testing["tested"].to_numpy()
+        df.loc[tested == 0, ["importance", "se"]] = np.nan
+        df["tested"] = tested
+        df["candidate"] = testing["candidate"].to_numpy()
+        df["untested"] = [untested_text(r) for _, r in testing.iterrows()]
+    vals = df["importance"].to_numpy(dtype=float)
+    order = sorted(range(len(names)), key=lambda j: (np.isnan(vals[j]), -np.nan_to_num(vals[j]), names[j]))
     df = df.iloc[order].reset_index(drop=True)
-    df["rank"] = np.arange(1, len(df) + 1)
+    ranked = ~np.isnan(df["importance"].to_numpy(dtype=float))
+    rank = np.full(len(df), np.nan)
+    rank[ranked] = np.arange(1, ranked.sum() + 1)
+    df.insert(3, "rank", rank)
     return df

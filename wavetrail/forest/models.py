@@ -54,6 +54,11 @@ class GroupStats:
         """People per group, (B,)."""
         return self.n.sum(axis=1)
 
+    def take(self, idx) -> "GroupStats":
+        """The groups ``idx`` only."""
+        idx = np.asarray(idx, dtype=np.int64)
+        return GroupStats(self.masks, self.n[idx], self.sums[idx], self.cross[idx])
+
 
 class PanelTerms:
     """Per-person pattern index and sufficient-statistic terms of a wide outcome table."""
@@ -128,7 +133,7 @@ class NormalNodeModel:
         var = np.full_like(mu, self.variance) if self.variance is not None else theta[:, self.p:]
         return mu, var
 
-    def fit(self, stats: GroupStats, start=None, search=False):
+    def fit(self, stats: GroupStats, start=None, search=False, max_iter=None):
         m = stats.masks.astype(float)  # (P, p)
         nj = stats.n @ m  # (B, p)
         sj = np.einsum("bpj,pj->bj", stats.sums, m)
@@ -168,6 +173,9 @@ class NormalNodeModel:
     def expected(self, theta):
         return self._split(theta)[0][0].copy()
 
+    def implied_variance(self, theta):
+        return self._split(theta)[1][0].copy()
+
 
 class SpecNodeModel:
     """Any :class:`wavetrail.sem.ModelSpec` as a node model, fitted by the SEM engine.
@@ -194,10 +202,11 @@ class SpecNodeModel:
     def _stats(self, stats: GroupStats):
         return self._sem.SuffStats(masks=stats.masks, n=stats.n, sums=stats.sums, cross=stats.cross)
 
-    def fit(self, stats: GroupStats, start=None, search=False):
+    def fit(self, stats: GroupStats, start=None, search=False, max_iter=None):
         # candidate cuts only need their likelihood ratio to about 1e-6
         tol = SEARCH_TOL if search else FIT_TOL
-        res = self._sem.fit_batch(self.spec, self._stats(stats), start=start, tol=tol)
+        extra = {} if max_iter is None else {"max_iter": int(max_iter)}
+        res = self._sem.fit_batch(self.spec, self._stats(stats), start=start, tol=tol, **extra)
         return (np.asarray(res.theta, dtype=float), np.asarray(res.loglik, dtype=float),
                 np.asarray(res.converged, dtype=bool))
 
@@ -210,6 +219,11 @@ class SpecNodeModel:
     def expected(self, theta):
         mu, _ = self.spec.implied(np.asarray(theta).reshape(-1))
         return np.asarray(mu, dtype=float).reshape(-1)
+
+    def implied_variance(self, theta):
+        """Model-implied variance of each observed variable."""
+        _, sigma = self.spec.implied(np.asarray(theta).reshape(-1))
+        return np.diag(np.asarray(sigma, dtype=float)).copy()
 
 
 class GrowthNodeModel(SpecNodeModel):
@@ -228,6 +242,63 @@ class GrowthNodeModel(SpecNodeModel):
     def to_dict(self) -> dict:
         return {"type": self.kind, "time_scores": self.time_scores, "shape": self.shape,
                 "residuals": self.residuals}
+
+
+#: more iterations for the last retry of a node fit
+RETRY_MAX_ITER = 2000
+
+
+def fit_robust(model, stats: GroupStats, start=None):
+    """Node fits with retries; returns ``(theta, loglik, converged)`` like ``model.fit``.
+
+    A group whose fit does not converge from ``start`` (the parent's estimate) is
+    refitted from the model's moment-based starting values, then once more with
+    many more (step-halving, hence damped) scoring iterations from the better of
+    the two attempts. A group that still has not converged is returned with
+    ``converged=False`` and its best estimate; the tree makes it a leaf and counts it.
+    """
+    theta, ll, conv = model.fit(stats, start=start)
+    if conv.all():
+        return theta, ll, conv
+    theta, ll, conv = np.array(theta, dtype=float), np.array(ll, dtype=float), np.array(conv)
+    bad = np.flatnonzero(~conv)
+    th2, ll2, cv2 = model.fit(stats.take(bad))  # moment-based starting values
+    better = cv2 | (np.isfinite(ll2) & ~(ll2 <= ll[bad]))
+    theta[bad[better]], ll[bad[better]], conv[bad[better]] = th2[better], ll2[better], cv2[better]
+    bad = np.flatnonzero(~conv)
+    if len(bad):
+        start3 = theta[bad]
+        th3, ll3, cv3 = model.fit(stats.take(bad), start=np.where(np.isfinite(start3), start3, 0.0),
+                                  max_iter=RETRY_MAX_ITER)
+        better = cv3 | (np.isfinite(ll3) & ~(ll3 <= ll[bad]))
+        theta[bad[better]], ll[bad[better]], conv[bad[better]] = th3[better], ll3[better], cv3[better]
+    return theta, ll, conv
+
+
+def parameter_groups(model) -> list[str]:
+    """Per free parameter of a node model, the part of the model it belongs to.
+
+    ``"means"`` (growth-factor means, or the means of a normal model), ``"growth
+    (co)variances"`` (variances and covariances of the growth factors) and
+    ``"residual variances"``.
+    """
+    spec = getattr(model, "spec", None)
+    if spec is None:
+        return ["means"] * model.p + (["residual variances"] * model.p if model.k > model.p else [])
+    from wavetrail.sem.spec import ALPHA, NU, PSI, THETA
+
+    cm = spec.compile()
+    out = ["growth (co)variances"] * cm.k
+    for e in cm.entries:
+        if e.param < 0:
+            continue
+        if e.matrix in (ALPHA, NU):
+            out[e.param] = "means"
+        elif e.matrix == THETA:
+            out[e.param] = "residual variances"
+        elif e.matrix == PSI:
+            out[e.param] = "growth (co)variances"
+    return out
 
 
 def _n_free(spec) -> int:

@@ -318,3 +318,173 @@ def unordered_test(Sw: np.ndarray, codes: np.ndarray, min_size: int = 1):
     stat = float(np.sum(np.einsum("ck,ck->c", sums, sums) / counts))
     df = k * (len(levels) - 1)
     return stat, float(chi2.sf(stat, df)), df
+
+
+# ---------------------------------------------------------------- Monte Carlo (permutation) p-values
+
+#: Besag-Clifford stopping: a Monte Carlo test stops after this many permuted statistics at
+#: least as extreme as the observed one (the p-value is then ``h / permutations drawn``)
+MC_EXCEED = 10
+#: permutations drawn per batch (vectorised)
+_MC_BATCH = 16
+
+
+class NodeTests:
+    """The split tests of one node for a set of candidate predictors, reusable under permutation.
+
+    Holds everything that depends only on the predictors (sort orders, admissible
+    cut masks, level indicators), so the statistics of permuted scores cost one
+    cumulative sum per batch. ``stats(Sw)`` gives the per-candidate statistics;
+    ``log_p(stat)`` maps them to a comparable scale (the log of a Bonferroni-type
+    asymptotic p-value: ``n_points * P(chi2_k > x)`` for ordered and numeric
+    predictors, ``P(chi2_df > x)`` for unordered ones). Any monotone per-predictor
+    scale gives a valid permutation test; this one only balances the predictors.
+    """
+
+    def __init__(self, Z: np.ndarray, kinds: list[str], min_size: int = 1):
+        self.Z = np.asarray(Z, dtype=float)
+        n, m = self.Z.shape
+        self.n, self.m = n, m
+        self.kinds = list(kinds)
+        self.ord_cols = [j for j in range(m) if kinds[j] != "unordered"]
+        self.un_cols = [j for j in range(m) if kinds[j] == "unordered"]
+        self.testable = np.zeros(m, dtype=bool)
+        self.reason = [""] * m
+        self.npts = np.zeros(m, dtype=int)
+        self.df = np.zeros(m, dtype=int)
+        if self.ord_cols:
+            Zo = self.Z[:, self.ord_cols]
+            order = np.argsort(Zo, axis=0, kind="stable")
+            zs = np.take_along_axis(Zo, order, axis=0)
+            obs = ~np.isnan(zs)
+            n_obs = obs.sum(axis=0)
+            numeric = np.array([kinds[j] == "numeric" for j in self.ord_cols])
+            lo = np.where(numeric, np.maximum(np.ceil(TRIM * n_obs), min_size), min_size).astype(int)
+            hi = np.where(numeric, np.minimum(np.floor((1 - TRIM) * n_obs), n_obs - min_size),
+                          n_obs - min_size).astype(int)
+            ok = _admissible(zs, n_obs, np.maximum(lo, 1), hi)
+            self._obs, self._ok = obs, ok
+            nobs = np.maximum(n_obs, 1).astype(float)
+            t = np.arange(1, n + 1, dtype=float)[:, None] / nobs[None, :]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                self._den = np.where(ok, nobs[None, :] * t * (1.0 - t), np.inf)
+            self._t = t
+            # cumulative sums as one matrix product: L[c, i, person] = 1 when the person is
+            # observed and among the first i + 1 in column c's order
+            self._order_cols = order
+            self._L = None  # built on the first permuted call
+            for c, j in enumerate(self.ord_cols):
+                self.npts[j] = int(ok[:, c].sum())
+                self.testable[j] = self.npts[j] > 0
+                if not self.testable[j]:
+                    self.reason[j] = self._why(zs[:, c][obs[:, c]], min_size)
+        self._un = {}
+        for j in self.un_cols:
+            z = self.Z[:, j]
+            o = ~np.isnan(z)
+            levels, inv, counts = np.unique(z[o].astype(np.int64), return_inverse=True, return_counts=True)
+            if len(levels) < 2:
+                self.reason[j] = "no variation"
+                continue
+            total = int(o.sum())
+            if total < 2 * max(min_size, 1):
+                self.reason[j] = "node size"
+                continue
+            if total - int(counts.max()) < min_size:
+                # every two-group partition leaves fewer than min_size people on one side
+                self.reason[j] = "too few people in a category"
+                continue
+            H = np.zeros((len(levels), n))
+            H[inv, np.flatnonzero(o)] = 1.0
+            self._un[j] = (H, counts.astype(float), o.astype(float), float(o.sum()))
+            self.df[j] = len(levels) - 1
+            self.testable[j] = True
+
+    @staticmethod
+    def _why(values: np.ndarray, min_size: int) -> str:
+        if len(np.unique(values)) < 2:
+            return "no variation"
+        if len(values) < 2 * max(min_size, 1):
+            return "node size"
+        return "too few people in a category"
+
+    def stats(self, Sw: np.ndarray, perms: np.ndarray | None = None) -> np.ndarray:
+        """Statistics (m,) of scores ``Sw``, or (P, m) of ``Sw[perm]`` for each row of ``perms``."""
+        single = perms is None
+        P = np.arange(self.n)[None, :] if single else np.atleast_2d(perms)
+        out = np.zeros((P.shape[0], self.m))
+        B, k = P.shape[0], Sw.shape[1]
+        Sp = Sw[P]  # (B, n, k)
+        flat = Sp.transpose(1, 0, 2).reshape(self.n, B * k)
+        if self.ord_cols:
+            mo = len(self.ord_cols)
+            if self._L is None:
+                rank = np.empty_like(self._order_cols)
+                np.put_along_axis(rank, self._order_cols, np.arange(self.n)[:, None], axis=0)
+                seen = ~np.isnan(self.Z[:, self.ord_cols])
+                tri = np.tri(self.n)
+                self._L = (tri[:, rank.T] * seen.T[None, :, :]).transpose(1, 0, 2).reshape(-1, self.n)
+            C = (self._L @ flat).reshape(mo, self.n, B, k)
+            b = C - self._t.T[:, :, None, None] * C[:, -1:, :, :]
+            num = np.einsum("cibk,cibk->cib", b, b)
+            lm = np.where(self._ok.T[:, :, None], num / self._den.T[:, :, None], -np.inf)
+            st = lm.max(axis=1).T  # (B, mo)
+            out[:, self.ord_cols] = np.where(np.isfinite(st), st, 0.0)
+        for j, (H, counts, o, no) in self._un.items():
+            sums = (H @ flat).reshape(len(counts), B, k)
+            tot = (o @ flat).reshape(B, k)
+            cen = sums - (counts / no)[:, None, None] * tot[None, :, :]
+            out[:, j] = np.einsum("lbk,lbk->b", cen, cen / counts[:, None, None])
+        return out[0] if single else out
+
+    def log_p(self, stat: np.ndarray, k: int) -> np.ndarray:
+        """Comparable scale of each column (smaller = more extreme); +inf where untestable."""
+        stat = np.atleast_2d(stat)
+        if k == 0:
+            return np.full(stat.shape, np.inf)
+        if not hasattr(self, "_dfs") or self._dfs_k != k:
+            un = np.array([kd == "unordered" for kd in self.kinds])
+            self._dfs = np.where(un, k * np.maximum(self.df, 1), k).astype(float)
+            self._shift = np.where(un, 0.0, np.log(np.maximum(self.npts, 1)))
+            self._dfs_k = k
+        with np.errstate(divide="ignore"):
+            out = np.log(np.maximum(chdtrc(self._dfs[None, :], stat), 1e-300)) + self._shift[None, :]
+        return np.where(self.testable[None, :], out, np.inf)
+
+
+def monte_carlo_min_p(tests: NodeTests, Sw: np.ndarray, rng: np.random.Generator, max_perm: int = 199,
+                      exceed: int = MC_EXCEED):
+    """Permutation p-value of the most extreme candidate, adjusted for the number of candidates.
+
+    Under no moderation the predictors are exchangeable with respect to the
+    people's scores, so permuting the scores (all candidates with one permutation)
+    gives the null law of the smallest per-candidate scale ``min_j log_p_j``
+    (Westfall & Young 1993, single-step min-P). Sampling stops early when ``exceed``
+    permuted minima are at least as extreme as the observed one (Besag & Clifford
+    1991): ``p = exceed / drawn``; otherwise ``p = (1 + count) / (1 + max_perm)``.
+
+    Returns ``(best column, observed statistics (m,), adjusted p, permutations drawn)``;
+    ``best`` is -1 when no candidate is testable.
+    """
+    k = Sw.shape[1]
+    stat = tests.stats(Sw)
+    lp = tests.log_p(stat, k)[0]
+    if not np.isfinite(lp).any():
+        return -1, stat, 1.0, 0
+    order = np.lexsort((np.arange(tests.m), -stat, lp))
+    best = int(order[0])
+    obs_min = lp[best]
+    count, drawn = 0, 0
+    while drawn < max_perm:
+        size = min(_MC_BATCH, max_perm - drawn)
+        perms = np.argsort(rng.random((size, tests.n)), axis=1)
+        mins = tests.log_p(tests.stats(Sw, perms), k).min(axis=1)
+        # count in draw order so the stopping point does not depend on the batch size
+        hits = np.cumsum(mins <= obs_min + 1e-12)
+        if count + hits[-1] >= exceed:
+            stop = int(np.searchsorted(hits, exceed - count)) + 1
+            drawn += stop
+            return best, stat, float(exceed / drawn), drawn
+        count += int(hits[-1])
+        drawn += size
+    return best, stat, float((1 + count) / (1 + max_perm)), drawn

@@ -11,9 +11,20 @@ p-value is ``P(chi2_k > LR)`` times the number of candidates (this ignores the
 search over cut points, so it favours predictors with many distinct values;
 see docs/methods/forest.md).
 
+Nodes with fewer than ``mc_below`` people replace the asymptotic p-values and
+the Bonferroni correction by one Monte Carlo (permutation) min-P test over the
+candidates (:func:`wavetrail.forest.tests.monte_carlo_min_p`), drawn from a
+generator seeded by the tree's seed and the node's id.
+
 A node stops (becomes a leaf) when it has fewer than ``2 * min_size`` people,
-reaches ``max_depth``, its fit did not converge, no candidate is significant,
-or no cut leaves ``min_size`` people on both sides.
+reaches ``max_depth``, its fit did not converge even after the retries of
+:func:`wavetrail.forest.models.fit_robust` (the node is then marked ``failed``
+and counted), no candidate is significant, or no cut leaves ``min_size`` people
+on both sides.
+
+Each tree counts, per predictor, the nodes at which it was a candidate and the
+nodes at which it could be tested, with the reason when it could not
+(:data:`REASONS`).
 """
 
 from __future__ import annotations
@@ -27,7 +38,12 @@ from scipy.stats import chi2
 from wavetrail.errors import ModelError
 from wavetrail.forest import tests as _tests
 from wavetrail.forest._encode import UNORDERED, PredictorInfo
+from wavetrail.forest.models import fit_robust, parameter_groups
 from wavetrail.forest.splitter import best_cut, route_left
+
+#: why a candidate predictor could not be tested at a node (keys of Tree.counts)
+REASONS = ("node size", "too few people in a category", "no variation")
+COUNT_KEYS = ("candidate", "tested") + REASONS
 
 
 @dataclass
@@ -42,6 +58,8 @@ class Settings:
     max_cuts: int = 32
     max_levels: int = 6
     refine: int | None = 8
+    mc_below: int = 0  # nodes with fewer people get Monte Carlo (permutation) p-values
+    permutations: int = 199  # most permutations of a Monte Carlo test
 
 
 class Tree:
@@ -55,8 +73,12 @@ class Tree:
     theta_ : (n_nodes, k) node estimates.
     """
 
-    def __init__(self, nodes: list[dict], info: PredictorInfo, index: int = 0, seed: int = 0):
+    def __init__(self, nodes: list[dict], info: PredictorInfo, index: int = 0, seed: int = 0,
+                 counts: dict | None = None):
         self.nodes = nodes
+        m = len(info.names)
+        self.counts = {key: np.asarray((counts or {}).get(key, np.zeros(m)), dtype=np.int64)
+                       for key in COUNT_KEYS}
         self.info = info
         self.index = int(index)
         self.seed = int(seed)
@@ -72,6 +94,11 @@ class Tree:
         self.theta_ = np.array([d["theta"] for d in nd], dtype=float)
         self.internal = np.flatnonzero(self.feature >= 0)
         self.leaves = np.flatnonzero(self.feature < 0)
+
+    @property
+    def failed_fits_(self) -> int:
+        """Nodes whose model did not converge even after the retries (they became leaves)."""
+        return int(sum(1 for d in self.nodes if d.get("failed")))
 
     @property
     def n_leaves_(self) -> int:
@@ -120,44 +147,127 @@ class Tree:
         return node
 
 
-def _node(parent, depth, n, theta, loglik):
-    return {"parent": int(parent), "depth": int(depth), "n": int(n),
-            "theta": [float(v) for v in np.asarray(theta).reshape(-1)], "loglik": float(loglik),
-            "feature": -1, "kind": None, "cut": None, "left_levels": None, "missing_left": None,
-            "left": -1, "right": -1, "statistic": None, "p": None, "lr": None}
+def _node(parent, depth, n, theta, loglik, failed=False):
+    d = {"parent": int(parent), "depth": int(depth), "n": int(n),
+         "theta": [float(v) for v in np.asarray(theta).reshape(-1)], "loglik": float(loglik),
+         "feature": -1, "kind": None, "cut": None, "left_levels": None, "missing_left": None,
+         "left": -1, "right": -1, "statistic": None, "p": None, "lr": None}
+    if failed:
+        d["failed"] = True
+    return d
 
 
-def _select_score(model, terms, X, kinds, rows, theta, cand, st: Settings):
+def _count(counts, cand, nt):
+    """Add one node's candidates to the per-predictor counts (tested, or why not)."""
+    cand = np.asarray(cand)
+    counts["candidate"][cand] += 1
+    for i, j in enumerate(cand):
+        if nt.testable[i]:
+            counts["tested"][j] += 1
+        else:
+            counts[nt.reason[i] or "no variation"][j] += 1
+
+
+def split_parts(model, S: np.ndarray, left: np.ndarray) -> dict:
+    """How much each parameter group contributes to a split, from the node's casewise scores.
+
+    With ``b`` the summed scores of the left child (at the node estimate, where the
+    scores of the node sum to zero) and ``J = S'S / n``, the score statistic of
+    "only the parameters of group G differ between the children" is
+    ``LM_G = b_G' (J_GG)^-1 b_G / (n t (1 - t))`` (``t`` = left share). The shares
+    ``LM_G / sum_G LM_G`` are returned: a split of the means of the growth factors,
+    of their variances and covariances, or of the residual variances.
+    """
+    n = S.shape[0]
+    t = float(np.mean(left))
+    if n == 0 or t <= 0 or t >= 1:
+        return {}
+    b = S[left].sum(axis=0) - t * S.sum(axis=0)
+    J = S.T @ S / n
+    groups = parameter_groups(model)
+    out = {}
+    for g in dict.fromkeys(groups):
+        idx = [i for i, name in enumerate(groups) if name == g]
+        Jg = J[np.ix_(idx, idx)]
+        try:
+            lm = float(b[idx] @ np.linalg.lstsq(Jg, b[idx], rcond=1e-10)[0]) / (n * t * (1 - t))
+        except np.linalg.LinAlgError:
+            lm = float("nan")
+        out[g] = max(lm, 0.0) if np.isfinite(lm) else 0.0
+    total = sum(out.values())
+    return {g: (v / total if total > 0 else 0.0) for g, v in out.items()}
+
+
+def _select_score(model, terms, X, kinds, rows, theta, cand, st: Settings, counts=None, mc_rng=None):
     S = model.scores(theta, terms.Y[rows])
     Sw = _tests.whiten(S)
-    if Sw.shape[1] == 0:
-        return None
+    Zc = X[np.ix_(rows, cand)]
     m = len(cand)
-    stat = np.zeros(m)
-    p = np.ones(m)
-    ordered_idx = [i for i, j in enumerate(cand) if kinds[j] != UNORDERED]
-    if ordered_idx:
-        cols = [cand[i] for i in ordered_idx]
-        s, pv, _ = _tests.ordered_tests(Sw, X[np.ix_(rows, cols)], [kinds[j] for j in cols],
-                                        min_size=st.min_size)
-        stat[ordered_idx], p[ordered_idx] = s, pv
-    for i, j in enumerate(cand):
-        if kinds[j] == UNORDERED:
-            stat[i], p[i], _ = _tests.unordered_test(Sw, X[rows, j], min_size=st.min_size)
-    p_adj = np.minimum(1.0, p * m)
-    # smallest adjusted p; ties broken by the larger statistic, then the lower column
-    best = min(range(m), key=lambda i: (p_adj[i], -stat[i], cand[i]))
-    if p_adj[best] >= st.alpha:
-        return None
+    drawn = 0
+    use_mc = len(rows) < st.mc_below and mc_rng is not None
+    if use_mc:
+        nt = _tests.NodeTests(Zc, [kinds[j] for j in cand], min_size=st.min_size)
+        if counts is not None:
+            _count(counts, cand, nt)
+        if Sw.shape[1] == 0 or not nt.testable.any():
+            return None
+        # small node: one permutation min-P test over the candidates instead of
+        # asymptotic p-values with Bonferroni
+        best, stat, p_best, drawn = _tests.monte_carlo_min_p(nt, Sw, mc_rng, st.permutations)
+        if best < 0 or p_best >= st.alpha:
+            return None
+    else:
+        stat = np.zeros(m)
+        p = np.ones(m)
+        testable = np.zeros(m, dtype=bool)
+        ordered_idx = [i for i, j in enumerate(cand) if kinds[j] != UNORDERED]
+        if ordered_idx:
+            cols = [cand[i] for i in ordered_idx]
+            s, pv, npts = _tests.ordered_tests(Sw, Zc[:, ordered_idx], [kinds[j] for j in cols],
+                                               min_size=st.min_size)
+            stat[ordered_idx], p[ordered_idx] = s, pv
+            testable[ordered_idx] = npts > 0
+        # unordered predictors and the untestable ordered ones: testability and its reason
+        # (the same rules as the Monte Carlo path)
+        check = [i for i in range(m) if kinds[cand[i]] == UNORDERED or not testable[i]]
+        if check:
+            nt = _tests.NodeTests(Zc[:, check], [kinds[cand[i]] for i in check], min_size=st.min_size)
+            for c, i in enumerate(check):
+                if kinds[cand[i]] == UNORDERED:
+                    testable[i] = nt.testable[c]
+        if counts is not None:
+            cand_arr = np.asarray(cand)
+            counts["candidate"][cand_arr] += 1
+            counts["tested"][cand_arr[testable]] += 1
+            if check:
+                for c, i in enumerate(check):
+                    if not testable[i]:
+                        counts[nt.reason[c] or "no variation"][cand[i]] += 1
+        if Sw.shape[1] == 0 or not testable.any():
+            return None
+        for i, j in enumerate(cand):
+            if kinds[j] == UNORDERED and testable[i]:
+                stat[i], p[i], _ = _tests.unordered_test(Sw, Zc[:, i], min_size=st.min_size)
+        p_adj = np.minimum(1.0, p * m)
+        # smallest adjusted p; ties broken by the larger statistic, then the lower column
+        best = min(range(m), key=lambda i: (p_adj[i], -stat[i], cand[i]))
+        p_best = float(p_adj[best])
+        if p_best >= st.alpha:
+            return None
     split = best_cut(model, terms, rows, X[rows, cand[best]], kinds[cand[best]], theta,
                      min_size=st.min_size, max_cuts=st.max_cuts, max_levels=st.max_levels,
                      scores_w=Sw, refine=st.refine, feature=int(cand[best]))
     if split is None:
         return None
-    return split, float(stat[best]), float(p_adj[best])
+    split.scores = S
+    split.permutations = int(drawn)
+    return split, float(stat[best]), float(p_best)
 
 
-def _select_lr(model, terms, X, kinds, rows, theta, cand, st: Settings):
+def _select_lr(model, terms, X, kinds, rows, theta, cand, st: Settings, counts=None, mc_rng=None):
+    if counts is not None:
+        _count(counts, cand, _tests.NodeTests(X[np.ix_(rows, cand)], [kinds[j] for j in cand],
+                                              min_size=st.min_size))
     best = None
     for j in cand:
         s = best_cut(model, terms, rows, X[rows, j], kinds[j], theta, min_size=st.min_size,
@@ -172,48 +282,81 @@ def _select_lr(model, terms, X, kinds, rows, theta, cand, st: Settings):
     return best, float(best.lr), p_adj
 
 
+def _mc_rng(seed: int, nid: int) -> np.random.Generator:
+    """Generator of a node's Monte Carlo test: from the tree's seed and the node id only."""
+    return np.random.default_rng([int(seed) & 0xFFFFFFFFFFFFFFFF, int(nid), 0x6D63])
+
+
 def build_tree(model, terms, X, info: PredictorInfo, rows, rng: np.random.Generator,
-               st: Settings, start=None, index: int = 0, seed: int = 0) -> Tree:
-    """Grow one tree on people ``rows`` (indices into ``terms.Y`` and ``X``)."""
+               st: Settings, start=None, index: int = 0, seed: int = 0, strict: bool = True) -> Tree:
+    """Grow one tree on people ``rows`` (indices into ``terms.Y`` and ``X``).
+
+    With ``strict=False`` (forests) a root model that does not converge even after
+    the retries makes the tree a single failed leaf at ``start`` instead of an error.
+    """
     rows = np.sort(np.asarray(rows, dtype=np.int64))
     kinds = info.kinds
     m_all = X.shape[1]
+    counts = {key: np.zeros(m_all, dtype=np.int64) for key in COUNT_KEYS}
     stats = terms.group_stats(rows, np.zeros(len(rows), dtype=np.int64), 1)
-    theta, ll, conv = model.fit(stats, start=None if start is None else np.asarray(start)[None, :])
+    theta, ll, conv = fit_robust(model, stats, None if start is None else np.asarray(start)[None, :])
     if not conv[0]:
-        raise ModelError(f"the growth model did not converge on the {len(rows)} people of tree {index}",
-                         hint="check the outcome for constant waves or very few people")
+        if strict or start is None:
+            raise ModelError(
+                f"the growth model did not converge on the {len(rows)} people of tree {index}, "
+                "even after retrying from moment-based starting values with more iterations",
+                hint="common causes: a wave with (almost) no variance, very few people observed at some "
+                     "waves, a residual or growth-factor variance near zero (try residuals: equal or a "
+                     "simpler shape), or time scores that do not match the waves")
+        nodes = [_node(-1, 0, len(rows), np.asarray(start, dtype=float), float("nan"), failed=True)]
+        return Tree(nodes, info, index=index, seed=seed, counts=counts)
     nodes = [_node(-1, 0, len(rows), theta[0], ll[0])]
     stack = [(0, rows, True)]
     select = _select_lr if st.split == "likelihood" else _select_score
     while stack:
         nid, nrows, ok = stack.pop()
         d = nodes[nid]
-        if not ok or len(nrows) < 2 * st.min_size or d["depth"] >= st.max_depth:
+        if not ok or d["depth"] >= st.max_depth:
+            continue
+        if len(nrows) < 2 * st.min_size:
+            if nid == 0:  # the whole subsample is too small: nothing could be tested
+                counts["candidate"] += 1
+                counts["node size"] += 1
             continue
         if st.mtry < m_all:
             cand = np.sort(rng.choice(m_all, size=st.mtry, replace=False))
         else:
             cand = np.arange(m_all)
-        found = select(model, terms, X, kinds, nrows, np.asarray(d["theta"]), list(cand), st)
+        found = select(model, terms, X, kinds, nrows, np.asarray(d["theta"]), list(cand), st,
+                       counts=counts, mc_rng=_mc_rng(seed, nid))
         if found is None:
             continue
         sp, stat, p = found
-        th_l, th_r, ll_l, ll_r = sp.theta_left, sp.theta_right, sp.ll_left, sp.ll_right
         # polish the children at the full tolerance (the search used a looser one); this
         # also fits the people with a missing split value into the child they joined
         both = np.concatenate([sp.left_rows, sp.right_rows])
         grp = np.r_[np.zeros(len(sp.left_rows), np.int64), np.ones(len(sp.right_rows), np.int64)]
-        th, lls, cv = model.fit(terms.group_stats(both, grp, 2), start=np.vstack([th_l, th_r]))
-        th_l, th_r, ll_l, ll_r = th[0], th[1], float(lls[0]), float(lls[1])
+        th, lls, cv = fit_robust(model, terms.group_stats(both, grp, 2),
+                                 np.vstack([sp.theta_left, sp.theta_right]))
+        # a child that still does not converge keeps its search estimate and becomes a failed leaf
+        th_l = th[0] if cv[0] else sp.theta_left
+        th_r = th[1] if cv[1] else sp.theta_right
+        ll_l = float(lls[0]) if cv[0] else float(sp.ll_left)
+        ll_r = float(lls[1]) if cv[1] else float(sp.ll_right)
         conv_l, conv_r = bool(cv[0]), bool(cv[1])
         d.update(feature=int(sp.feature), kind=sp.kind, cut=sp.cut, left_levels=sp.left_levels,
                  missing_left=bool(sp.missing_left), statistic=stat, p=p, lr=float(sp.lr))
+        S = getattr(sp, "scores", None)
+        if S is None:
+            S = model.scores(np.asarray(d["theta"]), terms.Y[nrows])
+        d["parts"] = split_parts(model, S, np.isin(nrows, sp.left_rows))
+        if getattr(sp, "permutations", 0):
+            d["permutations"] = int(sp.permutations)
         li = len(nodes)
-        nodes.append(_node(nid, d["depth"] + 1, len(sp.left_rows), th_l, ll_l))
-        nodes.append(_node(nid, d["depth"] + 1, len(sp.right_rows), th_r, ll_r))
+        nodes.append(_node(nid, d["depth"] + 1, len(sp.left_rows), th_l, ll_l, failed=not conv_l))
+        nodes.append(_node(nid, d["depth"] + 1, len(sp.right_rows), th_r, ll_r, failed=not conv_r))
         d["left"], d["right"] = li, li + 1
         # depth first, left child first
         stack.append((li + 1, sp.right_rows, conv_r))
         stack.append((li, sp.left_rows, conv_l))
-    return Tree(nodes, info, index=index, seed=seed)
+    return Tree(nodes, info, index=index, seed=seed, counts=counts)

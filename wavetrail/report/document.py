@@ -35,6 +35,8 @@ SCROLL_ROWS = 15
 TOP_IMPORTANCE = 15
 #: how many top predictors get expected-trajectory panels
 TOP_DEPENDENCE = 3
+#: further panels for top predictors that mainly change the spread of the trajectories
+TOP_SPREAD_EXTRA = 2
 
 EXPLORATORY = (
     "The moderator forest screens many candidate predictors at once. Its results are exploratory "
@@ -219,6 +221,8 @@ class Report:
             facts.append(("Moderator forest", "configured; results absent"))
         elif imp is None:
             facts.append(("Moderator forest", "not configured"))
+        elif len(imp) and pd.to_numeric(imp["importance"], errors="coerce").isna().all():
+            facts.append(("Moderator forest", "no split was possible (no predictor could be tested)"))
         elif _found_nothing(imp):
             facts.append(("Moderator forest", "no predictor was selected for a split"))
         else:
@@ -600,41 +604,165 @@ class Report:
                 "Add a forest section to config/config.yaml to screen candidate predictors of the growth "
                 "parameters.")), "moderators")
         caution = f'<div class="wt-caution" role="note"><p>{esc(EXPLORATORY)}</p></div>'
+        caution += self._forest_overview()
         if imp is None:
             return Fragment(caution + _absent("Variable importance is absent (results/forest/importance.csv)."), "moderators")
+        values = pd.to_numeric(imp["importance"], errors="coerce")
+        if len(imp) and values.isna().all():
+            return Fragment(caution + _p(esc(self._no_test_text(imp))), "moderators")
         if _found_nothing(imp):
             alpha = forest.get("alpha")
             level = f" at \u03b1 = {fmt_unit(alpha, 2)}" if alpha is not None else ""
+            untested = imp.loc[values.isna(), "predictor"].tolist()
             text = (f"The forest of {fmt_count(forest['trees']) + ' ' if forest.get('trees') else ''}trees found no split: "
-                    f"no candidate predictor was associated with differences in the growth trajectories strongly "
-                    f"enough to pass the split test{level}. Every predictor has an importance of zero, so there are "
-                    f"no expected trajectories or interactions to show. This is a result, not an error: in this "
-                    f"sample the growth model fits everyone alike as far as these predictors can tell.")
-            return Fragment(caution + _p(esc(text)), "moderators")
+                    f"no tested predictor was associated with differences in the growth trajectories strongly "
+                    f"enough to pass the split test{level}, so there are no expected trajectories or interactions "
+                    f"to show. In this sample the growth model fits everyone alike as far as the tested "
+                    f"predictors can tell.")
+            if untested:
+                text += (f" {fmt_count(len(untested))} predictor(s) could never be tested and are not evidence of "
+                         f"no association: {', '.join(self.study.label(n) for n in untested[:10])}"
+                         f"{' ...' if len(untested) > 10 else ''} (see the table).")
+            return Fragment(caution + _p(esc(text)) + self._importance(imp, figure=False), "moderators")
         out = [caution, "<h3>Variable importance</h3>", self._importance(imp)]
+        out += ["<h3>What differs between the groups the trees form</h3>", self._differences(imp)]
         out += ["<h3>Expected trajectories of the top predictors</h3>", self._dependence(imp)]
         out += ["<h3>Interactions between predictors</h3>", self._interactions(), self._pair_table()]
         return Fragment("".join(out), "moderators")
 
-    def _importance(self, imp: pd.DataFrame) -> str:
-        from wavetrail.report.plots import importance_figure
-
-        imp = imp.sort_values(["rank", "predictor"], kind="stable").reset_index(drop=True)
-        rows = [[fmt_count(r["rank"]), self.study.label(r["predictor"]), str(r["predictor"]),
-                 fmt_number(r["importance"], 2), fmt_number(r.get("se"), 2)] for _, r in imp.iterrows()]
-        html = self._table(Table("Permutation importance of the candidate predictors",
-                                 ["Rank", "Predictor", "Variable", "Importance", "SE"], rows, numeric=[0, 3, 4],
-                                 key="importance",
-                                 note="Importance: mean drop in out-of-bag log-likelihood of the growth model when "
-                                      "the predictor is permuted, over trees; SE over trees. "
-                                      + self._source("importance")))
-        top = imp.head(TOP_IMPORTANCE)
-        fig, data = importance_figure(top, self.study.labels)
-        html += self._figure("importance", fig, data,
-                             f"Permutation importance of the {len(top)} most important predictors (\u00b11.96 SE).",
-                             "Dot plot of predictor importance with error bars, most important on top.")
+    def _forest_overview(self) -> str:
+        """Does the forest generalise (out-of-bag gain), and how many node fits failed."""
+        ov = self.tables.get("forest_overview")
+        if ov is None or not len(ov):
+            return ""
+        r = ov.iloc[0]
+        gain, se = float(r["gain"]), float(r["se"])
+        lo, hi = gain - 1.96 * se, gain + 1.96 * se
+        if np.isfinite(lo) and lo > 0:
+            verdict = ("The forest predicts the trajectories of people it was not grown on better than the single "
+                       "growth model: the predictors carry information about who develops differently.")
+        elif np.isfinite(hi) and hi < 0:
+            verdict = ("The forest predicts the trajectories of people it was not grown on worse than the single "
+                       "growth model: its splits do not generalise, so read the rankings below with great caution.")
+        else:
+            verdict = ("The forest does not predict the trajectories of people it was not grown on measurably better "
+                       "than the single growth model: the rankings below may reflect noise.")
+        rows = [[fmt_count(r["people"]), fmt_number(r["loglik_forest"], 1), fmt_number(r["loglik_single"], 1),
+                 fmt_number(gain, 1), fmt_number(se, 1), f"{fmt_number(lo, 1)} to {fmt_number(hi, 1)}",
+                 _sig(r["gain_per_person"], 3)]]
+        html = "<h3>Does the forest generalise?</h3>" + _p(esc(verdict))
+        html += self._table(Table("Out-of-bag log-likelihood: forest against the single growth model",
+                                  ["People", "Forest", "Single model", "Gain", "SE", "95% interval", "Gain per person"],
+                                  rows, numeric=[0, 1, 2, 3, 4, 6], key="forest_overview",
+                                  note="Each person is scored only by the trees that did not draw them: the forest's "
+                                       "density (the average over those trees of the density of the person's waves "
+                                       "under their leaf's growth model) against the same trees' root models, fitted "
+                                       "to the same subsamples. Gain = summed difference of the log densities; SE = "
+                                       "\u221an \u00d7 SD of the per-person differences. Near zero: no moderation "
+                                       "the forest can use. " + self._source("forest_overview")))
+        facts = [f"minimum node size {fmt_count(r['min_size'])}",
+                 f"Monte Carlo split tests below {fmt_count(r['mc_below'])} people",
+                 f"{fmt_count(r['trees_split'])} of {fmt_count(r['trees'])} trees split at least once"]
+        failed = int(r["failed_fits"])
+        if failed:
+            facts.append(f"{fmt_count(failed)} node model(s) in {fmt_count(r['trees_with_failed_fits'])} tree(s) did "
+                         "not converge even after retries and were kept as leaves (results/forest/trees.csv)")
+        else:
+            facts.append("every node model converged")
+        html += _p(esc("Forest: " + "; ".join(facts) + "."))
         return html
 
+    def _no_test_text(self, imp: pd.DataFrame) -> str:
+        forest = self.settings.get("forest") or {}
+        ov = self.tables.get("forest_overview")
+        size = None
+        if ov is not None and len(ov):
+            size = int(ov.iloc[0]["min_size"])
+        reasons = {}
+        for col, label in (("untested", None),):
+            for text in imp.get(col, pd.Series(dtype=str)).fillna(""):
+                for part in str(text).split(";"):
+                    part = part.strip()
+                    if part:
+                        why = part.rsplit(" ", 1)[0]
+                        reasons[why] = reasons.get(why, 0) + 1
+        why = ", ".join(sorted(reasons)) or "node size"
+        setting = (f"forest.min_size (now {size})" if size is not None else "forest.min_size")
+        return (f"No split was possible: none of the {fmt_count(len(imp))} candidate predictors could be tested at "
+                f"any node (reasons: {why}). This is not evidence of no association. Lower {setting} or raise "
+                f"forest.sample_share so that a tree's subsample can hold two children of the minimum size; for "
+                f"\u201ctoo few people in a category\u201d, merge rare levels in the codebook."
+                + (f" The forest had {fmt_count(forest['trees'])} trees." if forest.get("trees") else ""))
+
+    def _importance(self, imp: pd.DataFrame, figure: bool = True) -> str:
+        from wavetrail.report.plots import importance_figure
+
+        imp = imp.sort_values(["rank", "predictor"], kind="stable", na_position="last").reset_index(drop=True)
+        rows = []
+        for _, r in imp.iterrows():
+            tested = r.get("tested")
+            cand = r.get("candidate")
+            nodes = (f"{fmt_count(tested)} of {fmt_count(cand)}" if tested is not None and not pd.isna(tested)
+                     else MISSING)
+            untested = r.get("untested")
+            untested = "" if untested is None or pd.isna(untested) else str(untested)
+            if pd.isna(r["importance"]):
+                note = "never tested: " + untested if untested else "never tested"
+            else:
+                note = ("could not be tested at some nodes: " + untested) if untested else ""
+            rows.append([fmt_count(r["rank"]) if not pd.isna(r["rank"]) else MISSING,
+                         self.study.label(r["predictor"]), str(r["predictor"]),
+                         _sig(r["importance"]), _sig(r.get("se")), nodes, note])
+        html = self._table(Table("Permutation importance of the candidate predictors",
+                                 ["Rank", "Predictor", "Variable", "Importance", "SE", "Tested at nodes", "Note"],
+                                 rows, numeric=[0, 3, 4],
+                                 key="importance",
+                                 note="Importance: mean drop in out-of-bag log-likelihood of the growth model when "
+                                      "the predictor is permuted, over trees; SE over trees. Tested at nodes: the "
+                                      "nodes where the predictor could be tested, of those where it was a candidate; "
+                                      "a predictor never tested has no importance (\u2014), which is not the same "
+                                      "as no association. Reasons: node size (the node or subsample is smaller than "
+                                      "twice the minimum node size), too few people in a category, no variation. "
+                                      + self._source("importance")))
+        top = imp.dropna(subset=["importance"]).head(TOP_IMPORTANCE)
+        if figure and len(top):
+            fig, data = importance_figure(top, self.study.labels)
+            html += self._figure("importance", fig, data,
+                                 f"Permutation importance of the {len(top)} most important predictors (\u00b11.96 SE).",
+                                 "Dot plot of predictor importance with error bars, most important on top.")
+        return html
+
+    def _differences(self, imp: pd.DataFrame) -> str:
+        df = self.tables.get("differences")
+        if df is None or not len(df):
+            return _absent("The parts of the growth model that differ are absent (results/forest/differences.csv).")
+        ranked = imp.dropna(subset=["importance"]).sort_values(["rank", "predictor"], kind="stable")["predictor"]
+        order = [p for p in ranked if p in set(df["predictor"])]
+        rows, notes = [], []
+        for name in order:
+            part = df[df["predictor"] == name].set_index("part")
+            shares = {k: float(part.loc[k, "share"]) if k in part.index else np.nan
+                      for k in ("means", "growth (co)variances", "residual variances")}
+            splits = int(part["splits"].iloc[0]) if len(part) else 0
+            main = _main_part(shares, splits)
+            rows.append([self.study.label(name), fmt_count(splits)] +
+                        [fmt_percent(shares[k]) if not np.isnan(shares[k]) else MISSING for k in shares] +
+                        [_PART_TEXT.get(main, main) if splits else MISSING])
+            if main in ("growth (co)variances", "residual variances"):
+                notes.append(self.study.label(name))
+        html = self._table(Table("Which parts of the growth model differ between the groups the trees form",
+                                 ["Predictor", "Splits", "Means of growth factors", "Growth-factor (co)variances",
+                                  "Residual variances", "Mainly"], rows, numeric=[1, 2, 3, 4], key="differences",
+                                 note="Share of each split's score statistic carried by each part of the growth model "
+                                      "(the statistic for \u201conly this part differs\u201d, normalised over the "
+                                      "three parts), averaged over the predictor's splits with the likelihood ratio "
+                                      "as weight. Mainly: the part with at least half of the share, over at least "
+                                      f"{MIN_SPLITS_PART} splits. " + self._source("differences")))
+        if notes:
+            html += _p(esc("Mainly a difference in spread rather than in average development: "
+                           + ", ".join(notes) + ". Their expected trajectories can look alike; the bands "
+                           "(\u00b11 SD of individual trajectories) in the figure below show the difference."))
+        return html
     def _dependence(self, imp: pd.DataFrame) -> str:
         dep = self.tables.get("dependence")
         if dep is None or not len(dep):
@@ -642,7 +770,10 @@ class Report:
         from wavetrail.report.plots import dependence_figure
 
         ranked = imp.sort_values(["rank", "predictor"], kind="stable")["predictor"].tolist()
-        top = [p for p in ranked if p in set(dep["predictor"])][:TOP_DEPENDENCE]
+        available = [p for p in ranked if p in set(dep["predictor"])]
+        top = available[:TOP_DEPENDENCE]
+        # a predictor that mainly changes the spread is shown too, since its bands are the point
+        top += [p for p in available[TOP_DEPENDENCE:] if p in self._spread_predictors()][:TOP_SPREAD_EXTRA]
         if not top:
             return _absent("None of the top predictors has expected trajectories in dependence.csv.")
         times = _sorted_waves(dep["time"])
@@ -653,7 +784,7 @@ class Report:
                                       unit=self.study.time_unit, ylabel=ylabel)
         html = self._figure("dependence", fig, data,
                             "Expected trajectories (partial dependence) at low, average and high values of the top "
-                            "predictors, or at each category.",
+                            "predictors, or at each category; bands: \u00b11 SD of individual trajectories.",
                             "Line charts of expected trajectories, one panel per predictor, one line per predictor value.")
         first, last = times[0], times[-1]
         rows = []
@@ -664,13 +795,36 @@ class Report:
                 b = curve.loc[curve["time"] == last, "expected"]
                 a = float(a.iloc[0]) if len(a) else np.nan
                 b = float(b.iloc[0]) if len(b) else np.nan
-                rows.append([self.study.label(name), str(level), _value_text(curve["value"].iloc[0]),
-                             fmt_number(a), fmt_number(b), fmt_number(b - a)])
+                sd = curve.loc[curve["time"] == last, "sd"] if "sd" in curve else pd.Series(dtype=float)
+                sd = float(sd.iloc[0]) if len(sd) else np.nan
+                rows.append([self.study.label(name), self._dep_label(name, curve, level),
+                             _value_text(curve["value"].iloc[0]),
+                             fmt_number(a), fmt_number(b), fmt_number(b - a), fmt_number(sd)])
         html += self._table(Table("Expected outcome at the first and last wave by predictor value",
                                   ["Predictor", "Level", "Value", f"Wave {self._wave_at(first)}",
-                                   f"Wave {self._wave_at(last)}", "Change"], rows, numeric=[2, 3, 4, 5],
-                                  key="dependence", note=self._source("dependence")))
+                                   f"Wave {self._wave_at(last)}", "Change", f"SD at wave {self._wave_at(last)}"],
+                                  rows, numeric=[2, 3, 4, 5, 6],
+                                  key="dependence",
+                                  note="SD: spread of individual trajectories around the expected one (growth-factor "
+                                       "and residual variances of the leaves, mixed over trees and people). "
+                                       + self._source("dependence")))
         return html
+
+    def _spread_predictors(self) -> set:
+        df = self.tables.get("differences")
+        if df is None or not len(df):
+            return set()
+        out = set()
+        for name, part in df.groupby("predictor", sort=False):
+            shares = dict(zip(part["part"], pd.to_numeric(part["share"], errors="coerce")))
+            if _main_part(shares, int(part["splits"].iloc[0])) in ("growth (co)variances", "residual variances"):
+                out.add(name)
+        return out
+
+    def _dep_label(self, name, curve, level) -> str:
+        if "label" in curve and not pd.isna(curve["label"].iloc[0]):
+            return str(curve["label"].iloc[0])
+        return self.study.level_label(name, level)
 
     def _wave_at(self, t) -> str:
         for w, s in zip(self.study.waves, self.study.time_scores):
@@ -712,8 +866,11 @@ class Report:
             b = curve.loc[curve["time"] == last, "expected"]
             a = float(a.iloc[0]) if len(a) else np.nan
             b = float(b.iloc[0]) if len(b) else np.nan
-            rows.append([self.study.label(pa), self._level_text(pa, la, curve["value_a"].iloc[0]),
-                         self.study.label(pb), self._level_text(pb, lb, curve["value_b"].iloc[0]),
+            text_a = (str(curve["label_a"].iloc[0]) if "label_a" in curve and str(la) == str(curve["value_a"].iloc[0])
+                      else self._level_text(pa, la, curve["value_a"].iloc[0]))
+            text_b = (str(curve["label_b"].iloc[0]) if "label_b" in curve and str(lb) == str(curve["value_b"].iloc[0])
+                      else self._level_text(pb, lb, curve["value_b"].iloc[0]))
+            rows.append([self.study.label(pa), text_a, self.study.label(pb), text_b,
                          fmt_number(a), fmt_number(b), fmt_number(b - a)])
         return self._table(Table("Expected outcome for a pair of predictors set together",
                                  ["Predictor A", "Level A", "Predictor B", "Level B", f"Wave {self._wave_at(first)}",
@@ -960,6 +1117,37 @@ def _without_ids(message, rows) -> str:
             if any(ch.isdigit() for ch in token):
                 text = re.sub(rf"(?<![A-Za-z0-9_.-]){re.escape(token)}(?![A-Za-z0-9_-])", "\u2026", text)
     return text
+
+
+_PART_TEXT = {"means": "average development", "growth (co)variances": "spread of development",
+              "residual variances": "wave-to-wave variability"}
+#: fewest splits on a predictor before the report names the part of the model it mainly changes
+MIN_SPLITS_PART = 3
+
+
+def _main_part(shares: dict, splits: int) -> str:
+    """The part with at least half of the share ('mixed' otherwise; 'too few splits' below MIN_SPLITS_PART)."""
+    if splits < MIN_SPLITS_PART:
+        return "too few splits"
+    best = max(shares, key=lambda k: -1.0 if np.isnan(shares[k]) else shares[k])
+    return best if shares[best] >= 0.5 else "mixed"
+
+
+def _sig(x, digits: int = 3) -> str:
+    """A number with ``digits`` significant digits (small importances stay readable), or \u2014."""
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return MISSING
+    if not np.isfinite(x):
+        return MISSING
+    if x == 0:
+        return "0"
+    text = f"{x:.{digits}g}"
+    if "e" in text:
+        mant, exp = text.split("e")
+        text = f"{mant} \u00d7 10^{int(exp)}"
+    return text.replace("-", "\u2212")
 
 
 def _value_text(value) -> str:

@@ -31,6 +31,9 @@ TABLE_PATHS: dict[str, str] = {
     "dependence": "results/forest/dependence.csv",
     "interactions": "results/forest/interactions.csv",
     "dependence_pairs": "results/forest/dependence_pairs.csv",
+    "forest_overview": "results/forest/overview.csv",
+    "forest_trees": "results/forest/trees.csv",
+    "differences": "results/forest/differences.csv",
 }
 #: other named inputs of the report step
 OTHER_PATHS: dict[str, str] = {"lock": "environment/requirements.lock"}

@@ -99,9 +99,17 @@ def dependence_figure(dependence: pd.DataFrame, predictors: list[str], labels: d
                 curve = curve.sort_values("time")
                 value = curve["value"].iloc[0]
                 text = f"{level} ({_short(value)})" if str(level) != str(value) else str(level)
-                ax.plot(curve["time"], curve["expected"], color=PALETTE[k % len(PALETTE)],
+                if str(level) == str(value) and "label" in curve and not pd.isna(curve["label"].iloc[0]):
+                    text = str(curve["label"].iloc[0])  # the codebook's label of a category level
+                colour = PALETTE[k % len(PALETTE)]
+                ax.plot(curve["time"], curve["expected"], color=colour,
                         linestyle=LINESTYLES[k % len(LINESTYLES)], marker=MARKERS[k % len(MARKERS)],
                         markersize=4, label=text)
+                if "sd" in curve:
+                    # spread of individual trajectories (expected +- 1 SD): a moderator of the
+                    # variances shows as bands of different width around similar lines
+                    ax.fill_between(curve["time"], curve["expected"] - curve["sd"], curve["expected"] + curve["sd"],
+                                    color=colour, alpha=0.12, linewidth=0)
             ax.set_title(labels.get(name, name), fontsize=9)
             _wave_axis(ax, waves, times, unit)
             ax.legend(frameon=False, fontsize=7)

@@ -5,7 +5,13 @@ for ``K = forest.shards``; tree ``i`` is seeded by
 ``derive_seed(config["seed"], "forest", i)``, so the merged forest is the same
 for any ``K``. ``merge_forest`` joins the shards into ``forest.json``;
 ``summarise_forest`` writes the importance, expected-trajectory and interaction
-tables, the two-way expected trajectories of a pair and the two figures.
+tables, the two-way expected trajectories of a pair, the overview (out-of-bag
+gain over the single growth model, failed node fits, settings in force), the
+per-tree table, the model parts that differ, and the two figures. Category
+levels appear with their codebook labels (column ``label``).
+
+Progress of a shard goes to the ``wavetrail.progress`` logger (the runner shows
+it on the console); it never influences a result.
 """
 
 from __future__ import annotations
@@ -20,6 +26,7 @@ from wavetrail._io import atomic_write_text, write_table
 from wavetrail.errors import ConfigError, DataError
 
 log = logging.getLogger("wavetrail")
+progress_log = logging.getLogger("wavetrail.progress")
 
 #: predictors drawn in the trajectory figure (at most)
 FIGURE_PANELS = 6
@@ -83,6 +90,7 @@ def _options(job, cfg) -> dict:
         "mtry": cfg.get("mtry"),
         "sample_share": float(cfg.get("sample_share", 0.632)),
         "split": "likelihood" if method in ("likelihood", "lr") else "score",
+        "mc_below": cfg.get("mc_below"),
     }
 
 
@@ -104,9 +112,16 @@ def grow_forest_shard(job) -> None:
     wide, predictors, times = _inputs(job, cfg)
     log.info("forest shard %d of %d: %d trees on %d people, %d predictors",
              shard, K, len(indices), len(wide), predictors.shape[1])
+    def progress(done, total):
+        progress_log.info("forest shard %d of %d: %d of %d trees grown", shard, K, done, total)
+
     forest = grow_forest(wide, predictors, times, trees=trees, seed=int(job.config.get("seed", 0)),
                          n_jobs=int(job.params.get("n_jobs", 1) or 1), tree_indices=indices,
-                         **_options(job, cfg))
+                         progress=progress, **_options(job, cfg))
+    failed = sum(t.failed_fits_ for t in forest.trees_)
+    if failed:
+        progress_log.info("forest shard %d of %d: %d node fits did not converge and became leaves",
+                          shard, K, failed)
     atomic_write_text(job.path(job.output["shard"]), forest.to_json() + "\n")
 
 
@@ -150,29 +165,94 @@ def _levels(forest, predictors: pd.DataFrame, name: str):
     return ["low", "average", "high"], [mean - sd, mean, mean + sd]
 
 
+def _level_labels(job, names) -> dict[str, dict[str, str]]:
+    """Codebook labels of category levels, predictor -> {code: label}."""
+    from wavetrail.codebook import load_codebook
+
+    try:
+        codebook = load_codebook(job.path(job.input["codebook"]))
+    except KeyError:
+        return {}
+    out = {}
+    for name in names:
+        var = codebook.variables.get(name)
+        levels = getattr(var, "levels", None) if var is not None else None
+        if levels:
+            out[name] = {_code_text(k): str(v) for k, v in dict(levels).items()}
+    return out
+
+
+def _code_text(code) -> str:
+    """A level code as the forest writes it ('1', not '1.0')."""
+    try:
+        f = float(code)
+        return str(int(f)) if f.is_integer() else str(code)
+    except (TypeError, ValueError):
+        return str(code)
+
+
+def _label_of(labels: dict, name: str, level) -> str:
+    return labels.get(name, {}).get(_code_text(level), str(level))
+
+
+OVERVIEW_COLUMNS = ["people", "trees", "min_size", "mc_below", "trees_split", "failed_fits",
+                    "trees_with_failed_fits", "loglik_forest", "loglik_single", "gain", "se",
+                    "gain_per_person", "se_per_person"]
+
+
+def overview_table(forest, wide, predictors) -> pd.DataFrame:
+    """One row: sample, settings in force, splits, failed node fits and the out-of-bag gain."""
+    per_tree = forest.fit_failures()
+    gain, _ = forest.oob_gain(wide, predictors)
+    row = {"people": len(wide), "trees": len(forest.trees_),
+           "min_size": int(forest.settings_.get("min_size", 0)),
+           "mc_below": int(forest.settings_.get("mc_below", 0)),
+           "trees_split": int((per_tree["leaves"] > 1).sum()),
+           "failed_fits": int(per_tree["failed_fits"].sum()),
+           "trees_with_failed_fits": int((per_tree["failed_fits"] > 0).sum())}
+    for key in ("loglik_forest", "loglik_single", "gain", "se", "gain_per_person", "se_per_person"):
+        row[key] = float(gain[key].iloc[0])
+    return pd.DataFrame([row], columns=OVERVIEW_COLUMNS)
+
+
 def summarise_forest(job) -> None:
-    """Write importance.csv, dependence.csv, interactions.csv and the two figures."""
+    """Write importance.csv, dependence.csv, interactions.csv, the overview, per-tree and
+    model-part tables and the two figures."""
     cfg = _settings(job)
     forest = _read_forest(job.path(job.input["forest"]))
-    _, predictors, _ = _inputs(job, cfg)
+    wide, predictors, _ = _inputs(job, cfg)
     forest.attach_background(predictors)
+    labels = _level_labels(job, forest.info_.names)
     top = int(cfg.get("top", 10))
     imp = forest.importance()
     write_table(job.path(job.output["importance"]), imp)
-    names = list(imp["predictor"][:top])
+    if imp["importance"].isna().all():
+        progress_log.info("forest: no split was possible, no predictor could be tested at any node (node size "
+                          "%s); lower forest.min_size or raise forest.sample_share",
+                          forest.settings_.get("min_size"))
+    if "overview" in job.output.keys():
+        write_table(job.path(job.output["overview"]), overview_table(forest, wide, predictors))
+    if "trees" in job.output.keys():
+        write_table(job.path(job.output["trees"]), forest.fit_failures())
+    ranked = imp.dropna(subset=["importance"])
+    ranked = ranked[ranked["importance"] > 0]
+    names = list(ranked["predictor"][:top])
+    if "differences" in job.output.keys():
+        write_table(job.path(job.output["differences"]), forest.differences(names))
     parts = []
     for i, name in enumerate(names):
-        labels, values = _levels(forest, predictors, name)
+        levels, values = _levels(forest, predictors, name)
         if not values:
             continue
         dep = forest.dependence(name, values)
-        dep.insert(0, "level", np.repeat(labels, len(forest.times_)))
+        dep.insert(0, "label", np.repeat([_label_of(labels, name, v) for v in levels], len(forest.times_)))
+        dep.insert(0, "level", np.repeat(levels, len(forest.times_)))
         dep.insert(0, "predictor", name)
         parts.append(dep)
         log.info("forest: expected trajectories %d of %d", i + 1, len(names))
     dep = (pd.concat(parts, ignore_index=True) if parts
-           else pd.DataFrame(columns=["predictor", "level", "value", "time", "expected"]))
-    write_table(job.path(job.output["dependence"]), dep)
+           else pd.DataFrame(columns=DEPENDENCE_COLUMNS))
+    write_table(job.path(job.output["dependence"]), dep[DEPENDENCE_COLUMNS])
     chosen = [tuple(p) for p in (cfg.get("interaction_pairs") or [])]
     _check_pairs(chosen, forest.info_.names)
     probed = [(names[i], names[k]) for i in range(len(names)) for k in range(i + 1, len(names))]
@@ -180,11 +260,16 @@ def summarise_forest(job) -> None:
     inter = forest.interactions(pairs=probed)
     write_table(job.path(job.output["interactions"]), inter)
     if "dependence_pairs" in job.output.keys():
-        write_table(job.path(job.output["dependence_pairs"]), pair_table(forest, predictors, chosen, inter))
-    _figures(job, imp.head(max(top, 10)), dep, names[:FIGURE_PANELS])
+        write_table(job.path(job.output["dependence_pairs"]),
+                    pair_table(forest, predictors, chosen, inter, labels))
+    _figures(job, imp.dropna(subset=["importance"]).head(max(top, 10)), dep, names[:FIGURE_PANELS])
 
 
-PAIR_COLUMNS = ["predictor_a", "level_a", "value_a", "predictor_b", "level_b", "value_b", "time", "expected"]
+DEPENDENCE_COLUMNS = ["predictor", "level", "label", "value", "time", "expected", "sd"]
+
+
+PAIR_COLUMNS = ["predictor_a", "level_a", "label_a", "value_a", "predictor_b", "level_b", "label_b", "value_b",
+                "time", "expected"]
 
 
 def _check_pairs(pairs, names) -> None:
@@ -198,7 +283,7 @@ def _check_pairs(pairs, names) -> None:
                               hint="name two different predictors")
 
 
-def pair_table(forest, predictors: pd.DataFrame, chosen, inter: pd.DataFrame) -> pd.DataFrame:
+def pair_table(forest, predictors: pd.DataFrame, chosen, inter: pd.DataFrame, labels=None) -> pd.DataFrame:
     """Two-way expected trajectories of the chosen pairs, or of the strongest probed pair.
 
     Numeric predictors at low / average / high (mean - 1 SD, mean, mean + 1 SD),
@@ -215,8 +300,11 @@ def pair_table(forest, predictors: pd.DataFrame, chosen, inter: pd.DataFrame) ->
             continue
         two = forest.dependence2(a, b, values_a, values_b)
         nt = len(forest.times_)
+        lab = labels or {}
+        two.insert(0, "label_b", np.tile(np.repeat([_label_of(lab, b, v) for v in labels_b], nt), len(labels_a)))
         two.insert(0, "level_b", np.tile(np.repeat(labels_b, nt), len(labels_a)))
         two.insert(0, "predictor_b", b)
+        two.insert(0, "label_a", np.repeat([_label_of(lab, a, v) for v in labels_a], len(labels_b) * nt))
         two.insert(0, "level_a", np.repeat(labels_a, len(labels_b) * nt))
         two.insert(0, "predictor_a", a)
         parts.append(two[PAIR_COLUMNS])
@@ -233,7 +321,7 @@ def _figures(job, imp: pd.DataFrame, dep: pd.DataFrame, names: list[str]) -> Non
         y = np.arange(len(imp))[::-1]
         se = imp["se"].fillna(0.0).to_numpy()
         ax.barh(y, imp["importance"], xerr=se, color=PALETTE[0], ecolor="#000000", capsize=2)
-        ax.set_yticks(y, imp["predictor"])
+        ax.set_yticks(y, imp["predictor"].tolist())
         ax.set_xlabel("mean drop in out-of-bag log-likelihood per person (error bars: 1 SE)")
         ax.axvline(0.0, color="#000000", linewidth=0.8)
         save_figure(fig, Path(job.path(job.output["importance_figure"])).with_suffix(""), imp)
@@ -248,9 +336,14 @@ def _figures(job, imp: pd.DataFrame, dep: pd.DataFrame, names: list[str]) -> Non
         for a, name in zip(axes.ravel(), names):
             sub = dep[dep["predictor"] == name]
             for i, (level, g) in enumerate(sub.groupby("level", sort=False)):
-                a.plot(g["time"], g["expected"], color=PALETTE[i % len(PALETTE)],
+                colour = PALETTE[i % len(PALETTE)]
+                a.plot(g["time"], g["expected"], color=colour,
                        linestyle=LINESTYLES[i % len(LINESTYLES)], marker=MARKERS[i % len(MARKERS)],
-                       label=str(level))
+                       label=str(g["label"].iloc[0]) if "label" in g else str(level))
+                if "sd" in g:
+                    # spread of individual trajectories: expected +- 1 SD
+                    a.fill_between(g["time"], g["expected"] - g["sd"], g["expected"] + g["sd"],
+                                   color=colour, alpha=0.12, linewidth=0)
             a.set_title(name)
             a.set_xlabel("time")
             a.legend(fontsize=7, frameon=False)

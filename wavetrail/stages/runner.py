@@ -112,6 +112,13 @@ def run_from_snakemake(smk) -> None:
         handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
         logging.getLogger("wavetrail").addHandler(handler)
         logging.getLogger("wavetrail").setLevel(logging.INFO)
+    # progress of long steps (e.g. trees grown per forest shard) on the console; Snakemake
+    # passes a job's stderr through. Logged lines never enter a result file.
+    console = logging.StreamHandler(sys.stderr)
+    console.setFormatter(logging.Formatter("%(message)s"))
+    progress = logging.getLogger("wavetrail.progress")
+    progress.addHandler(console)
+    progress.setLevel(logging.INFO)
     try:
         run_job(job)
     except WavetrailError as err:
@@ -123,6 +130,7 @@ def run_from_snakemake(smk) -> None:
         logging.getLogger("wavetrail").error("unexpected error\n%s", traceback.format_exc())
         raise
     finally:
+        progress.removeHandler(console)
         if handler is not None:
             logging.getLogger("wavetrail").removeHandler(handler)
             handler.close()
