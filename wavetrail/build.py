@@ -37,6 +37,8 @@ _ERROR_RULE = re.compile(r"Error in rule (\w+):")
 _LOG_LINE = re.compile(r"^\s*log:\s*(\S+)")
 _TOTAL = re.compile(r"^total\s+(\d+)\s*$")
 _FINISHED = re.compile(r"Finished jobid: \d+ \(Rule: (\w+)\)")
+#: a forest shard's own progress line (written to the job's stderr by the forest step)
+_TREES = re.compile(r"^forest shard (\d+) of (\d+): (\d+) of (\d+) trees grown\s*$")
 _STEP_FAILED = re.compile(r"wavetrail step (\w+) failed: (.*)")
 #: Snakemake options that mean "list the jobs, run nothing"
 _DRY_RUN = ("-n", "--dry-run", "--dryrun")
@@ -287,6 +289,7 @@ def _run(root: Path, cmd: list[str], env: dict, log_path: Path, progress, guard)
                                 pass_fds=guard.fds)  # Snakemake holds the guard as long as it lives
         assert proc.stdout is not None
         finished_rule = None
+        shown: dict[str, int] = {}
         for line in proc.stdout:
             log.write(line)
             output.append(line.rstrip("\n"))
@@ -304,6 +307,16 @@ def _run(root: Path, cmd: list[str], env: dict, log_path: Path, progress, guard)
             m = _FINISHED.search(line)
             if m:
                 finished_rule = m.group(1)
+                continue
+            m = _TREES.match(line)
+            if m:
+                # forwarded at each quarter of a shard's trees, so the console shows a
+                # long forest moving without a line per tree
+                shard, done, trees = m.group(1), int(m.group(3)), int(m.group(4))
+                quarter = 4 * done // max(trees, 1)
+                if progress and quarter > shown.get(shard, 0):
+                    shown[shard] = quarter
+                    progress(f"      forest shard {shard} of {m.group(2)}: {done} of {trees} trees grown")
                 continue
             m = _PROGRESS.search(line)
             if m:
