@@ -148,12 +148,12 @@ def _tricky_file(path, n=800, seed=2, quote_header=False):
     return path
 
 
-@pytest.mark.parametrize("quote_header", [False, True])
-def test_columnar_reader_equals_line_by_line(tmp_path, monkeypatch, quote_header):
+@pytest.mark.parametrize("quote_header,scan_bytes", [(False, 32 << 20), (True, 32 << 20), (False, 97), (True, 5)])
+def test_columnar_reader_equals_line_by_line(tmp_path, monkeypatch, quote_header, scan_bytes):
     path = _tricky_file(tmp_path / "tricky.csv", quote_header=quote_header)
     monkeypatch.setattr(readers, "FAST_BYTES", 0)
-    raw = path.read_bytes()
-    fast = readers._read_delimited_columnar(path, raw, raw.decode("utf-8-sig"), None)
+    monkeypatch.setattr(readers, "_SCAN_BYTES", scan_bytes)  # pieces end mid-file, even mid-line
+    fast = readers._read_delimited_columnar(path, None)
     assert fast is not None  # the file is one the columnar reader takes
     monkeypatch.setattr(readers, "FAST_BYTES", 1 << 40)
     slow = readers.read_table(path)
@@ -182,11 +182,39 @@ def test_columnar_reader_hands_odd_files_to_the_line_parser(tmp_path, monkeypatc
     else:
         lines[0] = "pid,wave,x,y,x,b,e"
     path.write_bytes("\r\n".join(lines).encode())
-    raw = path.read_bytes()
-    assert readers._read_delimited_columnar(path, raw, raw.decode(), None) is None
+    assert readers._read_delimited_columnar(path, None) is None
+    monkeypatch.setattr(readers, "_SCAN_BYTES", 64)
+    assert readers._read_delimited_columnar(path, None) is None
     monkeypatch.setattr(readers, "FAST_BYTES", 0)
     if damage in ("short", "long", "dup_header", "long_then_short"):
         with pytest.raises(readers.DataError, match="bad.csv:(301|1|2):"):
             readers.read_table(path)
     else:
         assert len(readers.read_table(path).frame) == 803  # 800 records, the line of commas, two lines starting blank
+
+
+@pytest.mark.parametrize("damage,message", [("latin1", r"bad.csv:301: the file is not UTF-8 text \(byte 0xe9"),
+                                            ("nul", "bad.csv:301: the file holds NUL bytes")])
+def test_columnar_reader_leaves_unreadable_bytes_to_the_line_parser(tmp_path, monkeypatch, damage, message):
+    path = _tricky_file(tmp_path / "bad.csv")
+    lines = path.read_bytes().split(b"\r\n")
+    lines[300] = lines[300] + (b"\xe9" if damage == "latin1" else b"\x00")
+    path.write_bytes(b"\r\n".join(lines))
+    monkeypatch.setattr(readers, "_SCAN_BYTES", 128)
+    assert readers._read_delimited_columnar(path, None) is None
+    monkeypatch.setattr(readers, "FAST_BYTES", 0)
+    with pytest.raises(readers.DataError, match=message):
+        readers.read_table(path)
+
+
+def test_columnar_reader_skips_a_byte_order_mark(tmp_path, monkeypatch):
+    path = _tricky_file(tmp_path / "bom.csv")
+    path.write_bytes(b"\xef\xbb\xbf" + path.read_bytes())
+    monkeypatch.setattr(readers, "_SCAN_BYTES", 50)
+    fast = readers._read_delimited_columnar(path, None)
+    assert fast is not None and list(fast.frame.columns)[0] == "pid"
+    monkeypatch.setattr(readers, "FAST_BYTES", 1 << 40)
+    slow = readers.read_table(path)
+    assert fast.rows.tolist() == slow.rows.tolist()
+    for c in slow.frame:
+        same(fast.frame[c].astype(object), slow.frame[c].astype(object))
