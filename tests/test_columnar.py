@@ -218,3 +218,31 @@ def test_columnar_reader_skips_a_byte_order_mark(tmp_path, monkeypatch):
     assert fast.rows.tolist() == slow.rows.tolist()
     for c in slow.frame:
         same(fast.frame[c].astype(object), slow.frame[c].astype(object))
+
+
+@pytest.mark.parametrize("id_kind", ["int", "text", "int_with_gaps"])
+def test_long_rows_are_the_first_record_of_each_pair_sorted_by_id_and_wave(id_kind):
+    from wavetrail.codebook import parse_codebook
+    from wavetrail.panel import load_panel
+
+    rng = np.random.default_rng(5)
+    n = 600
+    ids = rng.integers(1, 90, n)
+    frame = pd.DataFrame({"pid": ids, "wave": rng.choice([3, 1, 2, 7], n), "x": np.arange(n, dtype=float)})
+    if id_kind == "text":
+        frame["pid"] = [f"p{i:03d}" if i % 7 else f" q{i}" for i in ids]
+    elif id_kind == "int_with_gaps":
+        frame["pid"] = frame["pid"].astype(object)
+        frame.loc[rng.random(n) < 0.05, "pid"] = None
+    cb = parse_codebook("study: {id: pid, wave: wave, waves: [1, 2, 3]}\n"
+                        "variables:\n  - {name: pid, type: text, identifier: true}\n"
+                        "  - {name: x, type: number}\n")
+    long = load_panel(frame, cb).long
+    # the reference: records with an id and a known wave, the first of each (id, wave), sorted by id then wave
+    ref = frame[frame["pid"].notna() & frame["wave"].isin([1, 2, 3])]
+    ref = ref.assign(pid=ref["pid"].map(lambda v: v.strip() if isinstance(v, str) else int(v)))
+    ref = ref.drop_duplicates(["pid", "wave"], keep="first").sort_values(["pid", "wave"], kind="mergesort")
+    assert len(ref) < (frame["pid"].notna() & frame["wave"].isin([1, 2, 3])).sum()  # duplicates were dropped
+    assert long["pid"].tolist() == ref["pid"].tolist()
+    assert long["wave"].tolist() == ref["wave"].tolist()
+    assert long["x"].tolist() == ref["x"].tolist()  # the first record's values
