@@ -246,3 +246,12 @@ def test_long_rows_are_the_first_record_of_each_pair_sorted_by_id_and_wave(id_ki
     assert long["pid"].tolist() == ref["pid"].tolist()
     assert long["wave"].tolist() == ref["wave"].tolist()
     assert long["x"].tolist() == ref["x"].tolist()  # the first record's values
+
+
+def test_missing_code_look_on_many_and_huge_numbers():
+    rng = np.random.default_rng(11)
+    v = np.concatenate([rng.integers(-100_000, 100_000, 50_000),
+                        [777_777_777_777, 8_888_888_888_888_888_888, 999_999_999_999_999_998, 2.0 ** 63, -2.0 ** 63,
+                         9.3e18, 1e19, -77, -97, 9997, 99_999, 7, 77.5]]).astype(float)
+    with np.errstate(invalid="ignore"):
+        assert looks_like_missing_code(v).tolist() == ref_looks_like_missing_code(v).tolist()

@@ -66,26 +66,26 @@ def looks_like_missing_code(values) -> np.ndarray:
     v = np.asarray(values, dtype=float)
     out = np.zeros(v.shape, dtype=bool)
     ok = np.isfinite(v) & (v == np.round(v))
-    a = np.abs(np.where(ok, v, 0)).astype(np.int64)
-    # the rule depends only on (sign, |v|): decide it once per distinct pair
-    where = np.flatnonzero(ok)
-    if not len(where):
-        return out
-    aw, negative = a[where], v[where] < 0
-    size, _ = pd.factorize(aw)
-    inverse, pairs = pd.factorize(size * 2 + negative)  # one code per distinct (|v|, sign)
-    rep = np.empty(len(pairs), dtype=np.int64)
-    rep[inverse] = np.arange(len(inverse))  # a cell holding each pair
-    verdict = np.zeros(len(pairs), dtype=bool)
-    for k, (neg, ai) in enumerate(zip(negative[rep].tolist(), aw[rep].tolist())):
-        s = str(ai)
-        if neg and ai <= 9 and ai >= 1:
-            verdict[k] = True
-        elif len(s) >= 2 and (set(s) <= {"9"} or set(s) <= {"8"} or set(s) <= {"7"}
-                              or (set(s[:-1]) <= {"9"} and s[-1] in "78")):
-            verdict[k] = True
-    out[where] = verdict[np.asarray(inverse).ravel()]
+    with np.errstate(invalid="ignore"):  # numbers beyond int64 wrap as before and match nothing
+        a = np.abs(np.where(ok, v, 0)).astype(np.int64)
+    out |= ok & (v < 0) & (a >= 1) & (a <= 9)
+    big = ok & (a >= _CODE_LIKE[0])  # the 2-digit rule starts at 77; most answers are far below
+    if big.any():
+        out[big] |= np.isin(a[big], _CODE_LIKE)
     return out
+
+
+def _code_like_numbers() -> np.ndarray:
+    """Every int64 of two or more digits, all 7, all 8, all 9, or 9s ending in 7 or 8 (sorted)."""
+    found = set()
+    for n in range(2, 20):
+        for text in ("7" * n, "8" * n, "9" * n, "9" * (n - 1) + "7", "9" * (n - 1) + "8"):
+            if int(text) <= np.iinfo(np.int64).max:
+                found.add(int(text))
+    return np.asarray(sorted(found), dtype=np.int64)
+
+
+_CODE_LIKE = _code_like_numbers()
 
 
 def has_errors(findings: pd.DataFrame) -> bool:

@@ -162,6 +162,7 @@ _HEAD_CHARS = 1 << 20
 #: bytes read and scanned at once when counting lines, delimiters and blank lines
 _SCAN_BYTES = 32 << 20
 #: characters Python's str.splitlines() also takes as line ends (besides \n and \r\n)
+#: (the ASCII ones first)
 _ODD_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e", b"\xc2\x85", b"\xe2\x80\xa8", b"\xe2\x80\xa9")
 
 
@@ -218,22 +219,42 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
     for k, piece in enumerate(_pieces(path, _SCAN_BYTES)):
         if k == 0 and bom:
             piece = piece[3:]
-        if b"\x00" in piece or any(b in piece for b in _ODD_BREAKS) or piece.count(b"\r") != piece.count(b"\r\n"):
+        if not piece:
+            continue
+        ascii_only = piece.isascii()
+        odd = _ODD_BREAKS[:5] if ascii_only else _ODD_BREAKS
+        if b"\x00" in piece or any(b in piece for b in odd):
             return None
-        if not piece.isascii():
+        if not ascii_only:
             try:
                 piece.decode("utf-8")
             except UnicodeDecodeError:
                 return None
-        n_quotes += piece.count(b'"')
-        n_seps += piece.count(sep)
         buf = np.frombuffer(piece, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
+        # every \r ends a line as \r\n
+        n_cr = np.count_nonzero(buf == 13)
+        if n_cr and n_cr != np.count_nonzero(buf[nl[nl > 0] - 1] == 13):
+            return None
+        if b'"' in piece:
+            n_quotes += piece.count(b'"')
+        n_seps += np.count_nonzero(buf == d)
         if not len(nl) or nl[-1] != len(buf) - 1:
             nl = np.append(nl, len(buf))  # a last line without a line end
         starts = np.concatenate(([0], nl[:-1] + 1))
-        length = nl - starts
         first = buf[np.minimum(starts, len(buf) - 1)]
+        if not np.any((first == 10) | (first == 13) | (first == 32) | (first == 9)):
+            # no line empty or starting blank: every line holds a record (no per-line look needed)
+            if first_rec is None:
+                for line in piece.split(b"\n", 2)[:min(2, len(nl))]:
+                    line = line.rstrip(b"\r")
+                    if header_bytes is None:
+                        header_bytes = line
+                    elif first_rec is None:
+                        first_rec = line
+            filled.append(np.ones(len(nl), dtype=bool))
+            continue
+        length = nl - starts
         full = (length > 1) | ((length == 1) & (first != 13))  # not empty, not a lone \r
         # a line of blank space starts with one; look at those few lines one by one
         doubt = np.flatnonzero(full & ((first == 32) | (first == 9)))
@@ -312,11 +333,14 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
     return RawTable(path=path, frame=out, rows=rows.astype(np.int64), format="csv")
 
 
-def _typed_numbers(values: np.ndarray):
-    """:func:`_maybe_int` of a parsed number column, without a float copy of an integer one."""
+def _typed_numbers(values: np.ndarray) -> np.ndarray:
+    """:func:`_maybe_int` of a parsed number column, on the array (no Series, no copy of an integer column)."""
     if values.dtype == np.int64 and len(values) and max(-int(values.min()), int(values.max())) < 2**53:
         return values
-    return _maybe_int(pd.Series(values.astype(float, copy=False)))
+    v = values.astype(float, copy=False)
+    if len(v) and np.isfinite(v).all() and np.all(v == np.round(v)) and np.abs(v).max() < 2**53:
+        return v.astype(np.int64)
+    return v
 
 
 def _convert_cells(cells: np.ndarray) -> pd.Series:
