@@ -39,6 +39,8 @@ identifier                 info      a direct identifier: never written out
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pandas as pd
 
@@ -246,7 +248,7 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
     if no_id.any():
         out.add("missing_id", "error", f"{int(no_id.sum())} record(s) have no {sid}",
                 variable=sid, count=int(no_id.sum()), rows=_where(rec, no_id))
-    bad_wave = rec["__wave"].isna().to_numpy() & ~no_id
+    bad_wave = (rec["__order"].to_numpy() < 0) & ~no_id  # no codebook wave (faster than isna of the wave objects)
     if bad_wave.any():
         vals = _examples(rec.loc[bad_wave, WAVE_RAW])
         out.add("unknown_wave", "error",
@@ -255,7 +257,8 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
     ok = ~no_id & ~bad_wave
     sub = rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]  # only the columns used below
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
-    keys = pd.DataFrame({"i": sub[sid].to_numpy(), "o": sub["__order"].to_numpy()})
+    person, _ = pd.factorize(sub[sid].to_numpy())  # one integer per (id, wave order)
+    keys = pd.Series(person.astype(np.int64) * (len(cb.study.waves) + 1) + sub["__order"].to_numpy())
     dup_all = keys.duplicated(keep=False).to_numpy()
     if dup_all.any():
         extra = keys.duplicated(keep="first").to_numpy()
@@ -468,10 +471,10 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
     for name, scale in panel.codebook.scales.items():
         if len(scale.items) < MIN_STRAIGHT_ITEMS:
             continue
-        x = long[list(scale.items)].to_numpy(dtype=float)
-        complete = np.isfinite(x).all(axis=1)
-        same = complete & (np.nanmax(np.where(complete[:, None], x, 0), axis=1)
-                           == np.nanmin(np.where(complete[:, None], x, 0), axis=1))
+        # column by column (no 2-D copy of the items): every item answered and all answers equal
+        cols = [long[item].to_numpy(dtype=float) for item in scale.items]
+        complete = np.logical_and.reduce([np.isfinite(c) for c in cols])
+        same = complete & (functools.reduce(np.maximum, cols) == functools.reduce(np.minimum, cols))
         for w in panel.waves:
             m = same & (long[panel.wave] == w).to_numpy()
             n = int(m.sum())

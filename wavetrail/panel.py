@@ -135,13 +135,13 @@ def _factorize_small_ints(values: np.ndarray, span: int = 1 << 20):
     lo, hi = int(values.min()), int(values.max())
     if hi - lo >= span:
         return None
-    offset = (values - lo).astype(np.intp) if lo >= 0 or values.dtype.kind == "i" else None
+    offset = (values - lo).astype(np.intp, copy=False) if lo >= 0 or values.dtype.kind == "i" else None
     if offset is None:
         return None
     present = np.bincount(offset, minlength=hi - lo + 1) > 0
     code_of = np.cumsum(present) - 1
     uniq = (np.flatnonzero(present) + lo).astype(values.dtype)
-    return code_of[offset].astype(np.int64), uniq
+    return code_of[offset].astype(np.int64, copy=False), uniq
 
 
 def map_column(raw, func) -> np.ndarray:
