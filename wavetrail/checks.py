@@ -537,13 +537,16 @@ def describe(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     rows = []
+    in_wave: dict = {}  # one mask per wave, made once for every variable
     for var in panel.codebook.data_variables():
         if var.identifier or var.type in ("text",) or var.name not in long.columns:
             continue
         for w in panel.waves:
             if not var.measured_at(w):
                 continue
-            col = long.loc[long[panel.wave] == w, var.name]
+            if w not in in_wave:
+                in_wave[w] = (long[panel.wave] == w).to_numpy()
+            col = long[var.name][in_wave[w]]
             row = {"variable": var.name, "wave": w, "n": int(col.notna().sum()),
                    "missing": int(col.isna().sum()), "mean": np.nan, "sd": np.nan,
                    "min": np.nan, "max": np.nan, "levels": ""}
