@@ -637,6 +637,14 @@ def missing_code_index(raw: pd.Series, var: Variable) -> np.ndarray | None:
     """
     if not var.missing:
         return np.full(len(raw), -1, dtype=np.int64)
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    if values.dtype.kind in "iuf" and all(isinstance(c, (int, float)) and not isinstance(c, bool)
+                                          for c in var.missing):
+        # numbers against number codes: compared as floats, as the distinct-value path compares them
+        found = np.full(len(values), -1, dtype=np.int64)
+        for k, code in enumerate(var.missing):
+            found[(values == float(code)) & (found < 0)] = k
+        return found
     fact = factorize_column(raw)
     if fact is None:
         return None
