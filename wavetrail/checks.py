@@ -255,7 +255,8 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                 f"{int(bad_wave.sum())} record(s) have a wave not in study.waves {list(cb.study.waves)} "
                 f"(e.g. {vals})", variable=panel.wave, count=int(bad_wave.sum()), rows=_where(rec, bad_wave))
     ok = ~no_id & ~bad_wave
-    sub = rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]  # only the columns used below
+    # only the columns used below; every record when all have an id and a known wave (no copy)
+    sub = rec if ok.all() else rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
     person, _ = pd.factorize(sub[sid].to_numpy())  # one integer per (id, wave order)
     keys = pd.Series(person.astype(np.int64) * (len(cb.study.waves) + 1) + sub["__order"].to_numpy())

@@ -517,12 +517,14 @@ def _clean(panel: Panel):
     # the first record of each are the long rows (a repeated pair keeps its first record), in order
     person, _ = pd.factorize(ids_kept, sort=True)
     _, first_at = np.unique(person.astype(np.int64) * len(waves) + order_kept, return_index=True)
+    del person, pos, keep
     take = kept[first_at]  # record positions of the long rows
     base_id = ids_kept[first_at]
-    del person, ids_kept
+    base_order = order_kept[first_at]
+    del ids_kept, order_kept, kept, first_at
     wave_values = np.empty(len(waves), dtype=object)
     wave_values[:] = waves
-    base_wave = wave_values[order_kept[first_at]]
+    base_wave = wave_values[base_order]
     columns = {panel.id: base_id,
                panel.wave: pd.Series(base_wave, dtype=_wave_dtype(cb.study.waves)).to_numpy()}
     reasons = []

@@ -311,7 +311,6 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
     text_cols = [c for c in header if frame[c].dtype.kind not in "iuf"]
     texts = None
     if text_cols:
-        frame = frame.drop(columns=text_cols)  # read again below, as text
         try:
             texts = pd.read_csv(path, sep=delimiter, header=0, names=header, encoding="utf-8-sig",
                                 usecols=text_cols, dtype=object, keep_default_na=False, na_filter=False,
@@ -321,13 +320,12 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
         if len(texts) != len(rows):
             return None
     columns: dict[str, object] = {}
-    for name in header:
+    for name in header:  # number columns stay views of the parser's blocks (no copy)
         if name in text_cols:
             columns[name] = _convert_cells(texts[name].to_numpy(dtype=object))
-            texts = texts.drop(columns=[name])
         else:
             columns[name] = _typed_numbers(frame[name].to_numpy())
-            frame = frame.drop(columns=[name])
+    del frame, texts
     # one block per column (no copy into one 2-D block of all columns)
     out = pd.DataFrame(columns, index=pd.RangeIndex(len(rows)), copy=False)
     return RawTable(path=path, frame=out, rows=rows.astype(np.int64), format="csv")
