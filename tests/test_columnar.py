@@ -148,12 +148,12 @@ def _tricky_file(path, n=800, seed=2, quote_header=False):
     return path
 
 
-@pytest.mark.parametrize("quote_header", [False, True])
-def test_columnar_reader_equals_line_by_line(tmp_path, monkeypatch, quote_header):
+@pytest.mark.parametrize("quote_header,scan_bytes", [(False, 32 << 20), (True, 32 << 20), (False, 97), (True, 5)])
+def test_columnar_reader_equals_line_by_line(tmp_path, monkeypatch, quote_header, scan_bytes):
     path = _tricky_file(tmp_path / "tricky.csv", quote_header=quote_header)
     monkeypatch.setattr(readers, "FAST_BYTES", 0)
-    raw = path.read_bytes()
-    fast = readers._read_delimited_columnar(path, raw, raw.decode("utf-8-sig"), None)
+    monkeypatch.setattr(readers, "_SCAN_BYTES", scan_bytes)  # pieces end mid-file, even mid-line
+    fast = readers._read_delimited_columnar(path, None)
     assert fast is not None  # the file is one the columnar reader takes
     monkeypatch.setattr(readers, "FAST_BYTES", 1 << 40)
     slow = readers.read_table(path)
@@ -182,11 +182,76 @@ def test_columnar_reader_hands_odd_files_to_the_line_parser(tmp_path, monkeypatc
     else:
         lines[0] = "pid,wave,x,y,x,b,e"
     path.write_bytes("\r\n".join(lines).encode())
-    raw = path.read_bytes()
-    assert readers._read_delimited_columnar(path, raw, raw.decode(), None) is None
+    assert readers._read_delimited_columnar(path, None) is None
+    monkeypatch.setattr(readers, "_SCAN_BYTES", 64)
+    assert readers._read_delimited_columnar(path, None) is None
     monkeypatch.setattr(readers, "FAST_BYTES", 0)
     if damage in ("short", "long", "dup_header", "long_then_short"):
         with pytest.raises(readers.DataError, match="bad.csv:(301|1|2):"):
             readers.read_table(path)
     else:
         assert len(readers.read_table(path).frame) == 803  # 800 records, the line of commas, two lines starting blank
+
+
+@pytest.mark.parametrize("damage,message", [("latin1", r"bad.csv:301: the file is not UTF-8 text \(byte 0xe9"),
+                                            ("nul", "bad.csv:301: the file holds NUL bytes")])
+def test_columnar_reader_leaves_unreadable_bytes_to_the_line_parser(tmp_path, monkeypatch, damage, message):
+    path = _tricky_file(tmp_path / "bad.csv")
+    lines = path.read_bytes().split(b"\r\n")
+    lines[300] = lines[300] + (b"\xe9" if damage == "latin1" else b"\x00")
+    path.write_bytes(b"\r\n".join(lines))
+    monkeypatch.setattr(readers, "_SCAN_BYTES", 128)
+    assert readers._read_delimited_columnar(path, None) is None
+    monkeypatch.setattr(readers, "FAST_BYTES", 0)
+    with pytest.raises(readers.DataError, match=message):
+        readers.read_table(path)
+
+
+def test_columnar_reader_skips_a_byte_order_mark(tmp_path, monkeypatch):
+    path = _tricky_file(tmp_path / "bom.csv")
+    path.write_bytes(b"\xef\xbb\xbf" + path.read_bytes())
+    monkeypatch.setattr(readers, "_SCAN_BYTES", 50)
+    fast = readers._read_delimited_columnar(path, None)
+    assert fast is not None and list(fast.frame.columns)[0] == "pid"
+    monkeypatch.setattr(readers, "FAST_BYTES", 1 << 40)
+    slow = readers.read_table(path)
+    assert fast.rows.tolist() == slow.rows.tolist()
+    for c in slow.frame:
+        same(fast.frame[c].astype(object), slow.frame[c].astype(object))
+
+
+@pytest.mark.parametrize("id_kind", ["int", "text", "int_with_gaps"])
+def test_long_rows_are_the_first_record_of_each_pair_sorted_by_id_and_wave(id_kind):
+    from wavetrail.codebook import parse_codebook
+    from wavetrail.panel import load_panel
+
+    rng = np.random.default_rng(5)
+    n = 600
+    ids = rng.integers(1, 90, n)
+    frame = pd.DataFrame({"pid": ids, "wave": rng.choice([3, 1, 2, 7], n), "x": np.arange(n, dtype=float)})
+    if id_kind == "text":
+        frame["pid"] = [f"p{i:03d}" if i % 7 else f" q{i}" for i in ids]
+    elif id_kind == "int_with_gaps":
+        frame["pid"] = frame["pid"].astype(object)
+        frame.loc[rng.random(n) < 0.05, "pid"] = None
+    cb = parse_codebook("study: {id: pid, wave: wave, waves: [1, 2, 3]}\n"
+                        "variables:\n  - {name: pid, type: text, identifier: true}\n"
+                        "  - {name: x, type: number}\n")
+    long = load_panel(frame, cb).long
+    # the reference: records with an id and a known wave, the first of each (id, wave), sorted by id then wave
+    ref = frame[frame["pid"].notna() & frame["wave"].isin([1, 2, 3])]
+    ref = ref.assign(pid=ref["pid"].map(lambda v: v.strip() if isinstance(v, str) else int(v)))
+    ref = ref.drop_duplicates(["pid", "wave"], keep="first").sort_values(["pid", "wave"], kind="mergesort")
+    assert len(ref) < (frame["pid"].notna() & frame["wave"].isin([1, 2, 3])).sum()  # duplicates were dropped
+    assert long["pid"].tolist() == ref["pid"].tolist()
+    assert long["wave"].tolist() == ref["wave"].tolist()
+    assert long["x"].tolist() == ref["x"].tolist()  # the first record's values
+
+
+def test_missing_code_look_on_many_and_huge_numbers():
+    rng = np.random.default_rng(11)
+    v = np.concatenate([rng.integers(-100_000, 100_000, 50_000),
+                        [777_777_777_777, 8_888_888_888_888_888_888, 999_999_999_999_999_998, 2.0 ** 63, -2.0 ** 63,
+                         9.3e18, 1e19, -77, -97, 9997, 99_999, 7, 77.5]]).astype(float)
+    with np.errstate(invalid="ignore"):
+        assert looks_like_missing_code(v).tolist() == ref_looks_like_missing_code(v).tolist()

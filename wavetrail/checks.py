@@ -39,6 +39,8 @@ identifier                 info      a direct identifier: never written out
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pandas as pd
 
@@ -66,26 +68,26 @@ def looks_like_missing_code(values) -> np.ndarray:
     v = np.asarray(values, dtype=float)
     out = np.zeros(v.shape, dtype=bool)
     ok = np.isfinite(v) & (v == np.round(v))
-    a = np.abs(np.where(ok, v, 0)).astype(np.int64)
-    # the rule depends only on (sign, |v|): decide it once per distinct pair
-    where = np.flatnonzero(ok)
-    if not len(where):
-        return out
-    aw, negative = a[where], v[where] < 0
-    size, _ = pd.factorize(aw)
-    inverse, pairs = pd.factorize(size * 2 + negative)  # one code per distinct (|v|, sign)
-    rep = np.empty(len(pairs), dtype=np.int64)
-    rep[inverse] = np.arange(len(inverse))  # a cell holding each pair
-    verdict = np.zeros(len(pairs), dtype=bool)
-    for k, (neg, ai) in enumerate(zip(negative[rep].tolist(), aw[rep].tolist())):
-        s = str(ai)
-        if neg and ai <= 9 and ai >= 1:
-            verdict[k] = True
-        elif len(s) >= 2 and (set(s) <= {"9"} or set(s) <= {"8"} or set(s) <= {"7"}
-                              or (set(s[:-1]) <= {"9"} and s[-1] in "78")):
-            verdict[k] = True
-    out[where] = verdict[np.asarray(inverse).ravel()]
+    with np.errstate(invalid="ignore"):  # numbers beyond int64 wrap as before and match nothing
+        a = np.abs(np.where(ok, v, 0)).astype(np.int64)
+    out |= ok & (v < 0) & (a >= 1) & (a <= 9)
+    big = ok & (a >= _CODE_LIKE[0])  # the 2-digit rule starts at 77; most answers are far below
+    if big.any():
+        out[big] |= np.isin(a[big], _CODE_LIKE)
     return out
+
+
+def _code_like_numbers() -> np.ndarray:
+    """Every int64 of two or more digits, all 7, all 8, all 9, or 9s ending in 7 or 8 (sorted)."""
+    found = set()
+    for n in range(2, 20):
+        for text in ("7" * n, "8" * n, "9" * n, "9" * (n - 1) + "7", "9" * (n - 1) + "8"):
+            if int(text) <= np.iinfo(np.int64).max:
+                found.add(int(text))
+    return np.asarray(sorted(found), dtype=np.int64)
+
+
+_CODE_LIKE = _code_like_numbers()
 
 
 def has_errors(findings: pd.DataFrame) -> bool:
@@ -246,16 +248,18 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
     if no_id.any():
         out.add("missing_id", "error", f"{int(no_id.sum())} record(s) have no {sid}",
                 variable=sid, count=int(no_id.sum()), rows=_where(rec, no_id))
-    bad_wave = rec["__wave"].isna().to_numpy() & ~no_id
+    bad_wave = (rec["__order"].to_numpy() < 0) & ~no_id  # no codebook wave (faster than isna of the wave objects)
     if bad_wave.any():
         vals = _examples(rec.loc[bad_wave, WAVE_RAW])
         out.add("unknown_wave", "error",
                 f"{int(bad_wave.sum())} record(s) have a wave not in study.waves {list(cb.study.waves)} "
                 f"(e.g. {vals})", variable=panel.wave, count=int(bad_wave.sum()), rows=_where(rec, bad_wave))
     ok = ~no_id & ~bad_wave
-    sub = rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]  # only the columns used below
+    # only the columns used below; every record when all have an id and a known wave (no copy)
+    sub = rec if ok.all() else rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
-    keys = pd.DataFrame({"i": sub[sid].to_numpy(), "o": sub["__order"].to_numpy()})
+    person, _ = pd.factorize(sub[sid].to_numpy())  # one integer per (id, wave order)
+    keys = pd.Series(person.astype(np.int64) * (len(cb.study.waves) + 1) + sub["__order"].to_numpy())
     dup_all = keys.duplicated(keep=False).to_numpy()
     if dup_all.any():
         extra = keys.duplicated(keep="first").to_numpy()
@@ -468,10 +472,10 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
     for name, scale in panel.codebook.scales.items():
         if len(scale.items) < MIN_STRAIGHT_ITEMS:
             continue
-        x = long[list(scale.items)].to_numpy(dtype=float)
-        complete = np.isfinite(x).all(axis=1)
-        same = complete & (np.nanmax(np.where(complete[:, None], x, 0), axis=1)
-                           == np.nanmin(np.where(complete[:, None], x, 0), axis=1))
+        # column by column (no 2-D copy of the items): every item answered and all answers equal
+        cols = [long[item].to_numpy(dtype=float) for item in scale.items]
+        complete = np.logical_and.reduce([np.isfinite(c) for c in cols])
+        same = complete & (functools.reduce(np.maximum, cols) == functools.reduce(np.minimum, cols))
         for w in panel.waves:
             m = same & (long[panel.wave] == w).to_numpy()
             n = int(m.sum())
@@ -534,13 +538,16 @@ def describe(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     rows = []
+    in_wave: dict = {}  # one mask per wave, made once for every variable
     for var in panel.codebook.data_variables():
         if var.identifier or var.type in ("text",) or var.name not in long.columns:
             continue
         for w in panel.waves:
             if not var.measured_at(w):
                 continue
-            col = long.loc[long[panel.wave] == w, var.name]
+            if w not in in_wave:
+                in_wave[w] = (long[panel.wave] == w).to_numpy()
+            col = long[var.name][in_wave[w]]
             row = {"variable": var.name, "wave": w, "n": int(col.notna().sum()),
                    "missing": int(col.isna().sum()), "mean": np.nan, "sd": np.nan,
                    "min": np.nan, "max": np.nan, "levels": ""}

@@ -135,13 +135,13 @@ def _factorize_small_ints(values: np.ndarray, span: int = 1 << 20):
     lo, hi = int(values.min()), int(values.max())
     if hi - lo >= span:
         return None
-    offset = (values - lo).astype(np.intp) if lo >= 0 or values.dtype.kind == "i" else None
+    offset = (values - lo).astype(np.intp, copy=False) if lo >= 0 or values.dtype.kind == "i" else None
     if offset is None:
         return None
     present = np.bincount(offset, minlength=hi - lo + 1) > 0
     code_of = np.cumsum(present) - 1
     uniq = (np.flatnonzero(present) + lo).astype(values.dtype)
-    return code_of[offset].astype(np.int64), uniq
+    return code_of[offset].astype(np.int64, copy=False), uniq
 
 
 def map_column(raw, func) -> np.ndarray:
@@ -344,7 +344,13 @@ def load_panel(paths, codebook: Codebook | str | os.PathLike) -> Panel:
             src, frame = _map_long(table, codebook, i, len(tables))
         sources.append(src)
         frames.append(frame)
-    records = pd.concat(frames, ignore_index=True, sort=False) if len(frames) > 1 else frames[0]
+    if len(frames) > 1:
+        names = list(dict.fromkeys(t.name for t in tables))
+        for f in frames:  # one set of file names, so the concatenated column stays categorical
+            f[FILE] = pd.Categorical(f[FILE], categories=names)
+        records = pd.concat(frames, ignore_index=True, sort=False)
+    else:
+        records = frames[0]
     records = _normalise_ids(records, codebook.study.id)
     return Panel(codebook, sources, records)
 
@@ -403,11 +409,17 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
             for w in waves:
                 if var.measured_at(w):
                     src.absent.append((var.name, w))
-    out = pd.DataFrame({FILE: table.name, ROW: table.rows, study.id: _column_values(frame[study.id]),
-                        WAVE_RAW: _column_values(raw_wave)})
+    columns = {FILE: _file_column(table.name, len(frame)), ROW: table.rows,
+               study.id: _column_values(frame[study.id]), WAVE_RAW: _column_values(raw_wave)}
     for col in src.columns:
-        out[col] = frame[col].to_numpy()
-    return src, out
+        columns[col] = frame[col].to_numpy()
+    # the record table shares the read columns (no copy, no 2-D block of all of them)
+    return src, pd.DataFrame(columns, copy=False)
+
+
+def _file_column(name: str, n: int) -> pd.Categorical:
+    """The ``_file`` column of ``n`` records of one file: a categorical (one byte per record, not one pointer)."""
+    return pd.Categorical.from_codes(np.zeros(n, dtype=np.int8), categories=[name])
 
 
 def _map_wide(table: RawTable, codebook: Codebook):
@@ -442,7 +454,7 @@ def _map_wide(table: RawTable, codebook: Codebook):
     parts = []
     for w in study.waves:
         cols = {name: c for c, (name, ww) in src.columns.items() if ww == w}
-        part = pd.DataFrame({FILE: table.name, ROW: table.rows,
+        part = pd.DataFrame({FILE: _file_column(table.name, len(frame)), ROW: table.rows,
                              study.id: frame[study.id].to_numpy(dtype=object),
                              WAVE_RAW: [w] * len(frame)})
         for name, c in cols.items():
@@ -499,15 +511,20 @@ def _clean(panel: Panel):
     # which records make the long table, in which order: worked out on (id, wave order) alone, then
     # each column taken once (no copy of the whole record table)
     kept = np.flatnonzero(keep)
-    key = pd.DataFrame({panel.id: rec[panel.id].to_numpy()[kept], "__order": order_of_pos[pos[kept]]})
-    first = ~key.duplicated(keep="first").to_numpy()
-    kept, key = kept[first], key[first].reset_index(drop=True)
-    perm = key.sort_values([panel.id, "__order"], kind="mergesort").index.to_numpy()
-    take = kept[perm]  # record positions of the long rows
-    base_id = key[panel.id].to_numpy()[perm]
+    ids_kept = rec[panel.id].to_numpy()[kept]
+    order_kept = order_of_pos[pos[kept]]
+    # one integer per (id, wave order), ids numbered in sorted order: the sorted distinct keys with
+    # the first record of each are the long rows (a repeated pair keeps its first record), in order
+    person, _ = pd.factorize(ids_kept, sort=True)
+    _, first_at = np.unique(person.astype(np.int64) * len(waves) + order_kept, return_index=True)
+    del person, pos, keep
+    take = kept[first_at]  # record positions of the long rows
+    base_id = ids_kept[first_at]
+    base_order = order_kept[first_at]
+    del ids_kept, order_kept, kept, first_at
     wave_values = np.empty(len(waves), dtype=object)
     wave_values[:] = waves
-    base_wave = wave_values[key["__order"].to_numpy()[perm]]
+    base_wave = wave_values[base_order]
     columns = {panel.id: base_id,
                panel.wave: pd.Series(base_wave, dtype=_wave_dtype(cb.study.waves)).to_numpy()}
     reasons = []
@@ -529,7 +546,7 @@ def _clean(panel: Panel):
     for var in cb.data_variables():
         if var.derived:
             columns[var.name] = derive_values(columns[var.derived_from], columns[panel.wave], var.transform)[0]
-    long = pd.DataFrame(columns)
+    long = pd.DataFrame(columns, copy=False)
     for name, col in columns.items():
         if isinstance(col, pd.Categorical):
             long[name] = col
@@ -622,6 +639,14 @@ def missing_code_index(raw: pd.Series, var: Variable) -> np.ndarray | None:
     """
     if not var.missing:
         return np.full(len(raw), -1, dtype=np.int64)
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    if values.dtype.kind in "iuf" and all(isinstance(c, (int, float)) and not isinstance(c, bool)
+                                          for c in var.missing):
+        # numbers against number codes: compared as floats, as the distinct-value path compares them
+        found = np.full(len(values), -1, dtype=np.int64)
+        for k, code in enumerate(var.missing):
+            found[(values == float(code)) & (found < 0)] = k
+        return found
     fact = factorize_column(raw)
     if fact is None:
         return None

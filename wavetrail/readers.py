@@ -13,6 +13,7 @@ UTF-8, a wrong delimiter, a corrupt or truncated CSV, repeated column names.
 
 from __future__ import annotations
 
+import codecs
 import csv
 import io
 import os
@@ -123,6 +124,11 @@ def read_table(path: str | os.PathLike, *, delimiter: str | None = None) -> RawT
 
 
 def _read_delimited(path: Path, delimiter: str | None) -> RawTable:
+    if path.stat().st_size >= FAST_BYTES:
+        # scanned in pieces and parsed from the path: the file's bytes are never held whole
+        table = _read_delimited_columnar(path, delimiter)
+        if table is not None:
+            return table
     raw = path.read_bytes()
     if not raw.strip():
         raise DataError(f"{path}: the file is empty (only blank space)", hint="copy the data file again")
@@ -137,12 +143,7 @@ def _read_delimited(path: Path, delimiter: str | None) -> RawTable:
         raise DataError(f"{path}:{line}: the file is not UTF-8 text (byte 0x{raw[exc.start]:02x} "
                         f"at offset {exc.start})",
                         hint="save it as UTF-8 (it may be Latin-1 or Windows-1252)") from None
-    if len(raw) >= FAST_BYTES:
-        head, text = text[:_HEAD_CHARS], None  # the whole text is not needed: free it
-        table = _read_delimited_columnar(path, raw, head, delimiter)
-        if table is not None:
-            return table
-        text = raw.decode("utf-8-sig")
+    del raw
     lines = text.splitlines()
     while lines and not lines[-1].strip():
         lines.pop()
@@ -158,49 +159,102 @@ def _read_delimited(path: Path, delimiter: str | None) -> RawTable:
 FAST_BYTES = 4 << 20
 #: characters at the start of a file where the delimiter is sniffed (the first 200 lines must fit)
 _HEAD_CHARS = 1 << 20
-#: bytes scanned at once when counting lines, delimiters and blank lines
+#: bytes read and scanned at once when counting lines, delimiters and blank lines
 _SCAN_BYTES = 32 << 20
 #: characters Python's str.splitlines() also takes as line ends (besides \n and \r\n)
+#: (the ASCII ones first)
 _ODD_BREAKS = (b"\x0b", b"\x0c", b"\x1c", b"\x1d", b"\x1e", b"\xc2\x85", b"\xe2\x80\xa8", b"\xe2\x80\xa9")
 
 
-def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str | None) -> RawTable | None:
-    """The table (``text``: the decoded file or at least its first ``_HEAD_CHARS`` characters) :func:`_parse` + :func:`_to_table` give, without a Python object per cell.
+def _pieces(path: Path, size: int):
+    """The file in pieces of about ``size`` bytes, each ending just after a ``\\n`` (the last one may not)."""
+    with open(path, "rb") as fh:
+        carry = b""
+        while True:
+            block = fh.read(size)
+            if not block:
+                if carry:
+                    yield carry
+                return
+            buf = carry + block if carry else block
+            cut = buf.rfind(b"\n")
+            if cut < 0:  # a line longer than a piece: read on
+                carry = buf
+                continue
+            yield buf[:cut + 1] if cut + 1 < len(buf) else buf
+            carry = buf[cut + 1:]
 
-    Covers the common large file: ``\n`` or ``\r\n`` line ends, no quotes
-    after the header, every line with the header's number of fields, distinct
-    named header fields. Returns None for anything else (the caller then
-    parses line by line, which also words every error message).
+
+def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | None:
+    """The table :func:`_parse` + :func:`_to_table` give, without a Python object per cell.
+
+    Covers the common large file: UTF-8, ``\\n`` or ``\\r\\n`` line ends, no
+    quotes after the header, every line with the header's number of fields,
+    distinct named header fields. The file is scanned piece by piece (line
+    ends, blank lines, delimiters, quotes, UTF-8) and then parsed from its
+    path by pandas' C parser, so its bytes are never held whole. Returns None
+    for anything else (the caller then parses line by line, which also words
+    every error message).
     """
+    with open(path, "rb") as fh:
+        first_bytes = fh.read(4 * _HEAD_CHARS + 3)
+    try:  # a character cut at the end of the first bytes waits for more (final=False)
+        text = codecs.getincrementaldecoder("utf-8-sig")("strict").decode(first_bytes, final=False)
+    except UnicodeDecodeError:
+        return None
     head = text[:_HEAD_CHARS].splitlines()
     if len(head) <= _SNIFF_LINES:
-        return None
-    if any(b in raw for b in _ODD_BREAKS) or raw.count(b"\r") != raw.count(b"\r\n"):
         return None
     if delimiter is None:
         delimiter = _sniff(head[:_SNIFF_LINES], tab_first=path.suffix.lower() in (".tsv", ".tab"))
     if len(delimiter) != 1 or delimiter in ('"', "\n", "\r", " "):
         return None
-    start = 3 if raw.startswith(b"\xef\xbb\xbf") else 0
-    # per line: where it ends and whether it holds a record (more than blank space, or a delimiter)
-    ends, filled = [], []
+    sep = delimiter.encode()
     d = ord(delimiter)
-    pos = start
-    while pos < len(raw):
-        stop = min(len(raw), pos + _SCAN_BYTES)
-        if stop < len(raw):
-            cut = raw.rfind(b"\n", pos, stop)
-            stop = len(raw) if cut < 0 else cut + 1
-        buf = np.frombuffer(raw, dtype=np.uint8, count=stop - pos, offset=pos)
-        nl = np.flatnonzero(buf == 10)
-        if stop == len(raw) and (not len(nl) or nl[-1] != len(buf) - 1):
-            nl = np.append(nl, len(buf))  # a last line without a line end
-        if not len(nl):
-            pos = stop
+    bom = first_bytes.startswith(b"\xef\xbb\xbf")
+    # per line: whether it holds a record (more than blank space, or a delimiter)
+    filled: list[np.ndarray] = []
+    header_bytes = first_rec = None
+    n_quotes = n_seps = 0
+    for k, piece in enumerate(_pieces(path, _SCAN_BYTES)):
+        if k == 0 and bom:
+            piece = piece[3:]
+        if not piece:
             continue
+        ascii_only = piece.isascii()
+        odd = _ODD_BREAKS[:5] if ascii_only else _ODD_BREAKS
+        if b"\x00" in piece or any(b in piece for b in odd):
+            return None
+        if not ascii_only:
+            try:
+                piece.decode("utf-8")
+            except UnicodeDecodeError:
+                return None
+        buf = np.frombuffer(piece, dtype=np.uint8)
+        nl = np.flatnonzero(buf == 10)
+        # every \r ends a line as \r\n
+        n_cr = np.count_nonzero(buf == 13)
+        if n_cr and n_cr != np.count_nonzero(buf[nl[nl > 0] - 1] == 13):
+            return None
+        if b'"' in piece:
+            n_quotes += piece.count(b'"')
+        n_seps += np.count_nonzero(buf == d)
+        if not len(nl) or nl[-1] != len(buf) - 1:
+            nl = np.append(nl, len(buf))  # a last line without a line end
         starts = np.concatenate(([0], nl[:-1] + 1))
-        length = nl - starts
         first = buf[np.minimum(starts, len(buf) - 1)]
+        if not np.any((first == 10) | (first == 13) | (first == 32) | (first == 9)):
+            # no line empty or starting blank: every line holds a record (no per-line look needed)
+            if first_rec is None:
+                for line in piece.split(b"\n", 2)[:min(2, len(nl))]:
+                    line = line.rstrip(b"\r")
+                    if header_bytes is None:
+                        header_bytes = line
+                    elif first_rec is None:
+                        first_rec = line
+            filled.append(np.ones(len(nl), dtype=bool))
+            continue
+        length = nl - starts
         full = (length > 1) | ((length == 1) & (first != 13))  # not empty, not a lone \r
         # a line of blank space starts with one; look at those few lines one by one
         doubt = np.flatnonzero(full & ((first == 32) | (first == 9)))
@@ -211,23 +265,25 @@ def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str |
             full &= (length > n_blank) | (n_delim > 0)
         else:
             for i in doubt.tolist():
-                line = raw[pos + int(starts[i]):pos + int(nl[i])]
-                if not line.strip(b" \t\r") and bytes([d]) not in line:
+                line = piece[int(starts[i]):int(nl[i])]
+                if not line.strip(b" \t\r") and sep not in line:
                     full[i] = False
+        if first_rec is None:
+            for i in np.flatnonzero(full)[:2].tolist():
+                line = piece[int(starts[i]):int(nl[i])].rstrip(b"\r")
+                if header_bytes is None:
+                    header_bytes = line
+                elif first_rec is None:
+                    first_rec = line
         filled.append(full)
-        ends.append(nl + pos)
         del buf
-        pos = stop
-    filled = np.concatenate(filled)
-    ends = np.concatenate(ends)
-    line_no = np.flatnonzero(filled) + 1  # 1-based numbers of the lines that hold a record or the header
-    if len(line_no) < 2:
+    if header_bytes is None or first_rec is None:
         return None
-    header_line = int(line_no[0])
-    header_end = int(ends[header_line - 1]) + 1
-    if b'"' in raw[header_end:]:
+    line_no = np.flatnonzero(np.concatenate(filled)) + 1  # 1-based numbers of the lines that hold a record or the header
+    del filled
+    if n_quotes != header_bytes.count(b'"'):
         return None
-    header_text = raw[start:header_end].decode("utf-8").splitlines()[header_line - 1]
+    header_text = header_bytes.decode("utf-8")
     try:
         header = [h.strip() for h in next(csv.reader([header_text], delimiter=delimiter, strict=True))]
     except (csv.Error, StopIteration):
@@ -238,16 +294,14 @@ def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str |
     # every record holds len(header) - 1 delimiters: the first one checked alone (it sets how many
     # fields the C parser expects, which then refuses longer lines), then the sum over all of them
     # (no line longer, so none shorter)
-    sep = delimiter.encode()
-    first_rec = raw[int(ends[rows[0] - 2]) + 1:int(ends[rows[0] - 1])]
     if first_rec.count(sep) != len(header) - 1:
         return None
-    if raw.count(sep, header_end) != len(rows) * (len(header) - 1):
+    if n_seps - header_bytes.count(sep) != len(rows) * (len(header) - 1):
         return None  # a short or long line: the line-by-line parse names it
     try:
         with warnings.catch_warnings():  # mixed kinds in one column: read again as text below
             warnings.simplefilter("ignore")
-            frame = pd.read_csv(io.BytesIO(raw), sep=delimiter, header=0, names=header, encoding="utf-8-sig",
+            frame = pd.read_csv(path, sep=delimiter, header=0, names=header, encoding="utf-8-sig",
                                 na_values=sorted(MISSING_TOKENS), keep_default_na=False, skip_blank_lines=True,
                                 engine="c", skipinitialspace=False)
     except Exception:  # noqa: BLE001 - any parser complaint: the line-by-line parse words it
@@ -255,24 +309,36 @@ def _read_delimited_columnar(path: Path, raw: bytes, text: str, delimiter: str |
     if len(frame) != len(rows):
         return None
     text_cols = [c for c in header if frame[c].dtype.kind not in "iuf"]
+    texts = None
     if text_cols:
         try:
-            texts = pd.read_csv(io.BytesIO(raw), sep=delimiter, header=0, names=header, encoding="utf-8-sig",
+            texts = pd.read_csv(path, sep=delimiter, header=0, names=header, encoding="utf-8-sig",
                                 usecols=text_cols, dtype=object, keep_default_na=False, na_filter=False,
                                 skip_blank_lines=True, engine="c")
         except Exception:  # noqa: BLE001
             return None
         if len(texts) != len(rows):
             return None
-    columns: dict[str, pd.Series] = {}
-    for name in header:
+    columns: dict[str, object] = {}
+    for name in header:  # number columns stay views of the parser's blocks (no copy)
         if name in text_cols:
-            cells = texts[name].to_numpy(dtype=object)
-            columns[name] = _convert_cells(cells)
+            columns[name] = _convert_cells(texts[name].to_numpy(dtype=object))
         else:
-            columns[name] = _maybe_int(pd.Series(frame[name].to_numpy(dtype=float)))
-    out = pd.DataFrame(columns, index=pd.RangeIndex(len(rows)))
+            columns[name] = _typed_numbers(frame[name].to_numpy())
+    del frame, texts
+    # one block per column (no copy into one 2-D block of all columns)
+    out = pd.DataFrame(columns, index=pd.RangeIndex(len(rows)), copy=False)
     return RawTable(path=path, frame=out, rows=rows.astype(np.int64), format="csv")
+
+
+def _typed_numbers(values: np.ndarray) -> np.ndarray:
+    """:func:`_maybe_int` of a parsed number column, on the array (no Series, no copy of an integer column)."""
+    if values.dtype == np.int64 and len(values) and max(-int(values.min()), int(values.max())) < 2**53:
+        return values
+    v = values.astype(float, copy=False)
+    if len(v) and np.isfinite(v).all() and np.all(v == np.round(v)) and np.abs(v).max() < 2**53:
+        return v.astype(np.int64)
+    return v
 
 
 def _convert_cells(cells: np.ndarray) -> pd.Series:
