@@ -246,11 +246,16 @@ def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="obs
     adm, adm_notes = admissibility(spec, theta)
     notes += adm_notes
     # reference models
-    mu_s, sig_s, ll_s, _, sat_ok = saturated(stats)
-    if not sat_ok:
-        notes.append("the saturated model (EM) did not converge; fit indices are approximate")
+    sat = saturated(stats)
+    mu_s, sig_s, ll_s, _, sat_ok = sat
     ev = np.linalg.eigvalsh(sig_s)
-    if ev[0] <= 1e-10 * max(ev[-1], 1e-300):
+    if not np.isfinite(ll_s):
+        notes.append(f"{sat.note or 'the saturated model has no maximum'}; chi-square and the fit indices built "
+                     "on it are not available")
+        ll_s = np.nan
+    elif not sat_ok:
+        notes.append(f"the saturated model did not converge ({sat.note}); fit indices are approximate")
+    elif ev[0] <= 1e-10 * max(ev[-1], 1e-300):
         notes.append("sample covariance matrix is not positive definite; chi-square and fit indices are not available")
         ll_s = np.nan
     _, _, ll_b = independence(stats)
