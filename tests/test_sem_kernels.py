@@ -111,7 +111,7 @@ def test_saturated_without_a_maximum_is_refused_at_once():
     assert stats.masks.all(axis=1).any()
     r = sat.saturated(stats)
     assert np.isnan(r[2]) and not r[4] and r[3] == 0
-    assert "no maximum" in r.note and "people observe all variables" in r.note
+    assert "no maximum" in r.note and "people observe" in r.note
     # the same panel with 400 people has a maximum, found by both paths
     _, Y = _panel(n=400, waves=10, miss=0.2, seed=4)
     assert sat.missing_maximum(SuffStats.from_data(Y)) == ""
