@@ -164,44 +164,95 @@ def perturbed_starts(spec, theta, n, rng, spread=0.5):
     return out
 
 
+def _screen(spec, stats, R, max_iter, base, screen_iter, n_keep):
+    """Scoring from every row of ``R``: ``screen_iter`` steps for all, ``max_iter`` for the best ``n_keep``."""
+    from wavetrail.sem.optimise import BatchFit, _take_base, fit_batch
+
+    many = stats.take(np.zeros(len(R), dtype=int))
+    if screen_iter is None or screen_iter >= max_iter or len(R) <= n_keep:
+        return fit_batch(spec, many, start=R, max_iter=max_iter, tol=TOL, base=base)
+    bf = fit_batch(spec, many, start=R, max_iter=screen_iter, tol=TOL, base=base)
+    ll = np.where(np.isfinite(bf.loglik), bf.loglik, -np.inf)
+    go = np.argsort(-ll, kind="stable")[:n_keep]
+    go = np.array(sorted(i for i in go if np.isfinite(ll[i]) and not bf.converged[i]), dtype=int)
+    if len(go) == 0:
+        return bf
+    more = fit_batch(spec, stats.take(np.zeros(len(go), dtype=int)), start=bf.theta[go],
+                     max_iter=max_iter - screen_iter, tol=TOL, base=_take_base(base, go))
+    theta, loglik, conv = bf.theta.copy(), bf.loglik.copy(), bf.converged.copy()
+    iters, dec = bf.iterations.copy(), bf.decrement.copy()
+    theta[go], loglik[go], conv[go] = more.theta, more.loglik, more.converged
+    iters[go] += more.iterations
+    dec[go] = more.decrement
+    return BatchFit(theta, loglik, conv, int(iters.max()), iters, dec)
+
+
 def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6, base=None,
-               same_tol=1e-6, spread=1.0, tol=TOL) -> Search:
+               same_tol=1e-6, spread=1.0, tol=TOL, first_round=2, screen_iter=8, n_keep=8) -> Search:
     """Fit from every start in ``starts`` (list of (k,) arrays, the first is the main one) and
     from ``n_random`` seeded perturbations of each, then polish the best distinct ends.
+
+    The starts are fitted in two rounds, each by one batched scoring run of ``max_iter``
+    steps: first the given starts with the first ``first_round`` perturbations of each,
+    then the other perturbations. The second round is skipped when every start of the
+    first that converged (after polishing) reached the same maximum and at least three
+    did; otherwise all ``len(starts) * (1 + n_random)`` starts are fitted, the same set
+    (same seed, same draws) as in one round. ``first_round=None`` fits all in one round.
+
+    Screening: every start takes ``screen_iter`` scoring steps; only the ``n_keep``
+    highest (and every start that converged already) continue to ``max_iter`` steps; the
+    others keep their screened end (``screen_iter=None`` continues all).
 
     Two ends count as the same maximum when their log-likelihoods differ by less than
     ``same_tol * max(1, |loglik|)``.
     """
-    from wavetrail.sem.optimise import fit_batch
-
     cm = spec.compile()
     rng = np.random.default_rng(seed)
     base_starts = [np.asarray(s, dtype=float) for s in starts if s is not None]
-    rows = list(base_starts)
-    if n_random:
-        for s in base_starts:
-            rows.extend(perturbed_starts(spec, s, n_random, rng, spread=spread))
-    S = np.vstack(rows)
-    many = stats.take(np.zeros(len(S), dtype=int))
-    bf = fit_batch(spec, many, start=S, max_iter=max_iter, tol=TOL, base=base)
-    ll = np.where(np.isfinite(bf.loglik), bf.loglik, -np.inf)
-    order = np.argsort(-ll, kind="stable")
-    picked: list[int] = []
-    for i in order:
-        if not np.isfinite(ll[i]):
-            break
-        if all(abs(ll[i] - ll[j]) > 1e-4 * max(1.0, abs(ll[j])) for j in picked):
-            picked.append(int(i))
-        if len(picked) >= n_polish:
-            break
-    final = ll.copy()
-    conv = bf.converged & np.isfinite(ll)
-    ends = []
-    for i in picked:
-        r = polish(cm, bf.theta[i], stats, base=base, tol=tol)
-        if np.isfinite(r.loglik) and r.loglik >= ll[i]:
-            final[i], conv[i] = r.loglik, r.converged
-            ends.append(r)
+    nb = len(base_starts)
+    pert = [perturbed_starts(spec, s, n_random, rng, spread=spread) for s in base_starts] if n_random else []
+    m1 = n_random if first_round is None else min(int(first_round), n_random)
+    rounds = [base_starts + [r for P in pert for r in P[:m1]]]
+    if n_random > m1:
+        rounds.append([r for P in pert for r in P[m1:]])
+    S = np.zeros((0, cm.k))
+    theta = np.zeros((0, cm.k))
+    ll = np.zeros(0)
+    final = np.zeros(0)
+    conv = np.zeros(0, dtype=bool)
+    polished: set[int] = set()
+    ends: list[Polished] = []
+    for rnd, rows in enumerate(rounds):
+        R = np.vstack(rows)
+        bf = _screen(spec, stats, R, max_iter, base, screen_iter, n_keep)
+        l_r = np.where(np.isfinite(bf.loglik), bf.loglik, -np.inf)
+        S = np.vstack([S, R])
+        theta = np.vstack([theta, bf.theta])
+        ll = np.concatenate([ll, l_r])
+        final = np.concatenate([final, l_r])
+        conv = np.concatenate([conv, bf.converged & np.isfinite(l_r)])
+        # polish the best distinct ends not polished yet (ends within 1e-4 of a polished one are that one)
+        order = np.argsort(-ll, kind="stable")
+        picked = sorted(polished)
+        cap = max(n_polish, len(polished) + 2)  # a later round always polishes its best two new ends
+        for i in order:
+            if not np.isfinite(ll[i]) or len(picked) >= cap:
+                break
+            if all(abs(ll[i] - ll[j]) > 1e-4 * max(1.0, abs(ll[j])) for j in picked):
+                picked.append(int(i))
+        for i in picked:
+            if i in polished:
+                continue
+            polished.add(i)
+            r = polish(cm, theta[i], stats, base=base, tol=tol)
+            if np.isfinite(r.loglik) and r.loglik >= ll[i]:
+                final[i], conv[i] = r.loglik, r.converged
+                ends.append(r)
+        if rnd == 0 and len(rounds) > 1:
+            got = final[conv]
+            if len(got) >= 3 and got.max() - got.min() <= max(same_tol * max(1.0, abs(got.max())), 1e-3) \
+                    and np.isfinite(ll).all():
+                break
     if not ends:
         ends = [Polished(S[0], -np.inf, False, np.inf, 0)]
     ends.sort(key=lambda r: -r.loglik if np.isfinite(r.loglik) else np.inf)
