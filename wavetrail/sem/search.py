@@ -39,6 +39,15 @@ TOL = 1e-10
 REL_TOL = 1e-11
 
 
+#: perturbations of each start fitted in the first round of a multistart search (None: one round)
+FIRST_ROUND = 2
+#: scoring steps every start takes before the best continue (None: all continue)
+SCREEN_ITER = 8
+#: starts that continue after the screening steps
+N_KEEP = 8
+_SETTING = object()  # a multistart argument left at the module setting above
+
+
 def decrement_limit(loglik, tol=TOL, rel_tol=REL_TOL):
     """The largest Newton decrement counted as converged at this log-likelihood."""
     return max(tol, rel_tol * abs(float(loglik)))
@@ -188,7 +197,8 @@ def _screen(spec, stats, R, max_iter, base, screen_iter, n_keep):
 
 
 def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6, base=None,
-               same_tol=1e-6, spread=1.0, tol=TOL, first_round=2, screen_iter=8, n_keep=8) -> Search:
+               same_tol=1e-6, spread=1.0, tol=TOL, first_round=_SETTING, screen_iter=_SETTING,
+               n_keep=_SETTING) -> Search:
     """Fit from every start in ``starts`` (list of (k,) arrays, the first is the main one) and
     from ``n_random`` seeded perturbations of each, then polish the best distinct ends.
 
@@ -206,6 +216,9 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
     Two ends count as the same maximum when their log-likelihoods differ by less than
     ``same_tol * max(1, |loglik|)``.
     """
+    first_round = FIRST_ROUND if first_round is _SETTING else first_round
+    screen_iter = SCREEN_ITER if screen_iter is _SETTING else screen_iter
+    n_keep = N_KEEP if n_keep is _SETTING else n_keep
     cm = spec.compile()
     rng = np.random.default_rng(seed)
     base_starts = [np.asarray(s, dtype=float) for s in starts if s is not None]
