@@ -61,6 +61,13 @@ def panels(quick=False):
 
 
 def estimates_only(w, t, shape):
+    from wavetrail.sem.fitting import one_blas_thread
+
+    with one_blas_thread():  # as the full fit
+        return _estimates_only(w, t, shape)
+
+
+def _estimates_only(w, t, shape):
     from wavetrail.growth import growth_spec
     from wavetrail.sem import SuffStats, fit_batch
     from wavetrail.sem.search import polish

@@ -45,6 +45,8 @@ FIRST_ROUND = 2
 SCREEN_ITER = 8
 #: starts that continue after the screening steps
 N_KEEP = 8
+#: Newton steps for every polished end after the first (continued while it is the best)
+SHORT_POLISH = 15
 _SETTING = object()  # a multistart argument left at the module setting above
 
 
@@ -213,6 +215,10 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
     highest (and every start that converged already) continue to ``max_iter`` steps; the
     others keep their screened end (``screen_iter=None`` continues all).
 
+    Polishing: the best screened end gets up to 100 Newton steps, each further distinct
+    end ``SHORT_POLISH``, continued to 100 only while it is above every maximum found; an
+    end still short of convergence then is counted, but not as a converged maximum.
+
     Two ends count as the same maximum when their log-likelihoods differ by less than
     ``same_tol * max(1, |loglik|)``.
     """
@@ -257,7 +263,15 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
             if i in polished:
                 continue
             polished.add(i)
-            r = polish(cm, theta[i], stats, base=base, tol=tol)
+            top = max((e.loglik for e in ends), default=-np.inf)
+            # the first end is polished fully; later ones get a short budget, continued
+            # only while they are above every maximum found so far (a new best)
+            r = polish(cm, theta[i], stats, base=base, tol=tol, max_iter=100 if not ends else SHORT_POLISH)
+            if ends and not r.converged and np.isfinite(r.loglik) and r.loglik > top:
+                more = polish(cm, r.theta, stats, base=base, tol=tol, max_iter=100 - SHORT_POLISH)
+                if more.loglik >= r.loglik:
+                    more.n_iter += r.n_iter
+                    r = more
             if np.isfinite(r.loglik) and r.loglik >= ll[i]:
                 final[i], conv[i] = r.loglik, r.converged
                 ends.append(r)
