@@ -206,9 +206,10 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
 
     The starts are fitted in two rounds, each by one batched scoring run of ``max_iter``
     steps: first the given starts with the first ``first_round`` perturbations of each,
-    then the other perturbations. The second round is skipped when every start of the
-    first that converged (after polishing) reached the same maximum and at least three
-    did; otherwise all ``len(starts) * (1 + n_random)`` starts are fitted, the same set
+    then the other perturbations. The second round is skipped when at least three starts
+    of the first ended with a finite log-likelihood and every distinct end among them
+    (screened log-likelihoods 1e-4 apart), once polished, converged to the same maximum;
+    otherwise all ``len(starts) * (1 + n_random)`` starts are fitted, the same set
     (same seed, same draws) as in one round. ``first_round=None`` fits all in one round.
 
     Screening: every start takes ``screen_iter`` scoring steps; only the ``n_keep``
@@ -276,9 +277,14 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
                 final[i], conv[i] = r.loglik, r.converged
                 ends.append(r)
         if rnd == 0 and len(rounds) > 1:
-            got = final[conv]
-            if len(got) >= 3 and got.max() - got.min() <= max(same_tol * max(1.0, abs(got.max())), 1e-3) \
-                    and np.isfinite(ll).all():
+            # every finite end of the round is represented by a polished one (same screened
+            # log-likelihood to 1e-4), every polished end converged, and all reached one maximum
+            pol = np.array(sorted(polished), dtype=int)
+            fin = np.nonzero(np.isfinite(ll))[0]
+            covered = all(np.any(np.abs(ll[i] - ll[pol]) <= 1e-4 * np.maximum(1.0, np.abs(ll[pol]))) for i in fin)
+            got = final[pol]
+            if len(fin) >= 3 and covered and conv[pol].all() and \
+                    got.max() - got.min() <= max(same_tol * max(1.0, abs(got.max())), 1e-3):
                 break
     if not ends:
         ends = [Polished(S[0], -np.inf, False, np.inf, 0)]
