@@ -19,6 +19,7 @@ import numpy as np
 
 from wavetrail.errors import ModelError
 from wavetrail.sem.spec import ModelSpec
+from wavetrail.sem.fitting import single_threaded as _single_threaded
 
 SHAPES = ("linear", "quadratic", "basis")
 RESIDUALS = ("free", "equal")
@@ -131,6 +132,7 @@ class GrowthFit:
                 f"loglik={self.fit.get('loglik'):.3f})")
 
 
+@_single_threaded
 def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, information="observed",
                where="data", max_iter=500, search="auto", seed=0, bounded=False, robust=False):
     """Fit a latent growth curve model by ML, FIML for missing waves.

@@ -41,70 +41,196 @@ def _loglik(stats, mu, sigma, b=0):
     return float(ll)
 
 
+class Saturated(tuple):
+    """``(mu, sigma, loglik, n_iter, converged)``; ``.note`` says why it is not available (or "")."""
+
+    note: str = ""
+
+    def __new__(cls, mu, sigma, loglik, n_iter, converged, note=""):
+        out = super().__new__(cls, (mu, sigma, loglik, n_iter, converged))
+        out.note = note
+        return out
+
+
+#: a sample covariance counts as singular when its smallest eigenvalue, as a correlation
+#: matrix, is at most this
+SINGULAR = 1e-10
+
+
+def missing_maximum(stats, b=0):
+    """Why the saturated likelihood has no maximum, or ``""`` when this check finds no reason.
+
+    For the people who observe at least the variables ``o`` of a pattern, the
+    saturated likelihood grows without bound when their values on ``o`` lie in an
+    affine hyperplane (their sample covariance on ``o`` is singular; always so
+    with ``|o|`` people or fewer): the covariance can collapse along the normal
+    of that plane, which raises their log-likelihood without limit while every
+    pattern that misses one of ``o`` keeps a non-singular covariance. Any such
+    set of variables has one pattern's observed set as a witness, so checking
+    each pattern suffices. (Sufficient for non-existence; the iterations below
+    still guard against other degenerate cases.)
+    """
+    masks = stats.masks
+    for j, mask in enumerate(masks):
+        if stats.n[b, j] <= 0:
+            continue
+        o = np.nonzero(mask)[0]
+        cover = np.nonzero((masks[:, o].all(axis=1)) & (stats.n[b] > 0))[0]
+        n = float(stats.n[b, cover].sum())
+        names = "all variables" if len(o) == stats.p else f"variables {', '.join(str(i + 1) for i in o)}"
+        if n <= len(o):
+            return (f"only {int(n)} people observe {names} ({len(o)} variables): their sample covariance is "
+                    "not positive definite, so the saturated model's likelihood has no maximum")
+        s = stats.sums[b, cover][:, o].sum(axis=0)
+        C = stats.cross[b, cover][:, o][:, :, o].sum(axis=0)
+        m = s / n
+        S = C / n - np.outer(m, m)
+        d = np.sqrt(np.maximum(np.diag(S), 0))
+        if (d <= 1e-12 * max(np.abs(m).max(), 1.0)).any():
+            return (f"a variable is constant among the {int(n)} people who observe {names}: their sample "
+                    "covariance is not positive definite, so the saturated model's likelihood has no maximum")
+        ev = np.linalg.eigvalsh(S / np.outer(d, d))
+        if ev[0] <= SINGULAR:
+            return (f"the sample covariance of the {int(n)} people who observe {names} is not positive "
+                    "definite (singular), so the saturated model's likelihood has no maximum")
+    return ""
+
+
+def _em_step(stats, b, mu, sigma, N):
+    """One EM update of (mu, sigma) from the pattern sufficient statistics."""
+    p = stats.p
+    T1 = np.zeros(p)
+    T2 = np.zeros((p, p))
+    for j, mask in enumerate(stats.masks):
+        n = stats.n[b, j]
+        if n <= 0:
+            continue
+        o = np.nonzero(mask)[0]
+        u = np.nonzero(~mask)[0]
+        s = stats.sums[b, j]
+        C = stats.cross[b, j]
+        if len(u) == 0:
+            T1 += s
+            T2 += C
+            continue
+        Soo = sigma[np.ix_(o, o)]
+        Bmat = np.linalg.solve(Soo, sigma[np.ix_(o, u)]).T  # (u, o) regression of u on o
+        c = mu[u] - Bmat @ mu[o]
+        resid = sigma[np.ix_(u, u)] - Bmat @ sigma[np.ix_(o, u)]
+        so = s[o]
+        Coo = C[np.ix_(o, o)]
+        su = n * c + Bmat @ so  # expected sum of missing entries
+        Cuo = np.outer(c, so) + Bmat @ Coo
+        Cuu = n * resid + n * np.outer(c, c) + np.outer(c, so @ Bmat.T) + np.outer(Bmat @ so, c) + Bmat @ Coo @ Bmat.T
+        T1[o] += so
+        T1[u] += su
+        T2[np.ix_(o, o)] += Coo
+        T2[np.ix_(u, o)] += Cuo
+        T2[np.ix_(o, u)] += Cuo.T
+        T2[np.ix_(u, u)] += Cuu
+    mu = T1 / N
+    sigma = T2 / N - np.outer(mu, mu)
+    return mu, 0.5 * (sigma + sigma.T)
+
+
+def _pack(mu, sigma):
+    iu = np.triu_indices(len(mu))
+    return np.concatenate([mu, sigma[iu]])
+
+
+def _unpack(x, p):
+    iu = np.triu_indices(p)
+    sigma = np.zeros((p, p))
+    sigma[iu] = x[p:]
+    sigma = sigma + np.triu(sigma, 1).T
+    return x[:p].copy(), sigma
+
+
 def saturated(stats, b=0, max_iter=5000, tol=1e-11):
-    """ML mean and covariance of one sample (EM when entries are missing).
+    """ML mean and covariance of one sample.
+
+    Complete data: the sample moments. Missing entries: Fisher scoring (up to
+    ``MOMENT_PATH_MAX_P`` variables), else EM accelerated by SQUAREM (Varadhan &
+    Roland 2008, Scandinavian Journal of Statistics 35(2); the S3 step length with
+    a fall-back to the plain EM step whenever the extrapolation lowers the
+    log-likelihood), stopped when the log-likelihood changes by less than
+    ``tol * (1 + |loglik|)`` over one cycle. When the likelihood has no maximum
+    (:func:`missing_maximum`, or the covariance collapses while iterating) the
+    log-likelihood is NaN and ``.note`` says why.
 
     Returns
     -------
-    mu (p,), sigma (p, p), loglik, n_iter, converged
+    :class:`Saturated`: mu (p,), sigma (p, p), loglik, n_iter, converged (unpacks as a 5-tuple)
     """
     p = stats.p
     N = stats.n[b].sum()
     full = stats.masks.all(axis=1)
+    why = missing_maximum(stats, b)
     if full.all():
         mu = stats.sums[b].sum(axis=0) / N
         sigma = stats.cross[b].sum(axis=0) / N - np.outer(mu, mu)
-        return mu, sigma, _loglik(stats, mu, sigma, b), 0, True
+        if why:
+            return Saturated(mu, sigma, np.nan, 0, False, why)
+        return Saturated(mu, sigma, _loglik(stats, mu, sigma, b), 0, True)
     mean, cov, _ = stats.pairwise_moments()
     mu, sigma = mean[b].copy(), cov[b].copy()
+    if why:
+        return Saturated(mu, sigma, np.nan, 0, False, why)
     ev, vec = np.linalg.eigh(sigma)
     sigma = (vec * np.maximum(ev, 1e-3 * max(ev.max(), 1e-12))) @ vec.T
-    if p <= MOMENT_PATH_MAX_P:
-        scored = _by_scoring(stats, b, mu, sigma, tol)
-        if scored is not None:
-            return scored
+    em = _squarem(stats, b, mu, sigma, N, max_iter, tol)
+    if p <= MOMENT_PATH_MAX_P and not em.note.startswith("the saturated model's covariance collapses"):
+        # a few scoring steps from the EM end: the accuracy of the scoring test (decrement <= 1e-10)
+        start = (em[0], em[1]) if em[4] else (mu, sigma)
+        scored = _by_scoring(stats, b, *start, tol)
+        if scored is not None and not (em[4] and scored[2] < em[2]):
+            return Saturated(scored[0], scored[1], scored[2], em[3] + scored[3], True)
+    return em
+
+
+def _collapsed(sigma):
+    d = np.sqrt(np.maximum(np.diag(sigma), 1e-300))
+    return np.linalg.eigvalsh(sigma / np.outer(d, d))[0] <= SINGULAR
+
+
+def _squarem(stats, b, mu, sigma, N, max_iter, tol):
+    """EM with SQUAREM extrapolation (two EM steps and one extrapolated point per cycle)."""
+    p = stats.p
+    x = _pack(mu, sigma)
     ll_old = _loglik(stats, mu, sigma, b)
+
+    def F(x):
+        return _pack(*_em_step(stats, b, *_unpack(x, p), N))
+
     it, ok = 0, False
-    for it in range(1, max_iter + 1):
-        T1 = np.zeros(p)
-        T2 = np.zeros((p, p))
-        for j, mask in enumerate(stats.masks):
-            n = stats.n[b, j]
-            if n <= 0:
-                continue
-            o = np.nonzero(mask)[0]
-            u = np.nonzero(~mask)[0]
-            s = stats.sums[b, j]
-            C = stats.cross[b, j]
-            if len(u) == 0:
-                T1 += s
-                T2 += C
-                continue
-            Soo = sigma[np.ix_(o, o)]
-            Bmat = np.linalg.lstsq(Soo, sigma[np.ix_(o, u)], rcond=None)[0].T  # (u, o) regression of u on o
-            c = mu[u] - Bmat @ mu[o]
-            resid = sigma[np.ix_(u, u)] - Bmat @ sigma[np.ix_(o, u)]
-            so = s[o]
-            Coo = C[np.ix_(o, o)]
-            su = n * c + Bmat @ so  # expected sum of missing entries
-            Cuo = np.outer(c, so) + Bmat @ Coo
-            Cuu = n * resid + n * np.outer(c, c) + np.outer(c, so @ Bmat.T) + np.outer(Bmat @ so, c) + Bmat @ Coo @ Bmat.T
-            T1[o] += so
-            T1[u] += su
-            T2[np.ix_(o, o)] += Coo
-            T2[np.ix_(u, o)] += Cuo
-            T2[np.ix_(o, u)] += Cuo.T
-            T2[np.ix_(u, u)] += Cuu
-        mu = T1 / N
-        sigma = T2 / N - np.outer(mu, mu)
-        sigma = 0.5 * (sigma + sigma.T)
+    while it < max_iter:
+        x1 = F(x)
+        x2 = F(x1)
+        it += 2
+        r = x1 - x
+        v = x2 - x1 - r
+        nv = float(np.sqrt(v @ v))
+        cand = x2
+        if nv > 0:
+            alpha = -max(1.0, float(np.sqrt(r @ r)) / nv)  # S3 step length, at least a plain EM step
+            y = x - 2 * alpha * r + alpha * alpha * v
+            try:
+                y = F(y)  # one EM step from the extrapolated point keeps it stable
+                it += 1
+                if _loglik(stats, *_unpack(y, p), b) >= _loglik(stats, *_unpack(x2, p), b):
+                    cand = y
+            except np.linalg.LinAlgError:
+                pass
+        mu, sigma = _unpack(cand, p)
         ll = _loglik(stats, mu, sigma, b)
+        x = cand
+        if not np.isfinite(ll) or _collapsed(sigma):
+            return Saturated(mu, sigma, np.nan, it, False, "the saturated model's covariance collapses while "
+                             "iterating: its likelihood has no maximum")
         if abs(ll - ll_old) < tol * (1.0 + abs(ll)):
-            ok = True
-            ll_old = ll
-            break
+            return Saturated(mu, sigma, ll, it, True)
         ll_old = ll
-    return mu, sigma, ll_old, it, ok
+    return Saturated(mu, sigma, ll_old, it, False, f"EM did not converge in {max_iter} iterations")
 
 
 def _saturated_spec(p):
@@ -129,7 +255,7 @@ def _by_scoring(stats, b, mu, sigma, tol):
     for e in cm.entries:
         start[e.param] = mu[e.row] if e.kind == "intercept" else sigma[e.row, e.col]
     one = stats if stats.B == 1 else stats.take(np.array([b]))
-    bf = fit_batch(spec, one, start=start, max_iter=200, tol=min(tol, 1e-10))
+    bf = fit_batch(spec, one, start=start, max_iter=200, tol=min(tol, 1e-12))
     if not (bf.converged[0] and np.isfinite(bf.loglik[0])):
         return None
     m, s = spec.implied(bf.theta[0])

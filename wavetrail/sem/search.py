@@ -39,6 +39,17 @@ TOL = 1e-10
 REL_TOL = 1e-11
 
 
+#: perturbations of each start fitted in the first round of a multistart search (None: one round)
+FIRST_ROUND = 2
+#: scoring steps every start takes before the best continue (None: all continue)
+SCREEN_ITER = 8
+#: starts that continue after the screening steps
+N_KEEP = 8
+#: Newton steps for every polished end after the first (continued while it is the best)
+SHORT_POLISH = 15
+_SETTING = object()  # a multistart argument left at the module setting above
+
+
 def decrement_limit(loglik, tol=TOL, rel_tol=REL_TOL):
     """The largest Newton decrement counted as converged at this log-likelihood."""
     return max(tol, rel_tol * abs(float(loglik)))
@@ -164,44 +175,117 @@ def perturbed_starts(spec, theta, n, rng, spread=0.5):
     return out
 
 
+def _screen(spec, stats, R, max_iter, base, screen_iter, n_keep):
+    """Scoring from every row of ``R``: ``screen_iter`` steps for all, ``max_iter`` for the best ``n_keep``."""
+    from wavetrail.sem.optimise import BatchFit, _take_base, fit_batch
+
+    many = stats.take(np.zeros(len(R), dtype=int))
+    if screen_iter is None or screen_iter >= max_iter or len(R) <= n_keep:
+        return fit_batch(spec, many, start=R, max_iter=max_iter, tol=TOL, base=base)
+    bf = fit_batch(spec, many, start=R, max_iter=screen_iter, tol=TOL, base=base)
+    ll = np.where(np.isfinite(bf.loglik), bf.loglik, -np.inf)
+    go = np.argsort(-ll, kind="stable")[:n_keep]
+    go = np.array(sorted(i for i in go if np.isfinite(ll[i]) and not bf.converged[i]), dtype=int)
+    if len(go) == 0:
+        return bf
+    more = fit_batch(spec, stats.take(np.zeros(len(go), dtype=int)), start=bf.theta[go],
+                     max_iter=max_iter - screen_iter, tol=TOL, base=_take_base(base, go))
+    theta, loglik, conv = bf.theta.copy(), bf.loglik.copy(), bf.converged.copy()
+    iters, dec = bf.iterations.copy(), bf.decrement.copy()
+    theta[go], loglik[go], conv[go] = more.theta, more.loglik, more.converged
+    iters[go] += more.iterations
+    dec[go] = more.decrement
+    return BatchFit(theta, loglik, conv, int(iters.max()), iters, dec)
+
+
 def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6, base=None,
-               same_tol=1e-6, spread=1.0, tol=TOL) -> Search:
+               same_tol=1e-6, spread=1.0, tol=TOL, first_round=_SETTING, screen_iter=_SETTING,
+               n_keep=_SETTING) -> Search:
     """Fit from every start in ``starts`` (list of (k,) arrays, the first is the main one) and
     from ``n_random`` seeded perturbations of each, then polish the best distinct ends.
+
+    The starts are fitted in two rounds, each by one batched scoring run of ``max_iter``
+    steps: first the given starts with the first ``first_round`` perturbations of each,
+    then the other perturbations. The second round is skipped when at least three starts
+    of the first ended with a finite log-likelihood and every distinct end among them
+    (screened log-likelihoods 1e-4 apart), once polished, converged to the same maximum;
+    otherwise all ``len(starts) * (1 + n_random)`` starts are fitted, the same set
+    (same seed, same draws) as in one round. ``first_round=None`` fits all in one round.
+
+    Screening: every start takes ``screen_iter`` scoring steps; only the ``n_keep``
+    highest (and every start that converged already) continue to ``max_iter`` steps; the
+    others keep their screened end (``screen_iter=None`` continues all).
+
+    Polishing: the best screened end gets up to 100 Newton steps, each further distinct
+    end ``SHORT_POLISH``, continued to 100 only while it is above every maximum found; an
+    end still short of convergence then is counted, but not as a converged maximum.
 
     Two ends count as the same maximum when their log-likelihoods differ by less than
     ``same_tol * max(1, |loglik|)``.
     """
-    from wavetrail.sem.optimise import fit_batch
-
+    first_round = FIRST_ROUND if first_round is _SETTING else first_round
+    screen_iter = SCREEN_ITER if screen_iter is _SETTING else screen_iter
+    n_keep = N_KEEP if n_keep is _SETTING else n_keep
     cm = spec.compile()
     rng = np.random.default_rng(seed)
     base_starts = [np.asarray(s, dtype=float) for s in starts if s is not None]
-    rows = list(base_starts)
-    if n_random:
-        for s in base_starts:
-            rows.extend(perturbed_starts(spec, s, n_random, rng, spread=spread))
-    S = np.vstack(rows)
-    many = stats.take(np.zeros(len(S), dtype=int))
-    bf = fit_batch(spec, many, start=S, max_iter=max_iter, tol=TOL, base=base)
-    ll = np.where(np.isfinite(bf.loglik), bf.loglik, -np.inf)
-    order = np.argsort(-ll, kind="stable")
-    picked: list[int] = []
-    for i in order:
-        if not np.isfinite(ll[i]):
-            break
-        if all(abs(ll[i] - ll[j]) > 1e-4 * max(1.0, abs(ll[j])) for j in picked):
-            picked.append(int(i))
-        if len(picked) >= n_polish:
-            break
-    final = ll.copy()
-    conv = bf.converged & np.isfinite(ll)
-    ends = []
-    for i in picked:
-        r = polish(cm, bf.theta[i], stats, base=base, tol=tol)
-        if np.isfinite(r.loglik) and r.loglik >= ll[i]:
-            final[i], conv[i] = r.loglik, r.converged
-            ends.append(r)
+    nb = len(base_starts)
+    pert = [perturbed_starts(spec, s, n_random, rng, spread=spread) for s in base_starts] if n_random else []
+    m1 = n_random if first_round is None else min(int(first_round), n_random)
+    rounds = [base_starts + [r for P in pert for r in P[:m1]]]
+    if n_random > m1:
+        rounds.append([r for P in pert for r in P[m1:]])
+    S = np.zeros((0, cm.k))
+    theta = np.zeros((0, cm.k))
+    ll = np.zeros(0)
+    final = np.zeros(0)
+    conv = np.zeros(0, dtype=bool)
+    polished: set[int] = set()
+    ends: list[Polished] = []
+    for rnd, rows in enumerate(rounds):
+        R = np.vstack(rows)
+        bf = _screen(spec, stats, R, max_iter, base, screen_iter, n_keep)
+        l_r = np.where(np.isfinite(bf.loglik), bf.loglik, -np.inf)
+        S = np.vstack([S, R])
+        theta = np.vstack([theta, bf.theta])
+        ll = np.concatenate([ll, l_r])
+        final = np.concatenate([final, l_r])
+        conv = np.concatenate([conv, bf.converged & np.isfinite(l_r)])
+        # polish the best distinct ends not polished yet (ends within 1e-4 of a polished one are that one)
+        order = np.argsort(-ll, kind="stable")
+        picked = sorted(polished)
+        cap = max(n_polish, len(polished) + 2)  # a later round always polishes its best two new ends
+        for i in order:
+            if not np.isfinite(ll[i]) or len(picked) >= cap:
+                break
+            if all(abs(ll[i] - ll[j]) > 1e-4 * max(1.0, abs(ll[j])) for j in picked):
+                picked.append(int(i))
+        for i in picked:
+            if i in polished:
+                continue
+            polished.add(i)
+            top = max((e.loglik for e in ends), default=-np.inf)
+            # the first end is polished fully; later ones get a short budget, continued
+            # only while they are above every maximum found so far (a new best)
+            r = polish(cm, theta[i], stats, base=base, tol=tol, max_iter=100 if not ends else SHORT_POLISH)
+            if ends and not r.converged and np.isfinite(r.loglik) and r.loglik > top:
+                more = polish(cm, r.theta, stats, base=base, tol=tol, max_iter=100 - SHORT_POLISH)
+                if more.loglik >= r.loglik:
+                    more.n_iter += r.n_iter
+                    r = more
+            if np.isfinite(r.loglik) and r.loglik >= ll[i]:
+                final[i], conv[i] = r.loglik, r.converged
+                ends.append(r)
+        if rnd == 0 and len(rounds) > 1:
+            # every finite end of the round is represented by a polished one (same screened
+            # log-likelihood to 1e-4), every polished end converged, and all reached one maximum
+            pol = np.array(sorted(polished), dtype=int)
+            fin = np.nonzero(np.isfinite(ll))[0]
+            covered = all(np.any(np.abs(ll[i] - ll[pol]) <= 1e-4 * np.maximum(1.0, np.abs(ll[pol]))) for i in fin)
+            got = final[pol]
+            if len(fin) >= 3 and covered and conv[pol].all() and \
+                    got.max() - got.min() <= max(same_tol * max(1.0, abs(got.max())), 1e-3):
+                break
     if not ends:
         ends = [Polished(S[0], -np.inf, False, np.inf, 0)]
     ends.sort(key=lambda r: -r.loglik if np.isfinite(r.loglik) else np.inf)
