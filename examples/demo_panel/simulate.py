@@ -379,6 +379,8 @@ forest:
   predictors: wave1           # the 36 first-wave predictors and age
   trees: {trees}                  # small, so that the demo builds in minutes
   shards: {shards}                   # two jobs: one per core on a laptop
+  holdout: 0.3                # 30% of the people kept out of the forest to confirm what it finds
+  confirm: 6                  # the six most important predictors, tested on the held-out people
   threads: 1
   runtime: 60
   mem_mb: 4000
