@@ -110,3 +110,34 @@ def test_conditional_model_of_the_stage_recovers_the_truth_and_is_byte_stable(tm
         write_table(tmp_path / f"a{k}.csv", first)
         write_table(tmp_path / f"b{k}.csv", second)
         assert (tmp_path / f"a{k}.csv").read_bytes() == (tmp_path / f"b{k}.csv").read_bytes()
+
+
+def _write(root, name, df):
+    path = root / name
+    path.parent.mkdir(parents=True, exist_ok=True)
+    write_table(path, df)
+
+
+def test_report_names_exploration_and_confirmation_and_what_was_confirmed(tmp_path):
+    from wavetrail.report import open_report
+    from wavetrail.stages.forest import CONFIRMATION_TEST_COLUMNS
+
+    eff = pd.DataFrame([["y", "linear-free conditional (held-out people)", p, t, lv, ref, f, 0.0012, 0.0004, 3.0,
+                         0.0027, 0.2]
+                        for p, t, lv, ref in [("conflict", "conflict", "", ""), ("rules", "rules[strict]", "strict", "none")]
+                        for f in ("intercept", "slope")], columns=CONDITIONAL_COLUMNS)
+    rows = [["y", "linear-free conditional (held-out people)", "conflict", 1, "number", 2, 14.2, 2, 0.0008, 0.0016,
+             "yes", 120, 3, 125, -800.5, True, True, ""],
+            ["y", "linear-free conditional (held-out people)", "rules", 2, "category", 2, 1.1, 2, 0.58, 0.58, "no",
+             120, 3, 125, -800.5, True, True, ""]]
+    _write(tmp_path, "results/forest/confirmation.csv", eff)
+    _write(tmp_path, "results/forest/confirmation_tests.csv", pd.DataFrame(rows, columns=CONFIRMATION_TEST_COLUMNS))
+    html = open_report(tmp_path, {}, {"forest": {"enabled": True}})._confirmation()
+    assert "The forest above is exploration: 125 people were held out" in html
+    assert "The held-out model below is confirmation" in html and "not causal effects" in html
+    assert "Confirmed in the held-out people: conflict." in html and "Not confirmed: rules." in html
+    assert "rules: strict vs none" in html and "0.0012" in html
+    assert "3 with outcome data left out because a predictor value is missing" in html
+    _write(tmp_path, "results/forest/confirmation_tests.csv", pd.DataFrame(columns=CONFIRMATION_TEST_COLUMNS))
+    html = open_report(tmp_path, {}, {"forest": {"enabled": True}})._confirmation()
+    assert "No people were held out of the forest" in html and "remain exploratory" in html

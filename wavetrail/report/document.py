@@ -480,7 +480,7 @@ class Report:
                     term = self.study.label(r["predictor"])
                     if isinstance(r.get("level"), str) and r["level"]:
                         term += f": {r['level']} vs {r['reference']}"
-                    rows.append([term, str(r["factor"]), fmt_number(r["estimate"]), fmt_number(r["se"]),
+                    rows.append([term, str(r["factor"]), _sig(r["estimate"]), _sig(r["se"]),
                                  fmt_number(r["z"]), fmt_p(r["p"]), fmt_number(r.get("std"))])
                 html.append(self._table(Table(
                     f"{label}: growth factors regressed on the predictors ({part['model'].iloc[0]})",
@@ -518,8 +518,8 @@ class Report:
                 "here: they remain exploratory until tested in other data.")))
         held = tests["held_out"].dropna()
         n_held = fmt_count(held.iloc[0]) if len(held) else MISSING
-        intro = (f"The forest above is exploration: it was grown without {n_held} people held out at random "
-                 "(seeded) before it saw the data. The held-out model below is confirmation: the forest's top "
+        intro = (f"The forest above is exploration: {n_held} people were held out at random (seeded) before it "
+                 "was grown, and it never saw them. The held-out model below is confirmation: the forest's top "
                  "predictors are tested in a conditional growth model fitted to those held-out people alone. A "
                  "predictor is called confirmed when the joint Wald test of all its paths rejects at .05 after "
                  "Holm's adjustment over the predictors tested. These are associations, not causal effects, and "
@@ -527,7 +527,13 @@ class Report:
                  "trajectories.")
         if (tests["predictor"].fillna("") == "").all():
             return "<h3>Held-out confirmation</h3>" + _p(esc(intro)) + _p(esc(str(tests["note"].iloc[0]) + "."))
-        return ("<h3>Held-out confirmation</h3>" + _p(esc(intro))
+        verdicts = []
+        for word, text in (("yes", "Confirmed in the held-out people"), ("no", "Not confirmed"),
+                           ("not tested", "Could not be tested (see the notes; not evidence of no association)")):
+            names = [self.study.label(n) for n in tests.loc[tests["confirmed"].astype(str) == word, "predictor"]]
+            if names:
+                verdicts.append(f"{text}: {'; '.join(names)}.")
+        return ("<h3>Held-out confirmation</h3>" + _p(esc(intro)) + _p(esc(" ".join(verdicts)))
                 + self._conditional("confirmation", "confirmation_tests", "confirmation"))
 
     def _fit(self, fit: pd.DataFrame) -> str:
