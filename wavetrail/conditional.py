@@ -175,10 +175,9 @@ def fit_conditional(wide: pd.DataFrame, time_scores, predictors: pd.DataFrame, s
     def test_rows(stat=None):
         rows = []
         for name in names:
-            kind = "category" if (terms["predictor"] == name).any() and (
-                terms.loc[terms["predictor"] == name, "kind"] == "category").all() else "number"
-            if name in (levels or {}) or isinstance(predictors[name].dtype, pd.CategoricalDtype):
-                kind = "category"
+            col = predictors[name]
+            kind = ("category" if name in (levels or {}) or isinstance(col.dtype, pd.CategoricalDtype)
+                    or not pd.api.types.is_numeric_dtype(col) else "number")
             row = {"predictor": name, "kind": kind, "paths": 0, "wald": np.nan, "df": np.nan, "p": np.nan,
                    "n": len(wide), "excluded": excluded, "note": ""}
             if name not in tested:
