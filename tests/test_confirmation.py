@@ -141,3 +141,30 @@ def test_report_names_exploration_and_confirmation_and_what_was_confirmed(tmp_pa
     _write(tmp_path, "results/forest/confirmation_tests.csv", pd.DataFrame(columns=CONFIRMATION_TEST_COLUMNS))
     html = open_report(tmp_path, {}, {"forest": {"enabled": True}})._confirmation()
     assert "No people were held out of the forest" in html and "remain exploratory" in html
+
+
+@pytest.mark.slow
+def test_workflow_fits_the_conditional_model_and_reports_it(tmp_path):
+    """A small project through the whole build: growth.predictors -> conditional tables -> report."""
+    from test_outcome_settings import CONFIG, panel_frame
+
+    from wavetrail.build import build_project
+    from wavetrail.project import new_project
+
+    root = new_project(tmp_path / "p", title="Predictors of growth")
+    (root / "config" / "codebook.yaml").write_text(CODEBOOK, encoding="utf-8")
+    config = CONFIG.replace("  residuals: equal\n", "  residuals: equal\n  predictors: [sex, sport]\n")
+    config = config.replace("forest:\n", "forest:\n  enabled: false\n")
+    (root / "config" / "config.yaml").write_text(config, encoding="utf-8")
+    frame = panel_frame(n=120)
+    frame.loc[frame["pid"].isin(frame["pid"].unique()[:2]), "sport"] = np.nan  # two people without sport
+    frame.to_csv(root / "data" / "raw" / "panel.csv", index=False)
+    build_project(root, cores=1)
+    tests = pd.read_csv(root / "results/growth/conditional_tests.csv")
+    assert list(tests["predictor"]) == ["sex", "sport"] and set(tests["outcome"]) == {"weight"}
+    assert (tests["excluded"] == 2).all() and (tests["df"] == 2).all() and tests["p"].notna().all()
+    paths = pd.read_csv(root / "results/growth/conditional.csv")
+    assert set(paths["term"]) == {"sex[boy]", "sport"} and set(paths["factor"]) == {"intercept", "slope"}
+    page = (root / "results/reports/report.html").read_text(encoding="utf-8")
+    assert "Predictors of growth" in page and "Hours of sport" in page
+    assert "2 with outcome data left out because a predictor value is missing" in page
