@@ -150,6 +150,7 @@ def test_workflow_fits_the_conditional_model_and_reports_it(tmp_path):
 
     from wavetrail.build import build_project
     from wavetrail.project import new_project
+    from wavetrail.registry import register_files
 
     root = new_project(tmp_path / "p", title="Predictors of growth")
     (root / "config" / "codebook.yaml").write_text(CODEBOOK, encoding="utf-8")
@@ -159,6 +160,7 @@ def test_workflow_fits_the_conditional_model_and_reports_it(tmp_path):
     frame = panel_frame(n=120)
     frame.loc[frame["pid"].isin(frame["pid"].unique()[:2]), "sport"] = np.nan  # two people without sport
     frame.to_csv(root / "data" / "raw" / "panel.csv", index=False)
+    register_files(root, ["data/raw/panel.csv"])
     build_project(root, cores=1)
     tests = pd.read_csv(root / "results/growth/conditional_tests.csv")
     assert list(tests["predictor"]) == ["sex", "sport"] and set(tests["outcome"]) == {"weight"}
