@@ -82,7 +82,7 @@ def test_conditional_growth_with_categories_equals_lavaan(tmp_path):
         assert tests.loc[name, "df"] == wald["df"][j] == 2
         assert tests.loc[name, "wald"] == pytest.approx(wald["stat"][j], rel=1e-4)
         assert tests.loc[name, "p"] == pytest.approx(wald["p"][j], rel=1e-3, abs=1e-12)
-    assert (tests["excluded"] == 3).all() and (tests["n"] == cf.n).all()
+    assert (tests["n_excluded"] == 3).all() and (tests["n"] == cf.n).all()
 
 
 def test_design_codes_categories_against_the_codebook_order():

@@ -99,7 +99,7 @@ def test_conditional_model_of_the_stage_recovers_the_truth_and_is_byte_stable(tm
     assert set(eff.loc[eff["predictor"] == "sex", "reference"]) == {"girl"}
     t = tests.set_index("predictor")
     with_outcome = scores.dropna(subset=["score"])["id"].nunique()
-    assert (t["excluded"] == 7).all() and (t["n"] == with_outcome - 7).all() and (t["df"] == 2).all()
+    assert (t["n_excluded"] == 7).all() and (t["n"] == with_outcome - 7).all() and (t["df"] == 2).all()
     assert t.loc["sport", "p"] < 1e-10 and t.loc["sex", "p"] < 1e-10
     assert bool(t.loc["sex", "converged"]) and bool(t.loc["sex", "admissible"])
     assert set(eff["model"]) == {"linear-free conditional"}
@@ -137,6 +137,9 @@ def test_report_names_exploration_and_confirmation_and_what_was_confirmed(tmp_pa
     assert "The held-out model below is confirmation" in html and "not causal effects" in html
     assert "Confirmed in the held-out people: conflict." in html and "Not confirmed: rules." in html
     assert "rules: strict vs none" in html and "0.0012" in html
+    # three people left out: below report.min_cell (5 by default), so not shown as a number
+    assert "fewer than 5 with outcome data left out because a predictor value is missing" in html
+    html = open_report(tmp_path, {}, {"forest": {"enabled": True}, "min_cell": 3})._confirmation()
     assert "3 with outcome data left out because a predictor value is missing" in html
     _write(tmp_path, "results/forest/confirmation_tests.csv", pd.DataFrame(columns=CONFIRMATION_TEST_COLUMNS))
     html = open_report(tmp_path, {}, {"forest": {"enabled": True}})._confirmation()
@@ -164,9 +167,9 @@ def test_workflow_fits_the_conditional_model_and_reports_it(tmp_path):
     build_project(root, cores=1)
     tests = pd.read_csv(root / "results/growth/conditional_tests.csv")
     assert list(tests["predictor"]) == ["sex", "sport"] and set(tests["outcome"]) == {"weight"}
-    assert (tests["excluded"] == 2).all() and (tests["df"] == 2).all() and tests["p"].notna().all()
+    assert (tests["n_excluded"] == 2).all() and (tests["df"] == 2).all() and tests["p"].notna().all()
     paths = pd.read_csv(root / "results/growth/conditional.csv")
     assert set(paths["term"]) == {"sex[boy]", "sport"} and set(paths["factor"]) == {"intercept", "slope"}
     page = (root / "results/reports/report.html").read_text(encoding="utf-8")
     assert "Predictors of growth" in page and "Hours of sport" in page
-    assert "2 with outcome data left out because a predictor value is missing" in page
+    assert "fewer than 5 with outcome data left out because a predictor value is missing" in page  # min_cell 5

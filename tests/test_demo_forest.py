@@ -86,7 +86,7 @@ def test_demo_held_out_people_confirm_the_planted_moderators_and_not_the_noise(t
     assert shard["params"]["holdout"] == record  # the shards and the summary split the same people
     assert pd.read_csv(forest / "overview.csv")["people"].iloc[0] == record["forest_people"]
     tests = pd.read_csv(forest / "confirmation_tests.csv").set_index("predictor")
-    assert len(tests) == 6 and (tests["held_out"] == record["held_out"]).all()
+    assert len(tests) == 6 and (tests["n_held_out"] == record["held_out"]).all()
     assert (tests["n"] <= record["held_out"]).all() and tests["converged"].all()
     tested = set(tests.index)
     noise = tested - PLANTED

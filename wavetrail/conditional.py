@@ -34,7 +34,7 @@ __all__ = ["EFFECT_COLUMNS", "TEST_COLUMNS", "ConditionalFit", "design", "fit_co
 #: columns of the per-path effects table
 EFFECT_COLUMNS = ["predictor", "term", "level", "reference", "factor", "estimate", "se", "z", "p", "std"]
 #: columns of the per-predictor joint tests table
-TEST_COLUMNS = ["predictor", "kind", "paths", "wald", "df", "p", "n", "excluded", "note"]
+TEST_COLUMNS = ["predictor", "kind", "paths", "wald", "df", "p", "n", "n_excluded", "note"]
 
 
 def _code_text(code) -> str:
@@ -179,7 +179,7 @@ def fit_conditional(wide: pd.DataFrame, time_scores, predictors: pd.DataFrame, s
             kind = ("category" if name in (levels or {}) or isinstance(col.dtype, pd.CategoricalDtype)
                     or not pd.api.types.is_numeric_dtype(col) else "number")
             row = {"predictor": name, "kind": kind, "paths": 0, "wald": np.nan, "df": np.nan, "p": np.nan,
-                   "n": len(wide), "excluded": excluded, "note": ""}
+                   "n": len(wide), "n_excluded": excluded, "note": ""}
             if name not in tested:
                 row["note"] = next((n.split(": ", 1)[1] for n in notes if n.startswith(f"{name}: ")),
                                    "not tested")

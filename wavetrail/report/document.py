@@ -468,10 +468,12 @@ class Report:
         for outcome, part in tests.groupby("outcome", sort=False):
             label = self.study.scale_label(outcome)
             n = part["n"].dropna()
-            excl = part["excluded"].dropna()
+            excl = part["n_excluded"].dropna()
             people = (f"{fmt_count(n.iloc[0])} people" if len(n) else "")
             if len(excl) and int(excl.iloc[0]):
-                people += (f"; {fmt_count(excl.iloc[0])} with outcome data left out because a predictor value "
+                k = int(excl.iloc[0])  # a count of people: small counts are not shown (report.min_cell)
+                shown = fmt_count(k) if k >= self.min_cell else f"fewer than {self.min_cell}"
+                people += (f"; {shown} with outcome data left out because a predictor value "
                            "is missing (listwise on the predictors)")
             sub = eff[eff["outcome"] == outcome] if eff is not None and "outcome" in eff.columns else None
             if sub is not None and len(sub):
@@ -516,7 +518,7 @@ class Report:
             return ("<h3>Held-out confirmation</h3>" + _p(esc(
                 "No people were held out of the forest (forest.holdout is 0), so its findings are not confirmed "
                 "here: they remain exploratory until tested in other data.")))
-        held = tests["held_out"].dropna()
+        held = tests["n_held_out"].dropna()
         n_held = fmt_count(held.iloc[0]) if len(held) else MISSING
         intro = (f"The forest above is exploration: {n_held} people were held out at random (seeded) before it "
                  "was grown, and it never saw them. The held-out model below is confirmation: the forest's top "

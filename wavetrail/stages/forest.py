@@ -312,7 +312,7 @@ def summarise_forest(job) -> None:
 
 #: columns of results/forest/confirmation_tests.csv (one row per predictor tested on the held-out people)
 CONFIRMATION_TEST_COLUMNS = ["outcome", "model", "predictor", "rank", "kind", "paths", "wald", "df", "p", "p_holm",
-                             "confirmed", "n", "excluded", "held_out", "loglik", "converged", "admissible", "note"]
+                             "confirmed", "n", "n_excluded", "n_held_out", "loglik", "converged", "admissible", "note"]
 
 
 def confirmation_names(cfg, imp: pd.DataFrame) -> list[str]:
@@ -353,7 +353,7 @@ def confirmation_tables(job, cfg, imp: pd.DataFrame, held, times) -> tuple[pd.Da
     model = f"{model_name(shape, residuals)} conditional (held-out people)"
     if not names:
         row = {c: np.nan for c in CONFIRMATION_TEST_COLUMNS}
-        row.update(outcome=outcome, model=model, predictor="", confirmed="not tested", held_out=len(wide),
+        row.update(outcome=outcome, model=model, predictor="", confirmed="not tested", n_held_out=len(wide),
                    note="no predictor had positive importance in the forest, so none was tested (nothing to confirm)")
         return pd.DataFrame(columns=CONDITIONAL_COLUMNS), pd.DataFrame([row], columns=CONFIRMATION_TEST_COLUMNS)
     missing = [n for n in names if n not in predictors.columns]
@@ -370,7 +370,7 @@ def confirmation_tables(job, cfg, imp: pd.DataFrame, held, times) -> tuple[pd.Da
     tests["p_holm"] = holm(tests["p"].to_numpy(dtype=float))
     tests["confirmed"] = np.where(tests["p_holm"].isna(), "not tested",
                                   np.where(tests["p_holm"] < 0.05, "yes", "no"))
-    tests["held_out"] = len(wide)
+    tests["n_held_out"] = len(wide)
     log.info("forest: %d predictors tested on %d held-out people", len(names), len(wide))
     return eff, tests[CONFIRMATION_TEST_COLUMNS]
 

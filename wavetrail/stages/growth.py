@@ -193,7 +193,7 @@ def trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, n_people
 CONDITIONAL_COLUMNS = ["outcome", "model", "predictor", "term", "level", "reference", "factor", "estimate", "se",
                        "z", "p", "std"]
 #: columns of results/growth/conditional_tests.csv (one row per outcome and predictor)
-CONDITIONAL_TEST_COLUMNS = ["outcome", "model", "predictor", "kind", "paths", "wald", "df", "p", "n", "excluded",
+CONDITIONAL_TEST_COLUMNS = ["outcome", "model", "predictor", "kind", "paths", "wald", "df", "p", "n", "n_excluded",
                             "loglik", "converged", "admissible", "note"]
 
 
