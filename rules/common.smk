@@ -56,6 +56,8 @@ def report_inputs(wildcards=None):
         "growth_fit": "results/growth/fit.csv",
         "growth_estimates": "results/growth/estimates.csv",
         "growth_comparison": "results/growth/comparison.csv",
+        "growth_conditional": "results/growth/conditional.csv",
+        "growth_conditional_tests": "results/growth/conditional_tests.csv",
         "growth_figure": "results/growth/trajectories.png",
         "codebook": codebook_file(),
         "lock": "environment/requirements.lock",
@@ -70,6 +72,8 @@ def report_inputs(wildcards=None):
             forest_overview="results/forest/overview.csv",
             forest_trees="results/forest/trees.csv",
             differences="results/forest/differences.csv",
+            confirmation="results/forest/confirmation.csv",
+            confirmation_tests="results/forest/confirmation_tests.csv",
             importance_figure="results/forest/importance_plot.png",
             trajectories_figure="results/forest/trajectories.png",
         )

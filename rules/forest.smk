@@ -54,6 +54,8 @@ rule summarise_forest:
         overview="results/forest/overview.csv",
         trees="results/forest/trees.csv",
         differences="results/forest/differences.csv",
+        confirmation="results/forest/confirmation.csv",
+        confirmation_tests="results/forest/confirmation_tests.csv",
         importance_figure="results/forest/importance_plot.png",
         importance_figure_svg="results/forest/importance_plot.svg",
         importance_figure_csv="results/forest/importance_plot.csv",

@@ -5,10 +5,13 @@ rule fit_growth:
     input:
         scores="results/scores/scores.csv",
         codebook=codebook_file(),
+        data=data_files(),
     output:
         fit="results/growth/fit.csv",
         estimates="results/growth/estimates.csv",
         comparison="results/growth/comparison.csv",
+        conditional="results/growth/conditional.csv",
+        conditional_tests="results/growth/conditional_tests.csv",
         figure="results/growth/trajectories.png",
         figure_svg="results/growth/trajectories.svg",
         figure_csv="results/growth/trajectories.csv",

@@ -318,12 +318,18 @@ def resolve_outcomes(config: dict, codebook) -> tuple[list[str], str | None]:
     return outcomes, forest_outcome
 
 
+def _growth_names(growth: dict, codebook) -> list[str]:
+    """growth.outcomes, or every scale when empty (names only; validity is checked elsewhere)."""
+    return [str(o) for o in (growth.get("outcomes") or list(codebook.scales))]
+
+
 def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
                 lines: dict[tuple, int] | None = None) -> tuple[list[str], str | None]:
     """Resolve every name of the settings against the codebook, before anything runs.
 
-    Checks growth.outcomes, forest.outcome, forest.predictors (a list),
-    forest.interaction_pairs and invariance.scales, and that a default outcome
+    Checks growth.outcomes, growth.predictors, forest.outcome, forest.predictors (a list),
+    forest.interaction_pairs, forest.confirm (a list, when forest.holdout > 0) and
+    invariance.scales, and that a default outcome
     exists. Returns :func:`resolve_outcomes`.
 
     Raises
@@ -401,6 +407,33 @@ def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
                         what = "is not a variable of the codebook"
                     problems.append((line("forest", "interaction_pairs", i, j),
                                      f"forest.interaction_pairs[{i}] names {p!r}, which {what}{close(p, pool)}"))
+    if forest.get("enabled", True) and float(forest.get("holdout", 0) or 0) > 0:
+        confirm = forest.get("confirm", 5)
+        if isinstance(confirm, list):
+            for i, p in enumerate(confirm):
+                if p not in pool:
+                    what = ("is not among forest.predictors" if isinstance(predictors, list)
+                            else "is not a candidate predictor of the forest (a first-wave variable outside the "
+                                 "scales and the outcome's own raw variables, not an identifier, text or date)")
+                    if p not in variables:
+                        what = "is not a variable of the codebook"
+                    problems.append((line("forest", "confirm", i),
+                                     f"forest.confirm[{i}] names {p!r}, which {what}{close(p, pool)}"))
+    eligible_growth = [v.name for v in codebook.data_variables()
+                       if not v.identifier and v.name not in (study.id, study.wave) and v.type not in ("text", "date")]
+    for i, p in enumerate(growth.get("predictors") or []):
+        if p not in variables:
+            problems.append((line("growth", "predictors", i),
+                             f"growth.predictors[{i}] {p!r} is not a variable of the codebook"
+                             f"{close(p, eligible_growth)}"))
+        elif p not in eligible_growth:
+            problems.append((line("growth", "predictors", i),
+                             f"growth.predictors[{i}] {p!r} is an identifier, the id/wave column, free text or a "
+                             "date and cannot predict growth"))
+        elif p in set().union(*(codebook.sources_of(o) for o in _growth_names(growth, codebook))):
+            problems.append((line("growth", "predictors", i),
+                             f"growth.predictors[{i}] {p!r} is part of a growth outcome (the outcome itself or "
+                             "one of its items) and cannot predict its own growth"))
     scales = (config.get("invariance") or {}).get("scales", "all")
     if isinstance(scales, list):
         for i, name in enumerate(scales):

@@ -49,6 +49,8 @@ TIME_SCORES = (0, 1, 2, 3, 4)
 #: forest size of the demo build (kept small so the demo finishes in minutes)
 DEMO_TREES = 100
 DEMO_SHARDS = 2
+#: share of the people the demo keeps out of the forest for the held-out confirmation
+DEMO_HOLDOUT = 0.2
 
 ITEMS = (
     # name, label, reverse-keyed, loading, item offset
@@ -349,9 +351,10 @@ def codebook() -> dict:
     }
 
 
-def config(trees: int | None = None, shards: int | None = None) -> str:
+def config(trees: int | None = None, shards: int | None = None, holdout: float | None = None) -> str:
     """The demo's config/config.yaml (text, with a comment per key)."""
     trees = DEMO_TREES if trees is None else int(trees)
+    holdout = DEMO_HOLDOUT if holdout is None else float(holdout)
     shards = DEMO_SHARDS if shards is None else int(shards)
     return f"""\
 # Settings of the invented demo panel (see docs/demo-truth.md for what was planted).
@@ -379,6 +382,8 @@ forest:
   predictors: wave1           # the 36 first-wave predictors and age
   trees: {trees}                  # small, so that the demo builds in minutes
   shards: {shards}                   # two jobs: one per core on a laptop
+  holdout: {holdout:g}                # share of the people kept out of the forest to confirm what it finds
+  confirm: 6                  # the six most important predictors, tested on the held-out people
   threads: 1
   runtime: 60
   mem_mb: 4000
@@ -444,7 +449,8 @@ def truth_markdown() -> str:
     return "\n".join(lines)
 
 
-def write_demo(root: str | Path, trees: int | None = None, shards: int | None = None) -> None:
+def write_demo(root: str | Path, trees: int | None = None, shards: int | None = None,
+               holdout: float | None = None) -> None:
     """Write the demo data, codebook, settings and truth into a scaffolded project."""
     from wavetrail._io import atomic_write_text, write_json, write_table
 
@@ -454,7 +460,7 @@ def write_demo(root: str | Path, trees: int | None = None, shards: int | None = 
     atomic_write_text(root / "config" / "codebook.yaml",
                       "# Codebook of the invented demo panel (written by the demo simulator).\n"
                       + yaml.safe_dump(codebook(), sort_keys=False, allow_unicode=True, width=100))
-    atomic_write_text(root / "config" / "config.yaml", config(trees=trees, shards=shards))
+    atomic_write_text(root / "config" / "config.yaml", config(trees=trees, shards=shards, holdout=holdout))
     atomic_write_text(root / "docs" / "demo-truth.md", truth_markdown())
     write_json(root / "docs" / "demo-truth.json", TRUTH)
     try:

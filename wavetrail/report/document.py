@@ -453,7 +453,90 @@ class Report:
         out += ["<h3>Model comparison</h3>", self._comparison()]
         out += ["<h3>Parameter estimates</h3>", self._estimates()]
         out += ["<h3>Observed and implied trajectories</h3>", self._trajectories()]
+        cond = self.tables.get("growth_conditional_tests")
+        if cond is not None and len(cond):
+            out += ["<h3>Predictors of growth</h3>",
+                    self._conditional("growth_conditional", "growth_conditional_tests", "conditional")]
         return Fragment("".join(out), "growth")
+
+    def _conditional(self, effects_key: str, tests_key: str, key: str) -> str:
+        """Paths of a conditional growth model (one table per outcome) and the joint test per predictor."""
+        tests = self.tables.get(tests_key)
+        eff = self.tables.get(effects_key)
+        html = []
+        confirm = "confirmed" in tests.columns
+        for outcome, part in tests.groupby("outcome", sort=False):
+            label = self.study.scale_label(outcome)
+            n = part["n"].dropna()
+            excl = part["n_excluded"].dropna()
+            people = (f"{fmt_count(n.iloc[0])} people" if len(n) else "")
+            if len(excl) and int(excl.iloc[0]):
+                k = int(excl.iloc[0])  # a count of people: small counts are not shown (report.min_cell)
+                shown = fmt_count(k) if k >= self.min_cell else f"fewer than {self.min_cell}"
+                people += (f"; {shown} with outcome data left out because a predictor value "
+                           "is missing (listwise on the predictors)")
+            sub = eff[eff["outcome"] == outcome] if eff is not None and "outcome" in eff.columns else None
+            if sub is not None and len(sub):
+                rows = []
+                for _, r in sub.iterrows():
+                    term = self.study.label(r["predictor"])
+                    if isinstance(r.get("level"), str) and r["level"]:
+                        term += f": {r['level']} vs {r['reference']}"
+                    rows.append([term, str(r["factor"]), _sig(r["estimate"]), _sig(r["se"]),
+                                 fmt_number(r["z"]), fmt_p(r["p"]), fmt_number(r.get("std"))])
+                html.append(self._table(Table(
+                    f"{label}: growth factors regressed on the predictors ({part['model'].iloc[0]})",
+                    ["Predictor", "Growth factor", "Estimate", "SE", "z", "p", "Std."], rows,
+                    key=f"{key}-paths-{outcome}", numeric=[2, 3, 4, 5, 6],
+                    note=f"{people}. Each path is the expected difference in the growth factor per unit of a "
+                         "number (uncentred, so the intercept's mean is the level at zero) or between a "
+                         "category level and its reference level, holding the other predictors constant. "
+                         + self._source(effects_key))))
+            rows = []
+            for _, r in part.iterrows():
+                row = [self.study.label(r["predictor"]) if isinstance(r.get("predictor"), str) and r["predictor"]
+                       else MISSING, fmt_count(r["df"]) if pd.notna(r.get("df")) else MISSING,
+                       fmt_number(r["wald"]), fmt_p(r["p"])]
+                if confirm:
+                    row += [fmt_p(r["p_holm"]), str(r["confirmed"])]
+                rows.append(row + [str(r["note"]) if isinstance(r.get("note"), str) else ""])
+            heads = ["Predictor", "df", "Wald \u03c7\u00b2", "p"] + (["p (Holm)", "Confirmed"] if confirm else []) + ["Note"]
+            html.append(self._table(Table(
+                f"{label}: joint test of each predictor (all its paths on the growth factors = 0)", heads, rows,
+                key=f"{key}-tests-{outcome}", numeric=[1, 2, 3] + ([4] if confirm else []),
+                note="Wald test of all paths of a predictor at once (every growth factor and, for a category, "
+                     "every level against the reference); a predictor that could not be tested says why and is "
+                     "not evidence of no association. " + self._source(tests_key))))
+        return "".join(html)
+
+    def _confirmation(self) -> str:
+        """Held-out confirmation of the forest's top predictors (empty when not configured)."""
+        tests = self.tables.get("confirmation_tests")
+        if tests is None:
+            return ""
+        if not len(tests):
+            return ("<h3>Held-out confirmation</h3>" + _p(esc(
+                "No people were held out of the forest (forest.holdout is 0), so its findings are not confirmed "
+                "here: they remain exploratory until tested in other data.")))
+        held = tests["n_held_out"].dropna()
+        n_held = fmt_count(held.iloc[0]) if len(held) else MISSING
+        intro = (f"The forest above is exploration: {n_held} people were held out at random (seeded) before it "
+                 "was grown, and it never saw them. The held-out model below is confirmation: the forest's top "
+                 "predictors are tested in a conditional growth model fitted to those held-out people alone. A "
+                 "predictor is called confirmed when the joint Wald test of all its paths rejects at .05 after "
+                 "Holm's adjustment over the predictors tested. These are associations, not causal effects, and "
+                 "a linear path on the growth factors cannot show a moderator that changes only the spread of the "
+                 "trajectories.")
+        if (tests["predictor"].fillna("") == "").all():
+            return "<h3>Held-out confirmation</h3>" + _p(esc(intro)) + _p(esc(str(tests["note"].iloc[0]) + "."))
+        verdicts = []
+        for word, text in (("yes", "Confirmed in the held-out people"), ("no", "Not confirmed"),
+                           ("not tested", "Could not be tested (see the notes; not evidence of no association)")):
+            names = [self.study.label(n) for n in tests.loc[tests["confirmed"].astype(str) == word, "predictor"]]
+            if names:
+                verdicts.append(f"{text}: {'; '.join(names)}.")
+        return ("<h3>Held-out confirmation</h3>" + _p(esc(intro)) + _p(esc(" ".join(verdicts)))
+                + self._conditional("confirmation", "confirmation_tests", "confirmation"))
 
     def _fit(self, fit: pd.DataFrame) -> str:
         rows = []
@@ -606,10 +689,11 @@ class Report:
         caution = f'<div class="wt-caution" role="note"><p>{esc(EXPLORATORY)}</p></div>'
         caution += self._forest_overview()
         if imp is None:
-            return Fragment(caution + _absent("Variable importance is absent (results/forest/importance.csv)."), "moderators")
+            return Fragment(caution + _absent("Variable importance is absent (results/forest/importance.csv).")
+                            + self._confirmation(), "moderators")
         values = pd.to_numeric(imp["importance"], errors="coerce")
         if len(imp) and values.isna().all():
-            return Fragment(caution + _p(esc(self._no_test_text(imp))), "moderators")
+            return Fragment(caution + _p(esc(self._no_test_text(imp))) + self._confirmation(), "moderators")
         if _found_nothing(imp):
             alpha = forest.get("alpha")
             level = f" at \u03b1 = {fmt_unit(alpha, 2)}" if alpha is not None else ""
@@ -623,11 +707,13 @@ class Report:
                 text += (f" {fmt_count(len(untested))} predictor(s) could never be tested and are not evidence of "
                          f"no association: {', '.join(self.study.label(n) for n in untested[:10])}"
                          f"{' ...' if len(untested) > 10 else ''} (see the table).")
-            return Fragment(caution + _p(esc(text)) + self._importance(imp, figure=False), "moderators")
+            return Fragment(caution + _p(esc(text)) + self._importance(imp, figure=False) + self._confirmation(),
+                            "moderators")
         out = [caution, "<h3>Variable importance</h3>", self._importance(imp)]
         out += ["<h3>What differs between the groups the trees form</h3>", self._differences(imp)]
         out += ["<h3>Expected trajectories of the top predictors</h3>", self._dependence(imp)]
         out += ["<h3>Interactions between predictors</h3>", self._interactions(), self._pair_table()]
+        out.append(self._confirmation())
         return Fragment("".join(out), "moderators")
 
     def _forest_overview(self) -> str:

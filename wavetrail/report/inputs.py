@@ -27,6 +27,8 @@ TABLE_PATHS: dict[str, str] = {
     "growth_fit": "results/growth/fit.csv",
     "growth_estimates": "results/growth/estimates.csv",
     "growth_comparison": "results/growth/comparison.csv",
+    "growth_conditional": "results/growth/conditional.csv",
+    "growth_conditional_tests": "results/growth/conditional_tests.csv",
     "importance": "results/forest/importance.csv",
     "dependence": "results/forest/dependence.csv",
     "interactions": "results/forest/interactions.csv",
@@ -34,6 +36,8 @@ TABLE_PATHS: dict[str, str] = {
     "forest_overview": "results/forest/overview.csv",
     "forest_trees": "results/forest/trees.csv",
     "differences": "results/forest/differences.csv",
+    "confirmation": "results/forest/confirmation.csv",
+    "confirmation_tests": "results/forest/confirmation_tests.csv",
 }
 #: other named inputs of the report step
 OTHER_PATHS: dict[str, str] = {"lock": "environment/requirements.lock"}

@@ -47,6 +47,45 @@ def _outcome(job, cfg, codebook) -> str:
     return outcome
 
 
+def holdout_split(ids, share: float, master_seed: int) -> tuple[list, list, dict]:
+    """(forest people, held-out people, record) of a seeded split of sorted ``ids``.
+
+    ``round(share * n)`` people are held out, drawn without replacement by a generator
+    seeded with ``derive_seed(master_seed, "forest-holdout")``, so the split depends on
+    the master seed and the people only (never on shards or cores). The record (for the
+    ledger) holds the share, the seed, both counts and the sha256 of the held-out ids
+    (one per line, sorted).
+    """
+    import hashlib
+
+    from wavetrail.seeds import derive_seed
+
+    ids = sorted(str(i) for i in ids)
+    seed = derive_seed(int(master_seed), "forest-holdout")
+    k = int(round(float(share) * len(ids)))
+    if share > 0 and k == 0 and len(ids):
+        k = 1
+    pick = set(np.random.default_rng(seed).choice(len(ids), size=k, replace=False).tolist()) if k else set()
+    held = [i for j, i in enumerate(ids) if j in pick]
+    kept = [i for j, i in enumerate(ids) if j not in pick]
+    record = {"share": float(share), "seed": seed, "forest_people": len(kept), "held_out": len(held),
+              "held_out_sha256": hashlib.sha256("".join(f"{i}\n" for i in held).encode("utf-8")).hexdigest()}
+    return kept, held, record
+
+
+def _split(job, cfg, wide, predictors):
+    """The forest's people (and the held-out ones) under forest.holdout; records the split in the ledger."""
+    share = float(cfg.get("holdout", 0) or 0)
+    if share <= 0:
+        return wide, predictors, None
+    kept, held, record = holdout_split(wide.index, share, int(job.config.get("seed", 0)))
+    if len(kept) < 2 or len(held) < 2:
+        raise DataError(f"forest.holdout {share} leaves {len(kept)} people for the forest and {len(held)} held out",
+                        hint="choose a share that leaves people on both sides (or 0 to turn it off)")
+    job.params = {**job.params, "holdout": record}
+    return wide.loc[kept], predictors.loc[kept], (wide.loc[held], predictors.loc[held])
+
+
 def _inputs(job, cfg):
     """(wide outcome, predictors, time scores) of the forest, on the same people."""
     from wavetrail.codebook import load_codebook
@@ -110,6 +149,7 @@ def grow_forest_shard(job) -> None:
     trees = int(cfg.get("trees", 500))
     indices = [i for i in range(trees) if i % K == shard - 1]
     wide, predictors, times = _inputs(job, cfg)
+    wide, predictors, _ = _split(job, cfg, wide, predictors)
     log.info("forest shard %d of %d: %d trees on %d people, %d predictors",
              shard, K, len(indices), len(wide), predictors.shape[1])
     def progress(done, total):
@@ -220,7 +260,8 @@ def summarise_forest(job) -> None:
     model-part tables and the two figures."""
     cfg = _settings(job)
     forest = _read_forest(job.path(job.input["forest"]))
-    wide, predictors, _ = _inputs(job, cfg)
+    wide, predictors, times = _inputs(job, cfg)
+    wide, predictors, held = _split(job, cfg, wide, predictors)
     forest.attach_background(predictors)
     labels = _level_labels(job, forest.info_.names)
     top = int(cfg.get("top", 10))
@@ -263,6 +304,75 @@ def summarise_forest(job) -> None:
         write_table(job.path(job.output["dependence_pairs"]),
                     pair_table(forest, predictors, chosen, inter, labels))
     _figures(job, imp.dropna(subset=["importance"]).head(max(top, 10)), dep, names[:FIGURE_PANELS])
+    if "confirmation" in job.output.keys():
+        eff, tests = confirmation_tables(job, cfg, imp, held, times)
+        write_table(job.path(job.output["confirmation"]), eff)
+        write_table(job.path(job.output["confirmation_tests"]), tests)
+
+
+#: columns of results/forest/confirmation_tests.csv (one row per predictor tested on the held-out people)
+CONFIRMATION_TEST_COLUMNS = ["outcome", "model", "predictor", "rank", "kind", "paths", "wald", "df", "p", "p_holm",
+                             "confirmed", "n", "n_excluded", "n_held_out", "loglik", "converged", "admissible", "note"]
+
+
+def confirmation_names(cfg, imp: pd.DataFrame) -> list[str]:
+    """forest.confirm: a list as given, or the n predictors ranked first by importance among those the
+    forest could test (none when no predictor has positive importance: the forest found nothing)."""
+    confirm = cfg.get("confirm", 5)
+    if isinstance(confirm, list):
+        return [str(n) for n in confirm]
+    ranked = imp.dropna(subset=["importance"])
+    if not (ranked["importance"] > 0).any():
+        return []
+    ranked = ranked.sort_values(["rank", "predictor"], kind="stable")
+    return [str(n) for n in ranked["predictor"][:int(confirm)]]
+
+
+def confirmation_tables(job, cfg, imp: pd.DataFrame, held, times) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Effects and joint tests of the chosen predictors in a conditional growth model fitted to
+    the held-out people only (header-only tables when forest.holdout is 0).
+
+    ``confirmed`` is "yes" when the joint Wald test of all a predictor's paths rejects at
+    .05 after Holm's adjustment over the predictors tested, "no" when it does not, and
+    "not tested" when no test was possible (``note`` says why).
+    """
+    from wavetrail.codebook import load_codebook
+    from wavetrail.conditional import holm
+    from wavetrail.stages.growth import (CONDITIONAL_COLUMNS, conditional_tables, level_labels, model_name)
+
+    if held is None:
+        return pd.DataFrame(columns=CONDITIONAL_COLUMNS), pd.DataFrame(columns=CONFIRMATION_TEST_COLUMNS)
+    from wavetrail.conditional import fit_conditional
+
+    wide, predictors = held
+    codebook = load_codebook(job.path(job.input["codebook"]))
+    outcome = _outcome(job, cfg, codebook)
+    growth = job.config.get("growth") or {}
+    shape, residuals = cfg.get("shape", "linear"), growth.get("residuals", "free")
+    names = confirmation_names(cfg, imp)
+    model = f"{model_name(shape, residuals)} conditional (held-out people)"
+    if not names:
+        row = {c: np.nan for c in CONFIRMATION_TEST_COLUMNS}
+        row.update(outcome=outcome, model=model, predictor="", confirmed="not tested", n_held_out=len(wide),
+                   note="no predictor had positive importance in the forest, so none was tested (nothing to confirm)")
+        return pd.DataFrame(columns=CONDITIONAL_COLUMNS), pd.DataFrame([row], columns=CONFIRMATION_TEST_COLUMNS)
+    missing = [n for n in names if n not in predictors.columns]
+    if missing:
+        raise ConfigError(f"forest.confirm names {', '.join(map(repr, missing))}, not a predictor of the forest",
+                          hint="name predictors of the forest (see results/forest/importance.csv)")
+    fitted = fit_conditional(wide, times, predictors[names], shape=shape, residuals=residuals,
+                             levels=level_labels(codebook, names), bounded=bool(growth.get("bounded", True)),
+                             robust=bool(growth.get("robust", False)), seed=job.seed,
+                             where=f"held-out confirmation of {outcome}")
+    eff, tests = conditional_tables(fitted, outcome, model)
+    ranks = dict(zip(imp["predictor"].astype(str), imp["rank"]))
+    tests.insert(3, "rank", [ranks.get(n, np.nan) for n in tests["predictor"]])
+    tests["p_holm"] = holm(tests["p"].to_numpy(dtype=float))
+    tests["confirmed"] = np.where(tests["p_holm"].isna(), "not tested",
+                                  np.where(tests["p_holm"] < 0.05, "yes", "no"))
+    tests["n_held_out"] = len(wide)
+    log.info("forest: %d predictors tested on %d held-out people", len(names), len(wide))
+    return eff, tests[CONFIRMATION_TEST_COLUMNS]
 
 
 DEPENDENCE_COLUMNS = ["predictor", "level", "label", "value", "time", "expected", "sd"]

@@ -14,7 +14,7 @@ from wavetrail.errors import WavetrailError
 from wavetrail.growth import fit_growth as fit_growth_model
 from wavetrail.scoring import wide_scores
 
-__all__ = ["fit_growth_models", "fit_growth", "compare_models"]
+__all__ = ["fit_growth_models", "fit_growth", "compare_models", "fit_conditional_models"]
 
 log = logging.getLogger("wavetrail.growth")
 
@@ -189,9 +189,84 @@ def trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, n_people
     save_figure(fig, stem, pd.DataFrame(rows, columns=["outcome", "series", "wave", "time", "value"]))
 
 
+#: columns of results/growth/conditional.csv (one row per path: term x growth factor)
+CONDITIONAL_COLUMNS = ["outcome", "model", "predictor", "term", "level", "reference", "factor", "estimate", "se",
+                       "z", "p", "std"]
+#: columns of results/growth/conditional_tests.csv (one row per outcome and predictor)
+CONDITIONAL_TEST_COLUMNS = ["outcome", "model", "predictor", "kind", "paths", "wald", "df", "p", "n", "n_excluded",
+                            "loglik", "converged", "admissible", "note"]
+
+
+def level_labels(codebook, names) -> dict[str, dict]:
+    """predictor -> {code: label} for the categories among ``names`` (codebook order)."""
+    out = {}
+    for name in names:
+        var = codebook.variables.get(name) if codebook is not None else None
+        if var is not None and getattr(var, "levels", None):
+            out[str(name)] = dict(var.levels)
+    return out
+
+
+def conditional_tables(fitted, outcome: str, model: str) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The effects and joint-test rows of one :class:`wavetrail.conditional.ConditionalFit`."""
+    eff = fitted.effects.copy()
+    eff.insert(0, "model", model)
+    eff.insert(0, "outcome", outcome)
+    tests = fitted.tests.copy()
+    tests.insert(0, "model", model)
+    tests.insert(0, "outcome", outcome)
+    g = fitted.growth
+    tests["loglik"] = g.fit["loglik"] if g is not None else np.nan
+    tests["converged"] = bool(g.fit.get("converged", False)) if g is not None else False
+    tests["admissible"] = bool(g.fit.get("admissible", False)) if g is not None else False
+    return eff[CONDITIONAL_COLUMNS], tests[CONDITIONAL_TEST_COLUMNS]
+
+
+def fit_conditional_models(scores, predictors, waves, time_scores, outcomes, shape, residuals="free", bounded=True,
+                           seed=0, robust=False, codebook=None):
+    """A conditional growth model per outcome: every growth factor regressed on ``predictors``.
+
+    Returns (effects, joint tests) with :data:`CONDITIONAL_COLUMNS` and
+    :data:`CONDITIONAL_TEST_COLUMNS`; a model that cannot be fitted leaves its tests
+    rows with empty statistics and the reason as note.
+    """
+    from wavetrail.conditional import fit_conditional
+
+    levels = level_labels(codebook, predictors.columns)
+    effects, tests = [], []
+    name = f"{model_name(shape, residuals)} conditional"
+    for outcome in outcomes:
+        wide = wide_scores(scores, outcome, waves)
+        wide.index = wide.index.map(str)
+        fitted = fit_conditional(wide, time_scores, predictors, shape=shape, residuals=residuals, levels=levels,
+                                 bounded=bounded, robust=robust, seed=seed, where=f"conditional model of {outcome}")
+        e, t = conditional_tables(fitted, outcome, name)
+        effects.append(e)
+        tests.append(t)
+        log.info("conditional %s for %s: %d people, %d left out for a missing predictor", name, outcome,
+                 fitted.n, fitted.excluded)
+    eff = pd.concat(effects, ignore_index=True) if effects else pd.DataFrame(columns=CONDITIONAL_COLUMNS)
+    tst = pd.concat(tests, ignore_index=True) if tests else pd.DataFrame(columns=CONDITIONAL_TEST_COLUMNS)
+    return eff, tst
+
+
+def _person_predictors(job, codebook, names) -> pd.DataFrame:
+    """The named time-invariant predictors (first-wave values), index = person id as text."""
+    from wavetrail.panel import load_panel
+
+    data = job.input["data"]
+    data = [data] if isinstance(data, str) else list(data)
+    panel = load_panel([job.path(p) for p in data], codebook)
+    pred = panel.predictors(list(names)).copy()
+    pred.index = pred.index.map(str)
+    return pred
+
+
 def fit_growth(job) -> None:
-    """Rule ``fit_growth``: inputs ``scores``, ``codebook``; outputs ``fit``, ``estimates``,
-    ``comparison`` and ``figure`` (PNG; SVG and CSV beside it)."""
+    """Rule ``fit_growth``: inputs ``scores``, ``codebook`` (and ``data`` for the predictors);
+    outputs ``fit``, ``estimates``, ``comparison``, ``figure`` (PNG; SVG and CSV beside it)
+    and, when the rule names them, ``conditional`` and ``conditional_tests`` (the
+    conditional model of ``growth.predictors``; header only without predictors)."""
     settings = job.params.get("settings") or job.config.get("growth", {}) or {}
     codebook = load_codebook(job.path(job.input["codebook"]))
     waves = list(codebook.study.waves)
@@ -209,5 +284,15 @@ def fit_growth(job) -> None:
     write_table(job.path(job.output["fit"]), fit_df)
     write_table(job.path(job.output["estimates"]), est_df)
     write_table(job.path(job.output["comparison"]), compare_models(fits, residuals))
+    if "conditional" in job.output.keys():
+        names = list(settings.get("predictors") or [])
+        if names:
+            eff, tst = fit_conditional_models(scores, _person_predictors(job, codebook, names), waves, time_scores,
+                                              outcomes, shapes[0], residuals, bounded=bounded, seed=job.seed,
+                                              robust=robust, codebook=codebook)
+        else:
+            eff, tst = pd.DataFrame(columns=CONDITIONAL_COLUMNS), pd.DataFrame(columns=CONDITIONAL_TEST_COLUMNS)
+        write_table(job.path(job.output["conditional"]), eff)
+        write_table(job.path(job.output["conditional_tests"]), tst)
     stem = job.path(job.output["figure"]).with_suffix("")
     trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, seed=job.seed, codebook=codebook)
