@@ -125,7 +125,7 @@ def test_stand_in_is_labelled_everywhere(archives):
     top = "proj-stand-in"
     names = [n for n in members if n.startswith(f"{top}/data/data/raw/")]
     assert names == [f"{top}/data/data/raw/panel.STAND-IN.csv"]
-    assert "Stand-In-Data: data/raw/panel.STAND-IN.csv: SYNTHETIC STAND-IN DATA - NOT THE REAL DATA" in \
+    assert "Stand-in: data/raw/panel.STAND-IN.csv: SYNTHETIC STAND-IN DATA - NOT THE REAL DATA" in \
         members[f"{top}/bag-info.txt"].decode()
     assert "STAND-IN DATA - NOT THE REAL DATA" in members[f"{top}/data/ARCHIVE-README.md"].decode()
     graph = json.loads(members[f"{top}/data/ro-crate-metadata.json"])["@graph"]
@@ -136,11 +136,11 @@ def test_stand_in_is_labelled_everywhere(archives):
     assert registry.endswith("  raw/panel.STAND-IN.csv\n") and len(registry.splitlines()) == 1
     assert "data: [data/raw/panel.STAND-IN.csv]" in members[f"{top}/data/config/config.yaml"].decode()
     manifest = json.loads(members[f"{top}/data/wavetrail-archive.json"])
-    assert manifest["standin"]["path"] == "data/raw/panel.STAND-IN.csv"
+    assert manifest["stand-in"]["path"] == "data/raw/panel.STAND-IN.csv"
     assert set(manifest["altered"]) == {"config/config.yaml", "data/SHA256SUMS"}
     import hashlib
 
-    assert manifest["standin"]["sha256"] == hashlib.sha256(members[f"{top}/{'data/' + names[0][len(top) + 6:]}"]).hexdigest()
+    assert manifest["stand-in"]["sha256"] == hashlib.sha256(members[f"{top}/{'data/' + names[0][len(top) + 6:]}"]).hexdigest()
 
 
 def test_refuses_dirty_tree_and_drifted_ledger(tmp_path):
@@ -308,9 +308,9 @@ def test_cli_pack_and_verify(tmp_path, capsys):
 
     root = make_project(tmp_path / "proj", n=80, email=False)
     out = tmp_path / "cli.tar.gz"
-    assert main(["pack", str(root), "--data", "stand-in", "-o", str(out)]) == 0
+    assert main(["pack", str(root), "--raw", "stand-in", "-o", str(out)]) == 0
     assert f"archive written: {out}" in capsys.readouterr().out.replace("\n", "")
-    assert main(["verify", str(out), "--json", str(tmp_path / "v.json")]) == 0
+    assert main(["verify", str(out), "--json-to", str(tmp_path / "v.json")]) == 0
     printed = capsys.readouterr().out
     assert "VERIFIED" in printed and "NOT VERIFIED" not in printed
     assert json.loads((tmp_path / "v.json").read_text())["ok"] is True
@@ -329,7 +329,7 @@ def test_cli_pack_and_verify(tmp_path, capsys):
     _rezip(members, bad)
     assert main(["verify", str(bad)]) == 1
     assert "results/growth/fit.csv" in capsys.readouterr().out
-    assert main(["pack", str(root), "--data", "all"]) == 2
+    assert main(["pack", str(root), "--raw", "all"]) == 2
 
 
 def test_public_surface():

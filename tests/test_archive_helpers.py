@@ -171,7 +171,7 @@ rule compute_all:
 
 def make_project(root: Path, n: int = 300, seed: int = 1, email: bool = True,
                  extra_outputs: dict | None = None, workflow: bool = False) -> Path:
-    """A committed project with results and ledger (raw data git-ignored, as for closed data).
+    """A committed project with results and ledger (raw data git-ignored, as for data kept private).
 
     With ``workflow=True`` its Snakefile really recomputes the results (for rebuild tests).
     """

@@ -248,9 +248,9 @@ def test_changed_raw_byte_stops_the_build_until_registered(reference_build, tmp_
     message = str(info.value)
     assert "verify_data" in message
     assert "bytes differ from the registered hash" in message
-    assert f"wavetrail data add {raw}" in message
+    assert f"wavetrail data register {raw}" in message
     monkeypatch.chdir(copy)
-    assert main(["data", "add", raw]) == 0
+    assert main(["data", "register", raw]) == 0
     # now the registry check passes (only it is rebuilt here, to keep the test short) ...
     build_project(copy, cores=2, extra=["results/checks/data_registry.csv"])
     # ... and the ledger says exactly what the new bytes make out of date: nothing is

@@ -185,7 +185,7 @@ def _refused(root, mode, tmp_path, capsys, *expected):
     """pack refuses through the command line: exit 1, every expected text, no traceback."""
     from wavetrail.cli import main
 
-    code = main(["pack", str(root), "--data", mode, "-o", str(tmp_path / f"{mode}.zip")])
+    code = main(["pack", str(root), "--raw", mode, "-o", str(tmp_path / f"{mode}.zip")])
     out = capsys.readouterr()
     text = " ".join((out.out + out.err).split())
     assert code == 1 and "Traceback" not in text
@@ -236,7 +236,7 @@ def test_packed_small_cells_and_missing_counts_are_refused(tmp_path, capsys, mod
     # the threshold can be set for packing alone, and the message says so
     from wavetrail.cli import main
 
-    assert main(["pack", str(root), "--data", mode, "--min-cell", "1", "-o", str(tmp_path / "ok.zip")]) == 0
+    assert main(["pack", str(root), "--raw", mode, "--min-cell", "1", "-o", str(tmp_path / "ok.zip")]) == 0
     assert "counts below 1 (pack --min-cell)" in capsys.readouterr().out
 
 

@@ -83,7 +83,7 @@ def test_rules_write_records_and_refuse_changed_data(mini):
     assert failed.returncode != 0
     assert "data/raw/w2.csv: bytes differ from the registered hash" in failed.stderr
     assert f"expected sha256 {hashlib.sha256(raw).hexdigest()}" in failed.stderr
-    assert "wavetrail data add data/raw/w2.csv" in failed.stderr
+    assert "wavetrail data register data/raw/w2.csv" in failed.stderr
     # Snakemake removed the refused job's old output; the old record stays readable and
     # the ledger says the table is missing
     assert not (mini / "results/checks/data_registry.csv").exists()

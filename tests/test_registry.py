@@ -58,7 +58,7 @@ def test_changed_byte_is_refused_with_both_hashes_and_the_command(tmp_path):
     text = str(info.value)
     assert "data/raw/panel.csv" in text
     assert f"expected sha256 {old}" in text and f"actual   sha256 {new}" in text
-    assert "wavetrail data add data/raw/panel.csv" in text
+    assert "wavetrail data register data/raw/panel.csv" in text
     lines = register_files(project, [project / "data/raw/panel.csv"])
     assert lines == [f"updated    data/raw/panel.csv  sha256 {old} -> {new}  ({len(changed)} bytes)"]
     table = verify_registered(project, ["data/raw/panel.csv"])
@@ -71,7 +71,7 @@ def test_unregistered_and_missing_files_are_refused(tmp_path):
     register_files(project, [project / "data/raw/panel.csv"])
     with pytest.raises(RegistryError, match=r"wave2.csv: not registered.*") as info:
         verify_registered(project, ["data/raw/panel.csv", "data/raw/wave2.csv"])
-    assert "wavetrail data add data/raw/wave2.csv" in str(info.value)
+    assert "wavetrail data register data/raw/wave2.csv" in str(info.value)
     (project / "data/raw/panel.csv").unlink()
     with pytest.raises(RegistryError, match="panel.csv: file is missing"):
         verify_registered(project, ["data/raw/panel.csv"])
@@ -151,12 +151,12 @@ def test_add_commits_only_the_registry_with_a_neutral_author(tmp_path, no_git_id
 def test_cli_data_add_and_status(tmp_path, monkeypatch, capsys):
     project = make_project(tmp_path / "p")
     monkeypatch.chdir(project)
-    assert main(["data", "status"]) == 1  # unregistered
-    assert main(["data", "add", "data/raw/panel.csv"]) == 0
-    assert main(["data", "status"]) == 0
+    assert main(["data", "compare"]) == 1  # unregistered
+    assert main(["data", "register", "data/raw/panel.csv"]) == 0
+    assert main(["data", "compare"]) == 0
     (project / "data/raw/panel.csv").write_text(PANEL + "9,9,9\n")
-    assert main(["data", "status"]) == 1
+    assert main(["data", "compare"]) == 1
     out = capsys.readouterr().out
     assert "changed" in out
-    assert main(["data", "add", "missing.csv"]) == 1
+    assert main(["data", "register", "missing.csv"]) == 1
     assert "no such data file" in capsys.readouterr().err

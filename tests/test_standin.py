@@ -316,14 +316,14 @@ def test_pack_prints_the_closeness_and_refuses_above_the_threshold(tmp_path, cap
     from wavetrail.cli import main
 
     root = make_project(tmp_path / "proj", n=150, email=False)
-    assert main(["pack", str(root), "--data", "stand-in", "-o", str(tmp_path / "s.zip")]) == 0
+    assert main(["pack", str(root), "--raw", "stand-in", "-o", str(tmp_path / "s.zip")]) == 0
     out = " ".join(capsys.readouterr().out.split())
     assert re.search(r"stand-in closeness: \d+ of \d+ stand-in rows", out) and "0 equal a real row" in out
     with zipfile.ZipFile(tmp_path / "s.zip") as zf:
         readme = zf.read("proj-stand-in/data/ARCHIVE-README.md").decode()
     assert "stand-in closeness:" in readme and "0 equal a real row" in readme
     monkeypatch.setattr(standin_mod, "FIT_MARGIN", -1.0)  # the allowance now lies below any share
-    code = main(["pack", str(root), "--data", "stand-in", "-o", str(tmp_path / "t.zip")])
+    code = main(["pack", str(root), "--raw", "stand-in", "-o", str(tmp_path / "t.zip")])
     text = " ".join(capsys.readouterr().err.split())
     assert code == 1 and "too close to the real rows" in text and "Traceback" not in text
     assert not (tmp_path / "t.zip").exists()

@@ -45,6 +45,7 @@ from wavetrail.archive import standin as standin_mod
 from wavetrail.archive.bag import make_bag, write_archive
 from wavetrail.archive.crate import build_crate
 from wavetrail.archive.disclosure import BLOCK, check_outputs, check_raw_files
+from wavetrail.archive.schema import STAND_IN_LABEL
 
 MODES = ("include", "exclude", "stand-in")
 MANIFEST = "wavetrail-archive.json"
@@ -283,7 +284,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
     unregistered = [p for p in raw_paths if p not in registry]
     if unregistered:
         raise ArchiveError(f"{unregistered[0]}: listed under `data` in config/config.yaml but not registered "
-                           "in data/SHA256SUMS", hint=f"register it with `wavetrail data add {unregistered[0]}`, "
+                           "in data/SHA256SUMS", hint=f"register it with `wavetrail data register {unregistered[0]}`, "
                                                       "commit, and rebuild")
 
     # -------- the payload: tracked files + results + lock + registry
@@ -322,7 +323,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
                                    hint="put the file back, or pack with --data exclude")
             if rel in registry and sha256_file(f) != registry[rel]:
                 raise ArchiveError(f"{rel}: bytes differ from data/SHA256SUMS",
-                                   hint=f"accept them with `wavetrail data add {rel}` and rebuild")
+                                   hint=f"accept them with `wavetrail data register {rel}` and rebuild")
             files[rel] = f
     else:
         for rel in raw_paths:
@@ -388,7 +389,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             "schema": SCHEMA, "title": _title(config, codebook, root), "commit": commit,
             "committed": when.isoformat(timespec="seconds"), "wavetrail": __version__, "mode": data,
             "registry": {p: registry[p] for p in sorted(registry)},
-            "withheld": withheld, "standin": standin, "altered": altered,
+            "withheld": withheld, "stand-in": standin, "altered": altered,
             "disclosure": {"min_cell": threshold, "min_cell_source": source, "findings": findings,
                            "allowed": bool(blocking)},
             "state": {"problems": problems, "allowed": bool(problems)},
@@ -422,7 +423,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             "Raw-Data-Mode": data,
         }
         if standin:
-            bag_info["Stand-In-Data"] = f"{standin['path']}: {standin_mod.NOTE}"
+            bag_info[STAND_IN_LABEL] = f"{standin['path']}: {standin_mod.NOTE}"
         make_bag(staging, bag_info, date=when.date().isoformat(), agent=f"wavetrail {__version__}")
         if output is None:
             output = root.parent / f"{root.name}-{commit[:10]}-{data}.zip"
