@@ -29,7 +29,7 @@ def project(tmp_path_factory):
 @pytest.fixture(scope="module")
 def archives(project, tmp_path_factory):
     out = tmp_path_factory.mktemp("out")
-    return {mode: pack_project(project, data=mode, output=out / f"{mode}.zip")
+    return {mode: pack_project(project, raw=mode, output=out / f"{mode}.zip")
             for mode in ("include", "exclude", "stand-in")}
 
 
@@ -81,10 +81,10 @@ def test_bag_is_valid_to_bagit_and_carries_project_facts(archives, project, tmp_
 
 
 def test_packing_is_byte_stable(project, archives, tmp_path):
-    again = pack_project(project, data="include", output=tmp_path / "again.zip")
+    again = pack_project(project, raw="include", output=tmp_path / "again.zip")
     assert again.read_bytes() == archives["include"].read_bytes()
-    tgz1 = pack_project(project, data="exclude", output=tmp_path / "a.tar.gz")
-    tgz2 = pack_project(project, data="exclude", output=tmp_path / "b.tar.gz")
+    tgz1 = pack_project(project, raw="exclude", output=tmp_path / "a.tar.gz")
+    tgz2 = pack_project(project, raw="exclude", output=tmp_path / "b.tar.gz")
     assert tgz1.read_bytes() == tgz2.read_bytes()
     assert verify_archive(tgz1).ok
     with tarfile.open(tgz1) as tf:
@@ -104,7 +104,7 @@ def test_crate_describes_every_record(archives):
     actions = [e for e in graph if e["@type"] == "CreateAction"]
     steps = sorted(a["@id"] for a in actions)
     assert steps == ["#run/describe--outcome=sd", "#run/lock_environment", "#run/score_scales",
-                     "#run/verify_data", "#run/workflow"]
+                     "#run/confirm_raw_hashes", "#run/workflow"]
     assert sorted(m["@id"] for m in root["mentions"]) == steps
     score = by_id["#run/score_scales"]
     assert score["startTime"] == "2026-12-01T10:00:00+00:00" and score["endTime"] == "2026-12-01T10:00:05+00:00"
@@ -147,25 +147,25 @@ def test_refuses_dirty_tree_and_drifted_ledger(tmp_path):
     root = make_project(tmp_path / "proj", n=80, email=False)
     (root / "config/codebook.yaml").write_text((root / "config/codebook.yaml").read_text() + "# edit\n")
     with pytest.raises(ArchiveError, match=r"config/codebook.yaml: uncommitted change") as err:
-        pack_project(root, data="exclude")
+        pack_project(root, raw="exclude")
     assert "--allow-dirty" in str(err.value)
-    assert pack_project(root, data="exclude", allow_dirty=True, output=tmp_path / "d.zip").is_file()
+    assert pack_project(root, raw="exclude", allow_dirty=True, output=tmp_path / "d.zip").is_file()
     report = verify_archive(tmp_path / "d.zip")
     assert any(report.table["check"] == "state")  # the reviewer sees it was packed dirty
     root2 = make_project(tmp_path / "proj2", n=80, email=False)
     fit = root2 / "results/growth/fit.csv"
     fit.write_text(fit.read_text().replace("linear", "lineal"))
     with pytest.raises(ArchiveError, match=r"results/growth/fit.csv: bytes differ from its ledger record"):
-        pack_project(root2, data="exclude")
+        pack_project(root2, raw="exclude")
 
 
 def test_refuses_unknown_mode_and_unbuilt_project(tmp_path, project):
     from wavetrail.errors import UsageError
 
     with pytest.raises(UsageError):
-        pack_project(project, data="some")
+        pack_project(project, raw="some")
     with pytest.raises(ArchiveError, match="must end in .zip or .tar.gz"):
-        pack_project(project, data="exclude", output=tmp_path / "x.rar")
+        pack_project(project, raw="exclude", output=tmp_path / "x.rar")
 
 
 # ----------------------------------------------------------------------------- tampering

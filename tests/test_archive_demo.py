@@ -29,7 +29,7 @@ def archives(demo, tmp_path_factory):
     for mode in ("include", "exclude", "stand-in"):
         # no override: the demo's outputs (check findings give raw-file row numbers, not ids;
         # per-person scores are withheld without the raw data) pass the disclosure check
-        made[mode] = pack_project(demo, data=mode, output=out / f"{mode}.zip")
+        made[mode] = pack_project(demo, raw=mode, output=out / f"{mode}.zip")
     return made
 
 

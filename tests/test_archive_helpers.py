@@ -134,7 +134,7 @@ def write_results(root: Path, commit: str, extra_outputs: dict | None = None) ->
     records = {
         "lock_environment": _record(root, "lock_environment", [], ["environment/requirements.lock"],
                                     commit=commit),
-        "verify_data": _record(root, "verify_data", [data_file, "data/SHA256SUMS"],
+        "confirm_raw_hashes": _record(root, "confirm_raw_hashes", [data_file, "data/SHA256SUMS"],
                                ["results/checks/data_registry.csv"], commit=commit),
         "score_scales": _record(root, "score_scales", [data_file, "config/codebook.yaml",
                                                        "results/checks/data_registry.csv"],

@@ -103,10 +103,10 @@ def test_pack_refuses_on_disclosure_and_records_an_accepted_finding(tmp_path):
     root = make_project(tmp_path / "proj", n=120, email=False,
                         extra_outputs={"results/checks/groups.csv": small})
     with pytest.raises(ArchiveError) as err:
-        pack_project(root, data="exclude")
+        pack_project(root, raw="exclude")
     text = str(err.value)
     assert "results/checks/groups.csv, row 2, column 'n': count 2" in text and "--allow-disclosure" in text
-    out = pack_project(root, data="exclude", allow_disclosure=True, output=tmp_path / "a.zip")
+    out = pack_project(root, raw="exclude", allow_disclosure=True, output=tmp_path / "a.zip")
     import zipfile
 
     with zipfile.ZipFile(out) as zf:
@@ -120,9 +120,9 @@ def test_pack_refuses_on_disclosure_and_records_an_accepted_finding(tmp_path):
 def test_include_mode_refuses_raw_identifiers(tmp_path):
     root = make_project(tmp_path / "proj", n=80, email=True)
     with pytest.raises(ArchiveError, match="raw data column 'email' is an identifier"):
-        pack_project(root, data="include")
+        pack_project(root, raw="include")
     # the same project packs without the raw file
-    assert pack_project(root, data="exclude", output=tmp_path / "x.zip").is_file()
+    assert pack_project(root, raw="exclude", output=tmp_path / "x.zip").is_file()
 
 
 def test_person_ids_named_in_text_are_found(tmp_path, real):

@@ -15,7 +15,7 @@ from wavetrail.registry import (
     registry_status,
     verify_registered,
 )
-from wavetrail.stages.provenance import verify_data
+from wavetrail.stages.provenance import confirm_raw_hashes
 from wavetrail.stages.runner import Job
 
 PANEL = "pid,wave,slp1\n1,1,3\n1,2,4\n2,1,-99\n"
@@ -113,19 +113,19 @@ def test_status_states(tmp_path):
     assert status.loc[status["file"] == "data/raw/panel.csv", "size"].item() == len(PANEL)
 
 
-def test_verify_data_step_writes_the_registry_table(tmp_path):
+def test_confirm_raw_hashes_step_writes_the_registry_table(tmp_path):
     project = make_project(tmp_path / "p")
     register_files(project, [project / "data/raw/panel.csv"])
-    job = Job(step="verify_data", project=project,
+    job = Job(step="confirm_raw_hashes", project=project,
               input={"data": ["data/raw/panel.csv"], "registry": "data/SHA256SUMS"},
               output={"registry": "results/checks/data_registry.csv"})
-    verify_data(job)
+    confirm_raw_hashes(job)
     digest = hashlib.sha256(PANEL.encode()).hexdigest()
     assert (project / "results/checks/data_registry.csv").read_text() == (
         f"file,sha256,size,state\ndata/raw/panel.csv,{digest},{len(PANEL)},ok\n")
     (project / "data/raw/panel.csv").write_bytes(PANEL.encode()[:-1] + b"9")
     with pytest.raises(RegistryError):
-        verify_data(job)
+        confirm_raw_hashes(job)
 
 
 def test_add_commits_only_the_registry_with_a_neutral_author(tmp_path, no_git_identity):

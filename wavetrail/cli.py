@@ -323,7 +323,7 @@ def pack(
         raise typer.BadParameter("--raw must be include, exclude or stand-in")
     notes: list = []
     try:
-        out = pack_project(path, data=raw, output=output, allow_dirty=allow_dirty,
+        out = pack_project(path, raw=raw, output=output, allow_dirty=allow_dirty,
                            allow_disclosure=allow_disclosure, min_cell=min_cell, notes=notes)
     finally:
         for line in notes:

@@ -3,7 +3,7 @@
 The file is in sha256sum format — ``<64 hex digits><two spaces><path relative to
 data/>`` — so ``cd data && sha256sum -c SHA256SUMS`` checks it without
 wavetrail. Lines are sorted by path. The first workflow step
-(:func:`wavetrail.stages.provenance.verify_data`) refuses to run when a raw
+(:func:`wavetrail.stages.provenance.confirm_raw_hashes`) refuses to run when a raw
 file's bytes differ from its registered hash; ``wavetrail data register FILE``
 accepts the new bytes and, in a git repository, commits the registry.
 """

@@ -101,7 +101,7 @@ def _finish(rows: _Rows, json_path, details: dict, rebuild: bool, archive: Path)
         lines.append(f"  ... and {len(bad) - 10} more")
     if details.get("code"):
         lines.append(details["code"]["headline"])
-    if details.get("standin_rebuilt"):
+    if details.get("rebuilt_on_stand_in"):
         lines.append("stand-in: the outputs were rebuilt on the STAND-IN rows and not compared with the "
                      "archived results (those come from the real data); the rebuild shows only that the "
                      "workflow runs end to end")
@@ -201,7 +201,7 @@ def verify_archive(archive, rebuild: bool = False, json_path=None, rtol: float =
                 progress(code.headline())
             _guarded(rows, "rebuild", lambda: _rebuild(payload, manifest, records, Path(tmp), rows, rtol, cores),
                      None)
-            details["standin_rebuilt"] = any(r["status"] == "rebuilt on stand-in" for r in rows.rows)
+            details["rebuilt_on_stand_in"] = any(r["status"] == "rebuilt on stand-in" for r in rows.rows)
     return _finish(rows, json_path, details, rebuild, archive)
 
 

@@ -1000,7 +1000,7 @@ class Report:
             + '<pre class="wt-commands">wavetrail build             # rebuild what is out of date\n'
               "wavetrail ledger --drift    # outputs whose bytes no longer match their record\n"
               "wavetrail plan diff         # deviations from the frozen analysis plan\n"
-              "wavetrail pack -o review.zip --data stand-in\n"
+              "wavetrail pack -o review.zip --raw stand-in\n"
               "wavetrail verify review.zip --rebuild</pre>"
         )
 

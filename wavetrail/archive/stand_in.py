@@ -641,7 +641,7 @@ def synthesize(panel, seed: int, missing_reasons: pd.DataFrame | None = None) ->
     else:
         raise ArchiveError(
             "cannot draw stand-in rows that differ from every real row: the codebook has too few "
-            "variables with too few values", hint="use --data exclude for this project")
+            "variables with too few values", hint="use --raw exclude for this project")
     near = closeness(real_cmp, enc, wave_col)
 
     coded = _coded_share(long, reasons, vars_out, wave_col)
