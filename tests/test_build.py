@@ -137,10 +137,10 @@ def test_new_project_builds_end_to_end_and_a_second_build_runs_nothing(built_dem
                 "results/forest/importance.csv", "results/forest/dependence.csv",
                 "results/forest/interactions.csv", "results/forest/dependence_pairs.csv",
                 "results/forest/importance_plot.png",
-                "results/reports/report.html", "results/reports/report.ipynb",
+                "results/write-up/report.html", "results/write-up/report.ipynb",
                 "environment/requirements.lock"):
         assert (root / rel).is_file() and (root / rel).stat().st_size > 0, rel
-    assert result.report == root / "results" / "reports" / "report.html"
+    assert result.report == root / "results" / "write-up" / "report.html"
     again = build_project(root, cores=2)
     assert again.jobs == [] and again.up_to_date
     assert "nothing to do" in again.summary

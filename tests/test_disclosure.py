@@ -51,7 +51,7 @@ def test_identifier_value_in_a_report_blocks_and_names_the_line(tmp_path, real):
     cb, panel = real
     email = panel.long["email"].dropna().iloc[7]
     html = "<html>\n<body>\n<p>outlier: " + email + "</p>\n</body></html>\n"
-    report = _check(tmp_path, real, {"results/reports/report.html": html})
+    report = _check(tmp_path, real, {"results/write-up/report.html": html})
     hit = report.blocking.iloc[0]
     assert hit["check"] == "identifier value" and hit["row"] == 3
 

@@ -21,7 +21,7 @@ ROOT = Path(__file__).resolve().parents[1]
 #: earlier names (pattern -> what replaced it); matched in help, schema, template and docs
 EARLIER_NAMES = {
     r"\bdata add\b": "wavetrail data register",
-    r"\bdata status\b": "wavetrail data compare",
+    r"\bdata status\b|register\|status": "wavetrail data compare",
     r"\bclosed data\b|\bdata are closed\b|\bclosed by default\b|\bwhile closed\b": "kept private",
     r"\bopen data\b|\bdata are open\b": "shareable",
     r"\bmeanstructure\b": "means=",
@@ -36,6 +36,7 @@ EARLIER_NAMES = {
     r"\bchen\b": "decision_all_indices",
     r"BagIt-Version:\s*0\.97": "BagIt-Version: 1.0",
     r"pack [^\n]*--data\b": "pack --raw",
+    r"results/reports\b|\"results\", \"reports\"": "results/write-up",
 }
 
 #: references to documents outside the repository; matched in every file of the repository
@@ -93,7 +94,7 @@ def test_the_scan_finds_what_it_looks_for():
                "meanstructure=TRUE", "orthogonal=True", 'information="observed"', "forest.method: score",
                "method: score", "-p/--project PATH", "used_features", '"format": "wavetrail-forest/1"',
                "standin", "Stand-In-Data", "verify_data", "chen", "BagIt-Version: 0.97",
-               "wavetrail pack --data stand-in")
+               "wavetrail pack --data stand-in", "results/reports/figures")
     for text in earlier:
         assert _hits(text, EARLIER_NAMES), text
     for text in ("see DESIGN 2.3", "recorded in NOTES.md", "by the issue author", "in the design)",
@@ -203,3 +204,76 @@ def test_earlier_sem_argument_names_warn_and_give_the_same_fit():
     assert fit_cfa(data, factors, se_from="expected", means=False).fit["k"] == new.fit["k"] + 1
     with pytest.raises(TypeError, match="unexpected keyword"):
         fit_cfa(data, factors, orthogonl=True)
+
+
+def test_the_cli_prints_the_renamed_setting_as_one_note(tmp_path, capsys, monkeypatch):
+    from wavetrail.cli import main
+    from wavetrail.project import new_project
+
+    root = new_project(tmp_path / "p", author="Test <t@example.org>")
+    cfg = root / "config" / "config.yaml"
+    text = cfg.read_text(encoding="utf-8")
+    lines = text.splitlines()
+    at = next(i for i, line in enumerate(lines) if line.startswith("forest:"))
+    lines.insert(at + 1, "  method: score")
+    cfg.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    main(["check", str(root)])
+    err = capsys.readouterr().err
+    assert f"note: {cfg}, line {at + 2}: forest.method is renamed forest.split; write 'split: scores'" in err
+    assert "warnings.warn" not in err and "config.py" not in err
+
+
+def test_earlier_command_spellings_still_work_with_a_note(tmp_path, capsys, monkeypatch):
+    from wavetrail.cli import main
+    from wavetrail.project import new_project
+
+    root = new_project(tmp_path / "p", author="Test <t@example.org>")
+    (root / "data" / "raw").mkdir(parents=True, exist_ok=True)
+    (root / "data" / "raw" / "panel.csv").write_text("id,wave,x\n1,1,2\n", encoding="utf-8")
+    monkeypatch.chdir(tmp_path)
+    # today's spelling: the project is found from the file, then compared by its PATH
+    assert main(["data", "register", "p/data/raw/panel.csv"]) == 0
+    assert "data/SHA256SUMS" not in capsys.readouterr().err
+    assert main(["data", "compare", "p"]) == 0
+    # the earlier spellings, with a note each
+    assert main(["data", "status", "-p", "p"]) == 0
+    err = capsys.readouterr().err
+    assert "`wavetrail data status` is now `wavetrail data compare`" in err and "-p/--project" in err
+    (root / "data" / "raw" / "panel.csv").write_text("id,wave,x\n1,1,3\n", encoding="utf-8")
+    assert main(["data", "compare", "p"]) == 1
+    assert main(["data", "add", "p/data/raw/panel.csv"]) == 0
+    assert "is now `wavetrail data register`" in capsys.readouterr().err
+    assert main(["data", "compare", "p"]) == 0
+
+
+def test_the_bag_declares_bagit_1_0_and_still_validates(tmp_path):
+    import bagit
+
+    from wavetrail.archive.bag import make_bag, validate_bag
+
+    staging = tmp_path / "bag"
+    staging.mkdir()
+    (staging / "results.csv").write_text("a,b\n1,2\n", encoding="utf-8")
+    make_bag(staging, {"Project-Title": "t"}, date="2026-01-01", agent="wavetrail test")
+    assert (staging / "bagit.txt").read_bytes() == b"BagIt-Version: 1.0\nTag-File-Character-Encoding: UTF-8\n"
+    bag = bagit.Bag(str(staging))
+    assert bag.version_info == (1, 0)
+    bag.validate()  # the tag manifest carries the new bagit.txt hash
+    assert validate_bag(staging, "bag") == []
+    # control: a bagit.txt edited after the fact no longer matches the tag manifest
+    (staging / "bagit.txt").write_bytes(b"BagIt-Version: 0.97\nTag-File-Character-Encoding: UTF-8\n")
+    with pytest.raises(bagit.BagValidationError):
+        bagit.Bag(str(staging)).validate()
+
+
+def test_max_depth_has_one_default_in_settings_and_python():
+    import inspect
+
+    from wavetrail.config import default_config
+    from wavetrail.forest import grow_forest, grow_tree
+
+    assert default_config()["forest"]["max_depth"] == 3
+    assert inspect.signature(grow_tree).parameters["max_depth"].default == 3
+    assert inspect.signature(grow_forest).parameters["max_depth"].default == 3
+    assert default_config()["forest"]["split"] == "scores"
+    assert inspect.signature(grow_tree).parameters["split"].default == "scores"

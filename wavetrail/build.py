@@ -84,7 +84,7 @@ class BuildResult:
 
     @property
     def report(self) -> Path | None:
-        path = self.project / "results" / "reports" / "report.html"
+        path = self.project / "results" / "write-up" / "report.html"
         return path if path.is_file() else None
 
     @property

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import os
 import sys
+import warnings
 from pathlib import Path
 from typing import List, Optional
 
@@ -19,6 +20,8 @@ from rich.table import Table
 from wavetrail import __version__
 from wavetrail.errors import WavetrailError
 
+#: Python's own warning printer, for every warning but a renamed setting
+_SHOW_WARNING = warnings.showwarning
 console = Console(highlight=False)
 err_console = Console(stderr=True, highlight=False)
 
@@ -234,13 +237,13 @@ def data_compare(path: Path = ProjectArg, project: Optional[Path] = EarlierProje
 
 @data_app.command("add", hidden=True)
 def data_add_earlier(files: List[Path] = typer.Argument(...), project: Optional[Path] = EarlierProject):
-    _earlier_spelling("`wavetrail data register`", "`wavetrail data register`")
+    _earlier_spelling("`wavetrail data add`", "`wavetrail data register`")
     data_register(files, project)
 
 
 @data_app.command("status", hidden=True)
 def data_status_earlier(path: Path = ProjectArg, project: Optional[Path] = EarlierProject):
-    _earlier_spelling("`wavetrail data compare`", "`wavetrail data compare`")
+    _earlier_spelling("`wavetrail data status`", "`wavetrail data compare`")
     data_compare(path, project)
 
 
@@ -357,8 +360,24 @@ def verify(
     raise typer.Exit(0 if report.ok else 1)
 
 
+def _show_renamed(message, category, filename, lineno, file=None, line=None):
+    """Print a renamed-setting warning as one plain note (no source line of wavetrail's code)."""
+    from wavetrail.config import SettingRenamed
+
+    if issubclass(category, SettingRenamed):
+        err_console.print(f"note: {message}", markup=False, soft_wrap=True)
+    else:
+        _SHOW_WARNING(message, category, filename, lineno, file, line)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Console entry point: run the app, turn WavetrailError into a message and exit code."""
+    with warnings.catch_warnings():
+        warnings.showwarning = _show_renamed
+        return _main(argv)
+
+
+def _main(argv: list[str] | None) -> int:
     try:
         code = app(args=argv, standalone_mode=False)
     except WavetrailError as err:

@@ -115,7 +115,7 @@ class Report:
         self.settings = dict(settings)
         self.min_cell = int(self.settings.get("min_cell", 5))
         self.study = _in.read_study(self.root / self.settings["codebook"]) if self.settings.get("codebook") else _in.StudyInfo()
-        self.figures_dir = self.root / self.settings.get("figures", "results/reports/figures")
+        self.figures_dir = self.root / self.settings.get("figures", "results/write-up/figures")
         self._numbers: dict[tuple[str, str], int] = {}
 
     # ------------------------------------------------------------------ helpers
