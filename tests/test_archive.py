@@ -103,8 +103,8 @@ def test_crate_describes_every_record(archives):
     assert "ComputationalWorkflow" in by_id["workflow/Snakefile"]["@type"]
     actions = [e for e in graph if e["@type"] == "CreateAction"]
     steps = sorted(a["@id"] for a in actions)
-    assert steps == ["#run/describe--outcome=sd", "#run/lock_environment", "#run/score_scales",
-                     "#run/confirm_raw_hashes", "#run/workflow"]
+    assert steps == ["#run/confirm_raw_hashes", "#run/describe--outcome=sd", "#run/lock_environment",
+                     "#run/score_scales", "#run/workflow"]
     assert sorted(m["@id"] for m in root["mentions"]) == steps
     score = by_id["#run/score_scales"]
     assert score["startTime"] == "2026-12-01T10:00:00+00:00" and score["endTime"] == "2026-12-01T10:00:05+00:00"
