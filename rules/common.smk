@@ -85,7 +85,7 @@ def report_inputs(wildcards=None):
 
 def final_outputs():
     """Everything `rule all` asks for."""
-    outputs = ["results/reports/report.html", "results/reports/report.ipynb"]
+    outputs = ["results/write-up/report.html", "results/write-up/report.ipynb"]
     if forest_enabled():
         outputs.append("results/forest/importance.csv")
     return outputs

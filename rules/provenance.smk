@@ -1,14 +1,14 @@
 # Audit trail: the raw data must match data/SHA256SUMS; the installed packages are locked.
 
 
-rule verify_data:
+rule confirm_raw_hashes:
     input:
         data=data_files(),
         registry="data/SHA256SUMS",
     output:
         registry="results/checks/data_registry.csv",
     log:
-        "logs/provenance/verify_data.log",
+        "logs/provenance/confirm_raw_hashes.log",
     resources:
         runtime=RUNTIME,
         mem_mb=MEM_MB,

@@ -5,10 +5,10 @@ rule render_report:
     input:
         unpack(report_inputs),
     output:
-        notebook="results/reports/report.ipynb",
-        html="results/reports/report.html",
+        notebook="results/write-up/report.ipynb",
+        html="results/write-up/report.html",
         # the report's own figures (PNG, SVG and data CSV each): recorded in the ledger, carried by archives
-        figures=directory("results/reports/figures"),
+        figures=directory("results/write-up/figures"),
     params:
         settings=config["report"],
     log:

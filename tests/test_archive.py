@@ -29,7 +29,7 @@ def project(tmp_path_factory):
 @pytest.fixture(scope="module")
 def archives(project, tmp_path_factory):
     out = tmp_path_factory.mktemp("out")
-    return {mode: pack_project(project, data=mode, output=out / f"{mode}.zip")
+    return {mode: pack_project(project, raw=mode, output=out / f"{mode}.zip")
             for mode in ("include", "exclude", "stand-in")}
 
 
@@ -81,10 +81,10 @@ def test_bag_is_valid_to_bagit_and_carries_project_facts(archives, project, tmp_
 
 
 def test_packing_is_byte_stable(project, archives, tmp_path):
-    again = pack_project(project, data="include", output=tmp_path / "again.zip")
+    again = pack_project(project, raw="include", output=tmp_path / "again.zip")
     assert again.read_bytes() == archives["include"].read_bytes()
-    tgz1 = pack_project(project, data="exclude", output=tmp_path / "a.tar.gz")
-    tgz2 = pack_project(project, data="exclude", output=tmp_path / "b.tar.gz")
+    tgz1 = pack_project(project, raw="exclude", output=tmp_path / "a.tar.gz")
+    tgz2 = pack_project(project, raw="exclude", output=tmp_path / "b.tar.gz")
     assert tgz1.read_bytes() == tgz2.read_bytes()
     assert verify_archive(tgz1).ok
     with tarfile.open(tgz1) as tf:
@@ -103,8 +103,8 @@ def test_crate_describes_every_record(archives):
     assert "ComputationalWorkflow" in by_id["workflow/Snakefile"]["@type"]
     actions = [e for e in graph if e["@type"] == "CreateAction"]
     steps = sorted(a["@id"] for a in actions)
-    assert steps == ["#run/describe--outcome=sd", "#run/lock_environment", "#run/score_scales",
-                     "#run/verify_data", "#run/workflow"]
+    assert steps == ["#run/confirm_raw_hashes", "#run/describe--outcome=sd", "#run/lock_environment",
+                     "#run/score_scales", "#run/workflow"]
     assert sorted(m["@id"] for m in root["mentions"]) == steps
     score = by_id["#run/score_scales"]
     assert score["startTime"] == "2026-12-01T10:00:00+00:00" and score["endTime"] == "2026-12-01T10:00:05+00:00"
@@ -125,7 +125,7 @@ def test_stand_in_is_labelled_everywhere(archives):
     top = "proj-stand-in"
     names = [n for n in members if n.startswith(f"{top}/data/data/raw/")]
     assert names == [f"{top}/data/data/raw/panel.STAND-IN.csv"]
-    assert "Stand-In-Data: data/raw/panel.STAND-IN.csv: SYNTHETIC STAND-IN DATA - NOT THE REAL DATA" in \
+    assert "Stand-in: data/raw/panel.STAND-IN.csv: SYNTHETIC STAND-IN DATA - NOT THE REAL DATA" in \
         members[f"{top}/bag-info.txt"].decode()
     assert "STAND-IN DATA - NOT THE REAL DATA" in members[f"{top}/data/ARCHIVE-README.md"].decode()
     graph = json.loads(members[f"{top}/data/ro-crate-metadata.json"])["@graph"]
@@ -136,36 +136,36 @@ def test_stand_in_is_labelled_everywhere(archives):
     assert registry.endswith("  raw/panel.STAND-IN.csv\n") and len(registry.splitlines()) == 1
     assert "data: [data/raw/panel.STAND-IN.csv]" in members[f"{top}/data/config/config.yaml"].decode()
     manifest = json.loads(members[f"{top}/data/wavetrail-archive.json"])
-    assert manifest["standin"]["path"] == "data/raw/panel.STAND-IN.csv"
+    assert manifest["stand-in"]["path"] == "data/raw/panel.STAND-IN.csv"
     assert set(manifest["altered"]) == {"config/config.yaml", "data/SHA256SUMS"}
     import hashlib
 
-    assert manifest["standin"]["sha256"] == hashlib.sha256(members[f"{top}/{'data/' + names[0][len(top) + 6:]}"]).hexdigest()
+    assert manifest["stand-in"]["sha256"] == hashlib.sha256(members[f"{top}/{'data/' + names[0][len(top) + 6:]}"]).hexdigest()
 
 
 def test_refuses_dirty_tree_and_drifted_ledger(tmp_path):
     root = make_project(tmp_path / "proj", n=80, email=False)
     (root / "config/codebook.yaml").write_text((root / "config/codebook.yaml").read_text() + "# edit\n")
     with pytest.raises(ArchiveError, match=r"config/codebook.yaml: uncommitted change") as err:
-        pack_project(root, data="exclude")
+        pack_project(root, raw="exclude")
     assert "--allow-dirty" in str(err.value)
-    assert pack_project(root, data="exclude", allow_dirty=True, output=tmp_path / "d.zip").is_file()
+    assert pack_project(root, raw="exclude", allow_dirty=True, output=tmp_path / "d.zip").is_file()
     report = verify_archive(tmp_path / "d.zip")
     assert any(report.table["check"] == "state")  # the reviewer sees it was packed dirty
     root2 = make_project(tmp_path / "proj2", n=80, email=False)
     fit = root2 / "results/growth/fit.csv"
     fit.write_text(fit.read_text().replace("linear", "lineal"))
     with pytest.raises(ArchiveError, match=r"results/growth/fit.csv: bytes differ from its ledger record"):
-        pack_project(root2, data="exclude")
+        pack_project(root2, raw="exclude")
 
 
 def test_refuses_unknown_mode_and_unbuilt_project(tmp_path, project):
     from wavetrail.errors import UsageError
 
     with pytest.raises(UsageError):
-        pack_project(project, data="some")
+        pack_project(project, raw="some")
     with pytest.raises(ArchiveError, match="must end in .zip or .tar.gz"):
-        pack_project(project, data="exclude", output=tmp_path / "x.rar")
+        pack_project(project, raw="exclude", output=tmp_path / "x.rar")
 
 
 # ----------------------------------------------------------------------------- tampering
@@ -308,9 +308,9 @@ def test_cli_pack_and_verify(tmp_path, capsys):
 
     root = make_project(tmp_path / "proj", n=80, email=False)
     out = tmp_path / "cli.tar.gz"
-    assert main(["pack", str(root), "--data", "stand-in", "-o", str(out)]) == 0
+    assert main(["pack", str(root), "--raw", "stand-in", "-o", str(out)]) == 0
     assert f"archive written: {out}" in capsys.readouterr().out.replace("\n", "")
-    assert main(["verify", str(out), "--json", str(tmp_path / "v.json")]) == 0
+    assert main(["verify", str(out), "--json-to", str(tmp_path / "v.json")]) == 0
     printed = capsys.readouterr().out
     assert "VERIFIED" in printed and "NOT VERIFIED" not in printed
     assert json.loads((tmp_path / "v.json").read_text())["ok"] is True
@@ -329,7 +329,7 @@ def test_cli_pack_and_verify(tmp_path, capsys):
     _rezip(members, bad)
     assert main(["verify", str(bad)]) == 1
     assert "results/growth/fit.csv" in capsys.readouterr().out
-    assert main(["pack", str(root), "--data", "all"]) == 2
+    assert main(["pack", str(root), "--raw", "all"]) == 2
 
 
 def test_public_surface():

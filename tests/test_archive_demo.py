@@ -29,7 +29,7 @@ def archives(demo, tmp_path_factory):
     for mode in ("include", "exclude", "stand-in"):
         # no override: the demo's outputs (check findings give raw-file row numbers, not ids;
         # per-person scores are withheld without the raw data) pass the disclosure check
-        made[mode] = pack_project(demo, data=mode, output=out / f"{mode}.zip")
+        made[mode] = pack_project(demo, raw=mode, output=out / f"{mode}.zip")
     return made
 
 
@@ -55,7 +55,7 @@ def test_demo_include_rebuild_is_identical(archives):
     assert len(statuses) >= 10
     # the report's bytes depend on the inputs only (no times, no commit), so the report pages
     # are compared like every table, figure and forest file: byte-identical
-    assert any(k.startswith("results/reports/figures/") for k in statuses), sorted(statuses)
+    assert any(k.startswith("results/write-up/figures/") for k in statuses), sorted(statuses)
     not_identical = {k: v for k, v in statuses.items() if v != "identical"}
     assert not_identical == {}, report.table[report.table["check"] == "rebuild"].to_string()
 
@@ -72,7 +72,7 @@ def test_demo_stand_in_rebuilds_end_to_end(archives):
 def test_demo_report_shows_the_numbers_of_its_tables(demo):
     from test_report import check_report_against_tables
 
-    page = (demo / "results/reports/report.html").read_text(encoding="utf-8")
+    page = (demo / "results/write-up/report.html").read_text(encoding="utf-8")
     check_report_against_tables(demo, page)
     # the title comes from report.title of the project's settings
     import html
@@ -90,7 +90,7 @@ def test_demo_report_figures_are_recorded_and_packed(demo, archives):
     import zipfile
 
     record = json.loads((demo / "results/ledger/render_report.json").read_text(encoding="utf-8"))
-    figures = [o["path"] for o in record["outputs"] if o["path"].startswith("results/reports/figures/")]
+    figures = [o["path"] for o in record["outputs"] if o["path"].startswith("results/write-up/figures/")]
     assert any(p.endswith(".png") for p in figures) and any(p.endswith(".svg") for p in figures)
     assert any(p.endswith(".csv") for p in figures)
     with zipfile.ZipFile(archives["include"]) as zf:

@@ -134,7 +134,7 @@ def write_results(root: Path, commit: str, extra_outputs: dict | None = None) ->
     records = {
         "lock_environment": _record(root, "lock_environment", [], ["environment/requirements.lock"],
                                     commit=commit),
-        "verify_data": _record(root, "verify_data", [data_file, "data/SHA256SUMS"],
+        "confirm_raw_hashes": _record(root, "confirm_raw_hashes", [data_file, "data/SHA256SUMS"],
                                ["results/checks/data_registry.csv"], commit=commit),
         "score_scales": _record(root, "score_scales", [data_file, "config/codebook.yaml",
                                                        "results/checks/data_registry.csv"],
@@ -171,7 +171,7 @@ rule compute_all:
 
 def make_project(root: Path, n: int = 300, seed: int = 1, email: bool = True,
                  extra_outputs: dict | None = None, workflow: bool = False) -> Path:
-    """A committed project with results and ledger (raw data git-ignored, as for closed data).
+    """A committed project with results and ledger (raw data git-ignored, as for data kept private).
 
     With ``workflow=True`` its Snakefile really recomputes the results (for rebuild tests).
     """

@@ -29,7 +29,7 @@ TOP = "proj-include"
 @pytest.fixture(scope="module")
 def good(tmp_path_factory):
     root = make_project(tmp_path_factory.mktemp("hostile") / "proj", n=120, email=False)
-    return pack_project(root, data="include", output=root.parent / "good.zip")
+    return pack_project(root, raw="include", output=root.parent / "good.zip")
 
 
 def _members(archive: Path) -> dict[str, bytes]:

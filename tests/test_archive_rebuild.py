@@ -26,7 +26,7 @@ def _statuses(report) -> dict:
 
 
 def test_include_rebuild_is_identical(project, tmp_path):
-    archive = pack_project(project, data="include", output=tmp_path / "inc.zip")
+    archive = pack_project(project, raw="include", output=tmp_path / "inc.zip")
     report = verify_archive(archive, rebuild=True, json_path=tmp_path / "report.json")
     assert report.ok, report.summary
     statuses = _statuses(report)
@@ -56,11 +56,11 @@ def _reforge(root, factor: float) -> None:
 def test_rebuild_reports_tolerance_and_differences(tmp_path):
     root = make_project(tmp_path / "proj", n=100, email=False, workflow=True)
     _reforge(root, 1 + 1e-9)
-    near = verify_archive(pack_project(root, data="include", output=tmp_path / "near.zip"), rebuild=True)
+    near = verify_archive(pack_project(root, raw="include", output=tmp_path / "near.zip"), rebuild=True)
     assert near.ok, near.summary
     assert _statuses(near)["results/growth/fit.csv"] == "within tolerance"
     _reforge(root, 1.01)
-    far = verify_archive(pack_project(root, data="include", output=tmp_path / "far.zip"), rebuild=True)
+    far = verify_archive(pack_project(root, raw="include", output=tmp_path / "far.zip"), rebuild=True)
     assert not far.ok
     assert _statuses(far)["results/growth/fit.csv"] == "different"
     detail = far.table.loc[far.table["target"] == "results/growth/fit.csv", "detail"].iloc[-1]
@@ -69,7 +69,7 @@ def test_rebuild_reports_tolerance_and_differences(tmp_path):
 
 
 def test_stand_in_archive_rebuilds_on_stand_in_rows(project, tmp_path):
-    archive = pack_project(project, data="stand-in", output=tmp_path / "si.tar.gz")
+    archive = pack_project(project, raw="stand-in", output=tmp_path / "si.tar.gz")
     report = verify_archive(archive, rebuild=True)
     assert report.ok, report.summary
     statuses = _statuses(report)

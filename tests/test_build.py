@@ -17,7 +17,7 @@ from wavetrail.project import make_demo
 
 REPO = Path(__file__).resolve().parents[1]
 STAGES = [
-    "verify_data", "lock_environment", "check_data", "score_scales", "assess_reliability",
+    "confirm_raw_hashes", "lock_environment", "check_data", "score_scales", "assess_reliability",
     "test_invariance", "fit_growth", "grow_forest_shard", "merge_forest", "summarise_forest", "render_report",
 ]
 
@@ -75,9 +75,9 @@ def test_changed_raw_data_fails_the_first_job_with_its_message(demo_project):
     with pytest.raises(BuildError) as info:
         build_project(demo_project, cores=1)
     text = str(info.value)
-    assert "rule verify_data failed" in text
+    assert "rule confirm_raw_hashes failed" in text
     assert "panel.csv" in text
-    assert "logs/provenance/verify_data.log" in text
+    assert "logs/provenance/confirm_raw_hashes.log" in text
 
 
 def _result_tables(root: Path) -> dict[str, bytes]:
@@ -137,10 +137,10 @@ def test_new_project_builds_end_to_end_and_a_second_build_runs_nothing(built_dem
                 "results/forest/importance.csv", "results/forest/dependence.csv",
                 "results/forest/interactions.csv", "results/forest/dependence_pairs.csv",
                 "results/forest/importance_plot.png",
-                "results/reports/report.html", "results/reports/report.ipynb",
+                "results/write-up/report.html", "results/write-up/report.ipynb",
                 "environment/requirements.lock"):
         assert (root / rel).is_file() and (root / rel).stat().st_size > 0, rel
-    assert result.report == root / "results" / "reports" / "report.html"
+    assert result.report == root / "results" / "write-up" / "report.html"
     again = build_project(root, cores=2)
     assert again.jobs == [] and again.up_to_date
     assert "nothing to do" in again.summary

@@ -26,7 +26,7 @@ def test_plan_diff_keeps_the_brackets_of_a_key(tmp_path, capsys, monkeypatch):
     freeze_plan(root, commit=False)
     cb = root / "config/codebook.yaml"
     cb.write_text(cb.read_text().replace("scale: sd, reverse: true}", "scale: sd, reverse: false}"))
-    main(["plan", "diff", "-p", str(root)])
+    main(["plan", "diff", str(root)])
     assert "variables[it3].reverse" in _out(capsys)
 
 

@@ -32,7 +32,7 @@ def test_a_lock_with_no_build_behind_it_is_lifted(demo):
     (demo / GUARD_FILE).write_text("running 123456\n")  # a killed build never wrote "done"
     lines: list[str] = []
     result = build_project(demo, cores=1, extra=[TARGET], progress=lines.append)
-    assert result.jobs == ["verify_data"]
+    assert result.jobs == ["confirm_raw_hashes"]
     assert (demo / TARGET).is_file()
     assert any("killed (pid 123456)" in line for line in lines), lines
     locks = demo / ".snakemake" / "locks"

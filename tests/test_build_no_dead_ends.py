@@ -42,7 +42,7 @@ def test_plan_freeze_then_pack(built, tmp_path, monkeypatch, capsys):
     root = built
     freeze_plan(root)  # commits config/plan.lock.json
     with pytest.raises(ArchiveError) as err:
-        pack_project(root, data="exclude", output=tmp_path / "a.zip")
+        pack_project(root, raw="exclude", output=tmp_path / "a.zip")
     text = str(err.value)
     assert "config/plan.lock.json" in text and "render_report" in text
     assert "run `wavetrail build`" in text
@@ -55,7 +55,7 @@ def test_plan_freeze_then_pack(built, tmp_path, monkeypatch, capsys):
     result = build_project(root, cores=2)
     assert result.jobs == ["render_report"], result.jobs
     assert any("config/plan.lock.json" in f for f in result.forced)
-    archive = pack_project(root, data="exclude", output=tmp_path / "b.zip")
+    archive = pack_project(root, raw="exclude", output=tmp_path / "b.zip")
     assert verify_archive(archive).ok
     assert build_project(root, cores=2).up_to_date
 
@@ -66,11 +66,11 @@ def test_hand_edited_result_is_rebuilt(built, tmp_path):
     original = fit.read_bytes()
     fit.write_bytes(original.replace(b"linear", b"lineal", 1))
     with pytest.raises(ArchiveError, match="bytes differ from its ledger record"):
-        pack_project(root, data="exclude", output=tmp_path / "c.zip")
+        pack_project(root, raw="exclude", output=tmp_path / "c.zip")
     result = build_project(root, cores=2)
     assert "fit_growth" in result.jobs and "render_report" in result.jobs
     assert fit.read_bytes() == original
-    assert pack_project(root, data="exclude", output=tmp_path / "d.zip").is_file()
+    assert pack_project(root, raw="exclude", output=tmp_path / "d.zip").is_file()
 
 
 def test_unlock_after_double_dash_works_without_a_path(built, monkeypatch, capsys):

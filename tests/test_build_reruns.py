@@ -53,7 +53,7 @@ def test_which_source_changes_rerun_which_steps(tmp_path):
     cfg = root / "config/config.yaml"
     cfg.write_text(cfg.read_text().replace("seed: 20261202", "seed: 7"))
     steps = [s for s, _ in ledger.rerun_targets(root)]
-    assert steps == sorted(["describe", "lock_environment", "render_report", "score_scales", "verify_data"])
+    assert steps == sorted(["describe", "lock_environment", "render_report", "score_scales", "confirm_raw_hashes"])
 
 
 def test_hand_edited_output_reruns_its_step(tmp_path):
@@ -88,5 +88,5 @@ def test_records_without_sources_fall_back_on_the_commit(tmp_path):
         repo.git.commit("-q", "-m", "settings", "--no-gpg-sign")
     changes = ledger.source_changes(root, ledger.read_records(root), repo)
     assert set(changes) == {f"results/ledger/{n}.json" for n in
-                            ("describe--outcome=sd", "lock_environment", "score_scales", "verify_data")}
+                            ("describe--outcome=sd", "lock_environment", "score_scales", "confirm_raw_hashes")}
     assert all(v == ["config/config.yaml"] for v in changes.values())

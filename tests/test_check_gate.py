@@ -49,7 +49,7 @@ def test_out_of_range_value_stops_build_before_scoring_and_keeps_findings(tmp_pa
     root = make_demo(tmp_path / "demo", trees=4)
     raw = root / "data" / "raw" / "panel.csv"
     _inject(raw, 5, "slp3", "7")  # slp items are 1-5; 7 is not a missing-code look-alike
-    added = run(["data", "add", "data/raw/panel.csv"], cwd=root)
+    added = run(["data", "register", "data/raw/panel.csv"], cwd=root)
     assert added.returncode == 0, added.stdout + added.stderr
 
     proc = run(["build", "--cores", "1"], cwd=root)

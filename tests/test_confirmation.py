@@ -170,6 +170,6 @@ def test_workflow_fits_the_conditional_model_and_reports_it(tmp_path):
     assert (tests["n_excluded"] == 2).all() and (tests["df"] == 2).all() and tests["p"].notna().all()
     paths = pd.read_csv(root / "results/growth/conditional.csv")
     assert set(paths["term"]) == {"sex[boy]", "sport"} and set(paths["factor"]) == {"intercept", "slope"}
-    page = (root / "results/reports/report.html").read_text(encoding="utf-8")
+    page = (root / "results/write-up/report.html").read_text(encoding="utf-8")
     assert "Predictors of growth" in page and "Hours of sport" in page
     assert "fewer than 5 with outcome data left out because a predictor value is missing" in page  # min_cell 5

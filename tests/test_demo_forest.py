@@ -53,7 +53,7 @@ def test_demo_forest_finds_the_planted_moderators_and_pair(tmp_path):
     # the forest generalises: out-of-bag gain over the single growth model well above its SE
     overview = pd.read_csv(forest / "overview.csv").iloc[0]
     assert overview["gain"] > 3 * overview["se"] and overview["failed_fits"] == 0
-    page = (root / "results" / "reports" / "report.html").read_text(encoding="utf-8")
+    page = (root / "results" / "write-up" / "report.html").read_text(encoding="utf-8")
     spread = page[page.index("Mainly a difference in spread"):][:600]
     assert "Days per week with at least 60 minutes of activity" in spread
     assert "Does the forest generalise?" in page

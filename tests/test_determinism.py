@@ -66,7 +66,7 @@ def demo_source(tmp_path_factory):
 
 
 #: the rules of the audit trail itself: a failure there is never a reason to skip
-AUDIT_RULES = ("verify_data", "lock_environment")
+AUDIT_RULES = ("confirm_raw_hashes", "lock_environment")
 #: outputs of the first stages (data checks, scale scores), for the short determinism run
 EARLY_TARGETS = ["results/checks/findings.csv", "results/checks/descriptives.csv", "results/checks/attrition.csv",
                  "results/scores/scores.csv", "results/scores/reliability.csv", "environment/requirements.lock"]
@@ -222,7 +222,7 @@ def test_every_figure_walks_back_to_registered_raw_data(reference_build):
     report = [o["path"] for r in records for o in r["outputs"] if o["path"].endswith(".html")]
     if report:
         steps = set(ledger.lineage(built_1core, report[0], records)["step"])
-        assert {"verify_data", "check_data", "fit_growth"} <= steps
+        assert {"confirm_raw_hashes", "check_data", "fit_growth"} <= steps
 
 
 @pytest.fixture(scope="session")
@@ -246,11 +246,11 @@ def test_changed_raw_byte_stops_the_build_until_registered(reference_build, tmp_
     with pytest.raises(WavetrailError) as info:
         build_project(copy, cores=2)
     message = str(info.value)
-    assert "verify_data" in message
+    assert "confirm_raw_hashes" in message
     assert "bytes differ from the registered hash" in message
-    assert f"wavetrail data add {raw}" in message
+    assert f"wavetrail data register {raw}" in message
     monkeypatch.chdir(copy)
-    assert main(["data", "add", raw]) == 0
+    assert main(["data", "register", raw]) == 0
     # now the registry check passes (only it is rebuilt here, to keep the test short) ...
     build_project(copy, cores=2, extra=["results/checks/data_registry.csv"])
     # ... and the ledger says exactly what the new bytes make out of date: nothing is
@@ -259,9 +259,9 @@ def test_changed_raw_byte_stops_the_build_until_registered(reference_build, tmp_
     assert set(drift["problem"]) == {"stale"}
     assert "results/checks/data_registry.csv" not in set(drift["file"])
     assert {"results/checks/findings.csv", "results/scores/scores.csv"} <= set(drift["file"])
-    rec = {r["step"]: r for r in ledger.read_records(copy)}["verify_data"]
+    rec = {r["step"]: r for r in ledger.read_records(copy)}["confirm_raw_hashes"]
     assert {i["path"]: i["sha256"] for i in rec["inputs"]}[raw] != {
-        i["path"]: i["sha256"] for i in {r["step"]: r for r in ledger.read_records(built_1core)}["verify_data"]["inputs"]
+        i["path"]: i["sha256"] for i in {r["step"]: r for r in ledger.read_records(built_1core)}["confirm_raw_hashes"]["inputs"]
     }[raw]
 
 

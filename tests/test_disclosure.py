@@ -51,7 +51,7 @@ def test_identifier_value_in_a_report_blocks_and_names_the_line(tmp_path, real):
     cb, panel = real
     email = panel.long["email"].dropna().iloc[7]
     html = "<html>\n<body>\n<p>outlier: " + email + "</p>\n</body></html>\n"
-    report = _check(tmp_path, real, {"results/reports/report.html": html})
+    report = _check(tmp_path, real, {"results/write-up/report.html": html})
     hit = report.blocking.iloc[0]
     assert hit["check"] == "identifier value" and hit["row"] == 3
 
@@ -103,10 +103,10 @@ def test_pack_refuses_on_disclosure_and_records_an_accepted_finding(tmp_path):
     root = make_project(tmp_path / "proj", n=120, email=False,
                         extra_outputs={"results/checks/groups.csv": small})
     with pytest.raises(ArchiveError) as err:
-        pack_project(root, data="exclude")
+        pack_project(root, raw="exclude")
     text = str(err.value)
     assert "results/checks/groups.csv, row 2, column 'n': count 2" in text and "--allow-disclosure" in text
-    out = pack_project(root, data="exclude", allow_disclosure=True, output=tmp_path / "a.zip")
+    out = pack_project(root, raw="exclude", allow_disclosure=True, output=tmp_path / "a.zip")
     import zipfile
 
     with zipfile.ZipFile(out) as zf:
@@ -120,9 +120,9 @@ def test_pack_refuses_on_disclosure_and_records_an_accepted_finding(tmp_path):
 def test_include_mode_refuses_raw_identifiers(tmp_path):
     root = make_project(tmp_path / "proj", n=80, email=True)
     with pytest.raises(ArchiveError, match="raw data column 'email' is an identifier"):
-        pack_project(root, data="include")
+        pack_project(root, raw="include")
     # the same project packs without the raw file
-    assert pack_project(root, data="exclude", output=tmp_path / "x.zip").is_file()
+    assert pack_project(root, raw="exclude", output=tmp_path / "x.zip").is_file()
 
 
 def test_person_ids_named_in_text_are_found(tmp_path, real):
@@ -185,7 +185,7 @@ def _refused(root, mode, tmp_path, capsys, *expected):
     """pack refuses through the command line: exit 1, every expected text, no traceback."""
     from wavetrail.cli import main
 
-    code = main(["pack", str(root), "--data", mode, "-o", str(tmp_path / f"{mode}.zip")])
+    code = main(["pack", str(root), "--raw", mode, "-o", str(tmp_path / f"{mode}.zip")])
     out = capsys.readouterr()
     text = " ".join((out.out + out.err).split())
     assert code == 1 and "Traceback" not in text
@@ -236,7 +236,7 @@ def test_packed_small_cells_and_missing_counts_are_refused(tmp_path, capsys, mod
     # the threshold can be set for packing alone, and the message says so
     from wavetrail.cli import main
 
-    assert main(["pack", str(root), "--data", mode, "--min-cell", "1", "-o", str(tmp_path / "ok.zip")]) == 0
+    assert main(["pack", str(root), "--raw", mode, "--min-cell", "1", "-o", str(tmp_path / "ok.zip")]) == 0
     assert "counts below 1 (pack --min-cell)" in capsys.readouterr().out
 
 

@@ -202,7 +202,7 @@ def test_min_size_and_max_depth_stop_the_tree():
 
 def test_likelihood_search_option_splits_on_the_moderator():
     wide, X = _panel()
-    tree = grow_tree(wide, X, [0, 1, 2], model=NormalNodeModel(3), split="likelihood")
+    tree = grow_tree(wide, X, [0, 1, 2], model=NormalNodeModel(3), split="likelihood_ratio")
     assert tree.splits_.iloc[0]["predictor"] == "x1"
     with pytest.raises(ModelError):
         grow_tree(wide, X, [0, 1, 2], model=NormalNodeModel(3), split="best")
@@ -309,14 +309,38 @@ def test_json_round_trip_is_exact_and_safe(small_forest):
     again.attach_background(X)
     assert np.allclose(again.predict(X.iloc[:4]).to_numpy(), forest.predict(X.iloc[:4]).to_numpy())
     d = json.loads(text)
-    assert d["format"] == "wavetrail-forest/1"
+    assert d["schema"] == "wavetrail-forest/1" and "format" not in d
+    assert d["settings"]["split"] == "scores"
+    assert all("predictor" in n and "feature" not in n for t in d["trees"] for n in t["nodes"])
     with pytest.raises(DataError):
         Forest.from_json("{not json")
     with pytest.raises(DataError):
-        Forest.from_json(json.dumps({"format": "something-else"}))
+        Forest.from_json(json.dumps({"schema": "something-else"}))
     del d["trees"][0]["nodes"][0]["theta"]
     with pytest.raises(DataError, match="lacks"):
         Forest.from_json(json.dumps(d))
+
+
+def test_a_forest_file_of_the_earlier_layout_reads_with_todays_names(small_forest):
+    _, X, forest = small_forest
+    d = json.loads(forest.to_json())
+    # the earlier layout: "format" for "schema", a node's "feature" for "predictor", split "score"
+    d["format"] = d.pop("schema")
+    d["settings"]["split"] = "score"
+    for t in d["trees"]:
+        for n in t["nodes"]:
+            n["feature"] = n.pop("predictor")
+    again = Forest.from_json(json.dumps(d))
+    assert again.to_json() == forest.to_json()
+    assert again.importance().equals(forest.importance())
+
+
+def test_earlier_split_names_still_work_for_one_version_with_a_warning():
+    wide, X = _panel()
+    new = grow_tree(wide, X, [0, 1, 2], model=NormalNodeModel(3), split="likelihood_ratio")
+    with pytest.warns(DeprecationWarning, match="likelihood_ratio"):
+        old = grow_tree(wide, X, [0, 1, 2], model=NormalNodeModel(3), split="likelihood")
+    assert old.splits_.equals(new.splits_)
 
 
 def test_bad_inputs_raise_wavetrail_errors():

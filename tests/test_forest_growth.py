@@ -36,7 +36,7 @@ def test_first_likelihood_split_equals_a_regression_stump(seed):
     y = 0.8 * (X["x2"] > 0.3) + 0.4 * X["x4"] + rng.normal(size=n)
     model = _one_wave_fixed_variance()
     assert model.k == 1
-    tree = grow_tree(pd.DataFrame({"y": y}), X, [0.0], model=model, split="likelihood", alpha=1.0,
+    tree = grow_tree(pd.DataFrame({"y": y}), X, [0.0], model=model, split="likelihood_ratio", alpha=1.0,
                      min_size=1, max_depth=1, max_cuts=10 ** 6)
     stump = DecisionTreeRegressor(max_depth=1).fit(X.to_numpy(), y.to_numpy())
     first = tree.splits_.iloc[0]

@@ -178,7 +178,7 @@ def test_failed_node_fits_become_counted_leaves_never_an_abort():
     assert ff["failed_fits"].sum() > 0
     for t in f.trees_:
         failed = [d for d in t.nodes if d.get("failed")]
-        assert all(d["feature"] < 0 for d in failed)  # a failed node is a leaf
+        assert all(d["predictor"] < 0 for d in failed)  # a failed node is a leaf
         assert all(25 <= d["n"] <= 120 for d in failed)
     # the count survives the JSON round trip
     g = type(f).from_json(f.to_json())

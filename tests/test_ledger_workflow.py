@@ -63,14 +63,14 @@ def test_rules_write_records_and_refuse_changed_data(mini):
     done = snakemake(mini)
     assert done.returncode == 0, done.stderr[-3000:]
     records = {r["step"]: r for r in ledger.read_records(mini)}
-    assert set(records) == {"verify_data", "lock_environment"}
+    assert set(records) == {"confirm_raw_hashes", "lock_environment"}
     lock = (mini / "environment/requirements.lock").read_bytes()
     assert lock.decode() == environment.lock_text()
     assert records["lock_environment"]["params"] == {"fingerprint": hashlib.sha256(lock).hexdigest()}
-    assert records["verify_data"]["lock_sha256"] == hashlib.sha256(lock).hexdigest()
-    assert [i["path"] for i in records["verify_data"]["inputs"]] == [
+    assert records["confirm_raw_hashes"]["lock_sha256"] == hashlib.sha256(lock).hexdigest()
+    assert [i["path"] for i in records["confirm_raw_hashes"]["inputs"]] == [
         "data/SHA256SUMS", "data/raw/w1.csv", "data/raw/w2.csv"]
-    assert records["verify_data"]["outputs"][0]["path"] == "results/checks/data_registry.csv"
+    assert records["confirm_raw_hashes"]["outputs"][0]["path"] == "results/checks/data_registry.csv"
     assert ledger.drift_table(mini).empty
     table = (mini / "results/checks/data_registry.csv").read_text().splitlines()
     assert table[0] == "file,sha256,size,state" and len(table) == 3
@@ -83,7 +83,7 @@ def test_rules_write_records_and_refuse_changed_data(mini):
     assert failed.returncode != 0
     assert "data/raw/w2.csv: bytes differ from the registered hash" in failed.stderr
     assert f"expected sha256 {hashlib.sha256(raw).hexdigest()}" in failed.stderr
-    assert "wavetrail data add data/raw/w2.csv" in failed.stderr
+    assert "wavetrail data register data/raw/w2.csv" in failed.stderr
     # Snakemake removed the refused job's old output; the old record stays readable and
     # the ledger says the table is missing
     assert not (mini / "results/checks/data_registry.csv").exists()
@@ -94,6 +94,6 @@ def test_rules_write_records_and_refuse_changed_data(mini):
     again = snakemake(mini)
     assert again.returncode == 0, again.stderr[-3000:]
     assert ledger.drift_table(mini).empty
-    rec = json.loads((mini / "results/ledger/verify_data.json").read_text())
+    rec = json.loads((mini / "results/ledger/confirm_raw_hashes.json").read_text())
     assert {i["path"]: i["sha256"] for i in rec["inputs"]}["data/raw/w2.csv"] == hashlib.sha256(
         (mini / "data/raw/w2.csv").read_bytes()).hexdigest()

@@ -344,7 +344,7 @@ def test_score_step_refuses_a_bad_name_when_snakemake_is_run_directly(project):
 
 def test_stand_in_data_leave_derived_variables_to_the_codebook():
     """A stand-in raw file holds the source, never the derived column, and passes the checks."""
-    from wavetrail.archive.standin import synthesize
+    from wavetrail.archive.stand_in import synthesize
     from wavetrail.checks import run_checks
 
     cb = parse_codebook(CODEBOOK)

@@ -45,7 +45,7 @@ def test_pack_skips_leftover_temporary_files(tmp_path):
     root = make_project(tmp_path / "proj", n=120, email=False)
     (root / "results/scores/leftover.csv.tmp").write_text("id,wave\n1,")          # a killed job's leftover
     (root / "results/growth/.fit.csv.a1b2c3d4.tmp").write_text("parameter,est")   # an unfinished atomic write
-    archive = pack_project(root, data="exclude", output=tmp_path / "out.zip")
+    archive = pack_project(root, raw="exclude", output=tmp_path / "out.zip")
     with zipfile.ZipFile(archive) as zf:
         names = zf.namelist()
     assert not [n for n in names if n.endswith(".tmp")]

@@ -81,7 +81,7 @@ def test_every_later_change_is_listed_by_key(tmp_path):
 def test_comment_only_edit_is_reported_as_reformatted(tmp_path):
     p = make_project(tmp_path / "p")
     freeze_plan(p)
-    (p / "config/config.yaml").write_text(CONFIG.replace("# the raw file", "# raw data, closed"))
+    (p / "config/config.yaml").write_text(CONFIG.replace("# the raw file", "# raw data, kept private"))
     changes = plan_changes(p)
     assert changes[["file", "key", "change"]].values.tolist() == [["config/config.yaml", "", "reformatted"]]
 

@@ -82,7 +82,7 @@ def test_new_with_data_copies_registers_and_drafts(tmp_path, no_git_identity):
     assert codebook["study"]["waves"] == [1, 2]
     with git.Repo(root) as repo:
         tracked = set(repo.git.ls_files().splitlines())
-    # closed data by default: the hash is tracked, the raw file is not
+    # raw data kept private by default: the hash is tracked, the raw file is not
     assert "data/SHA256SUMS" in tracked and "data/raw/waves.csv" not in tracked
 
 
@@ -115,11 +115,11 @@ def test_new_with_a_missing_data_file_writes_nothing(tmp_path, no_git_identity):
     assert not (tmp_path / "p").exists()
 
 
-def test_gitignore_keeps_closed_raw_data_out_and_says_how_to_track_it(tmp_path, no_git_identity):
+def test_gitignore_keeps_private_raw_data_out_and_says_how_to_track_it(tmp_path, no_git_identity):
     root = new_project(tmp_path / "p")
     text = (root / ".gitignore").read_text()
     assert "data/raw/" in text.splitlines()
-    assert "open" in text and "!data/raw/" in text
+    assert "kept private" in text and "shareable" in text and "!data/raw/" in text
     assert ".snakemake/" in text.splitlines()
 
 

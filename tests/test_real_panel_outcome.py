@@ -97,15 +97,15 @@ def built(tmp_path_factory):
 
 def test_builds_to_the_report(built):
     root, _, result = built
-    assert (root / "results/reports/report.html").is_file(), result.summary
-    html = (root / "results/reports/report.html").read_text(encoding="utf-8")
+    assert (root / "results/write-up/report.html").is_file(), result.summary
+    html = (root / "results/write-up/report.html").read_text(encoding="utf-8")
     assert "Outcome scores by wave" in html and "Single measures" in html
     assert "reliability applies to scales only" in html
-    figure = (root / "results/reports/figures/trajectories-distance.svg").read_text(encoding="utf-8")
+    figure = (root / "results/write-up/figures/trajectories-distance.svg").read_text(encoding="utf-8")
     assert "Pituitary to pterygomaxillary fissure distance (mm)" in figure  # the y axis: label and unit
     growth = (root / "results/growth/trajectories.svg").read_text(encoding="utf-8")
     assert "Log distance (log mm)" in growth
-    for svg in [*(root / "results/reports/figures").glob("*.svg"), root / "results/growth/trajectories.svg"]:
+    for svg in [*(root / "results/write-up/figures").glob("*.svg"), root / "results/growth/trajectories.svg"]:
         assert "mean item score" not in svg.read_text(encoding="utf-8"), svg
 
 

@@ -15,7 +15,7 @@ from wavetrail.registry import (
     registry_status,
     verify_registered,
 )
-from wavetrail.stages.provenance import verify_data
+from wavetrail.stages.provenance import confirm_raw_hashes
 from wavetrail.stages.runner import Job
 
 PANEL = "pid,wave,slp1\n1,1,3\n1,2,4\n2,1,-99\n"
@@ -58,7 +58,7 @@ def test_changed_byte_is_refused_with_both_hashes_and_the_command(tmp_path):
     text = str(info.value)
     assert "data/raw/panel.csv" in text
     assert f"expected sha256 {old}" in text and f"actual   sha256 {new}" in text
-    assert "wavetrail data add data/raw/panel.csv" in text
+    assert "wavetrail data register data/raw/panel.csv" in text
     lines = register_files(project, [project / "data/raw/panel.csv"])
     assert lines == [f"updated    data/raw/panel.csv  sha256 {old} -> {new}  ({len(changed)} bytes)"]
     table = verify_registered(project, ["data/raw/panel.csv"])
@@ -71,7 +71,7 @@ def test_unregistered_and_missing_files_are_refused(tmp_path):
     register_files(project, [project / "data/raw/panel.csv"])
     with pytest.raises(RegistryError, match=r"wave2.csv: not registered.*") as info:
         verify_registered(project, ["data/raw/panel.csv", "data/raw/wave2.csv"])
-    assert "wavetrail data add data/raw/wave2.csv" in str(info.value)
+    assert "wavetrail data register data/raw/wave2.csv" in str(info.value)
     (project / "data/raw/panel.csv").unlink()
     with pytest.raises(RegistryError, match="panel.csv: file is missing"):
         verify_registered(project, ["data/raw/panel.csv"])
@@ -113,19 +113,19 @@ def test_status_states(tmp_path):
     assert status.loc[status["file"] == "data/raw/panel.csv", "size"].item() == len(PANEL)
 
 
-def test_verify_data_step_writes_the_registry_table(tmp_path):
+def test_confirm_raw_hashes_step_writes_the_registry_table(tmp_path):
     project = make_project(tmp_path / "p")
     register_files(project, [project / "data/raw/panel.csv"])
-    job = Job(step="verify_data", project=project,
+    job = Job(step="confirm_raw_hashes", project=project,
               input={"data": ["data/raw/panel.csv"], "registry": "data/SHA256SUMS"},
               output={"registry": "results/checks/data_registry.csv"})
-    verify_data(job)
+    confirm_raw_hashes(job)
     digest = hashlib.sha256(PANEL.encode()).hexdigest()
     assert (project / "results/checks/data_registry.csv").read_text() == (
         f"file,sha256,size,state\ndata/raw/panel.csv,{digest},{len(PANEL)},ok\n")
     (project / "data/raw/panel.csv").write_bytes(PANEL.encode()[:-1] + b"9")
     with pytest.raises(RegistryError):
-        verify_data(job)
+        confirm_raw_hashes(job)
 
 
 def test_add_commits_only_the_registry_with_a_neutral_author(tmp_path, no_git_identity):
@@ -151,12 +151,12 @@ def test_add_commits_only_the_registry_with_a_neutral_author(tmp_path, no_git_id
 def test_cli_data_add_and_status(tmp_path, monkeypatch, capsys):
     project = make_project(tmp_path / "p")
     monkeypatch.chdir(project)
-    assert main(["data", "status"]) == 1  # unregistered
-    assert main(["data", "add", "data/raw/panel.csv"]) == 0
-    assert main(["data", "status"]) == 0
+    assert main(["data", "compare"]) == 1  # unregistered
+    assert main(["data", "register", "data/raw/panel.csv"]) == 0
+    assert main(["data", "compare"]) == 0
     (project / "data/raw/panel.csv").write_text(PANEL + "9,9,9\n")
-    assert main(["data", "status"]) == 1
+    assert main(["data", "compare"]) == 1
     out = capsys.readouterr().out
     assert "changed" in out
-    assert main(["data", "add", "missing.csv"]) == 1
+    assert main(["data", "register", "missing.csv"]) == 1
     assert "no such data file" in capsys.readouterr().err

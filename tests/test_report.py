@@ -208,8 +208,8 @@ def render_project(root: Path, **settings):
     base = {"title": "Sleep panel (test)", "seed": 20261202, "codebook": "config/codebook.yaml", "min_cell": 5,
             "forest": {"trees": 200, "outcome": "sleep_difficulty", "alpha": 0.05}}
     base.update(settings)
-    return render(root, "workflow/notebooks/report.ipynb", "results/reports/report.ipynb",
-                  "results/reports/report.html", settings=base, failed_copy="logs/report/render_report.failed.ipynb")
+    return render(root, "workflow/notebooks/report.ipynb", "results/write-up/report.ipynb",
+                  "results/write-up/report.html", settings=base, failed_copy="logs/report/render_report.failed.ipynb")
 
 
 @pytest.fixture(scope="module")
@@ -377,7 +377,7 @@ def test_report_states_limits_and_data_sharing(built):
 @pytest.mark.slow
 def test_figures_are_saved_beside_their_data_and_embedded(built):
     root, _, _, page = built
-    figs = root / "results/reports/figures"
+    figs = root / "results/write-up/figures"
     for stem in ("attrition", "trajectories-sleep_difficulty", "importance", "dependence"):
         for ext in ("png", "svg", "csv"):
             assert (figs / f"{stem}.{ext}").stat().st_size > 0, (stem, ext)
@@ -431,8 +431,8 @@ def test_same_inputs_give_the_same_bytes_in_another_folder(built, tmp_path):
     nb2, html2 = render_project(copy)
     assert nb2.read_bytes() == nb_path.read_bytes()
     assert html2.read_text(encoding="utf-8") == page
-    for f in sorted((root / "results/reports/figures").iterdir()):
-        assert (copy / "results/reports/figures" / f.name).read_bytes() == f.read_bytes(), f.name
+    for f in sorted((root / "results/write-up/figures").iterdir()):
+        assert (copy / "results/write-up/figures" / f.name).read_bytes() == f.read_bytes(), f.name
 
 
 # ---------------------------------------------------------------- absent or empty stages, failures
@@ -479,8 +479,8 @@ def test_a_failing_cell_fails_the_build_and_names_the_cell(tmp_path):
     message = str(info.value)
     assert "section-growth" in message and "report.growth()" in message
     assert "KeyError" in message and "'parameter'" in message
-    assert not (root / "results/reports/report.html").exists()
-    assert not (root / "results/reports/report.ipynb").exists()
+    assert not (root / "results/write-up/report.html").exists()
+    assert not (root / "results/write-up/report.ipynb").exists()
     failed = nbformat.read(root / "logs/report/render_report.failed.ipynb", as_version=4)
     assert any(o.get("output_type") == "error" for c in failed.cells for o in c.get("outputs", []))
 
@@ -521,7 +521,7 @@ def test_notebook_runs_on_its_own_from_its_folder(tmp_path):
     assert "Top moderator (exploratory)</dt><dd>Evening screen time" in shown
     assert "Master seed</dt><dd>20261202" in shown  # read from config/config.yaml
     assert "Mean of slope" in shown and "Covariance" not in shown
-    assert (root / "results/reports/figures/importance.png").is_file()
+    assert (root / "results/write-up/figures/importance.png").is_file()
 
 
 # ---------------------------------------------------------------- the workflow step
@@ -540,19 +540,19 @@ def test_render_report_step_writes_its_outputs(tmp_path):
     config = {"seed": 20261202, "codebook": "config/codebook.yaml", "report": {"min_cell": 5, "title": "Step test"},
               "forest": {"enabled": True, "trees": 200, "outcome": "sleep_difficulty"}}
     job = Job(step="render_report", project=root, input=inputs,
-              output={"notebook": "results/reports/report.ipynb", "html": "results/reports/report.html"},
+              output={"notebook": "results/write-up/report.ipynb", "html": "results/write-up/report.html"},
               config=config, log=Path("logs/report/render_report.log"))
     render_report(job)
-    page = (root / "results/reports/report.html").read_text(encoding="utf-8")
+    page = (root / "results/write-up/report.html").read_text(encoding="utf-8")
     assert "<title>Step test</title>" in page and ".992" in page
-    assert json.loads((root / "results/reports/report.ipynb").read_text())["metadata"]["kernelspec"]["name"] == "wavetrail-python"
+    assert json.loads((root / "results/write-up/report.ipynb").read_text())["metadata"]["kernelspec"]["name"] == "wavetrail-python"
 
 
 def test_configured_forest_without_results_says_so(tmp_path):
     from wavetrail.report import open_report
 
     root = make_project(tmp_path / "p", forest="absent")
-    report = open_report(root, {}, {"forest": {"enabled": True}, "figures": "results/reports/figures"})
+    report = open_report(root, {}, {"forest": {"enabled": True}, "figures": "results/write-up/figures"})
     assert "configured, but its results are absent" in report.moderators().html
     assert "Moderator forest</dt><dd>configured; results absent" in report.overview().html
     assert repr(report.overview()) == "[wavetrail report: overview]"  # the stored text/plain stays stable
@@ -637,7 +637,7 @@ def test_moderators_say_could_not_test_and_no_split_possible(tmp_path):
                         "rank": [np.nan, np.nan], "tested": [0, 0], "candidate": [50, 50],
                         "untested": ["node size 50", "node size 50"]})
     report = open_report(root, _forest_tables(root, imp, _overview(0.0, 0.0)),
-                         {"forest": {"enabled": True, "trees": 50}, "figures": "results/reports/figures"})
+                         {"forest": {"enabled": True, "trees": 50}, "figures": "results/write-up/figures"})
     text = html.unescape(re.sub(r"<[^>]+>", " ", report.moderators().html))
     assert "No split was possible" in text and "not evidence of no association" in text
     assert "forest.min_size (now 12)" in text and "reasons: node size" in text
@@ -655,7 +655,7 @@ def test_moderators_show_generalisation_untested_and_spread(tmp_path):
                          "part": ["means", "growth (co)variances", "residual variances"] * 2,
                          "share": [0.1, 0.8, 0.1, 0.7, 0.2, 0.1], "splits": [12] * 3 + [5] * 3})
     report = open_report(root, _forest_tables(root, imp, _overview(25.0, 6.0, failed=4), diff),
-                         {"forest": {"enabled": True, "trees": 50}, "figures": "results/reports/figures"})
+                         {"forest": {"enabled": True, "trees": 50}, "figures": "results/write-up/figures"})
     page = report.moderators().html
     text = html.unescape(re.sub(r"<[^>]+>", " ", page))
     # generalisation comes first, with its verdict

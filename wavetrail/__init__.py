@@ -2,7 +2,10 @@
 
 The public surface is small: the error tree below and the statistics modules
 ``wavetrail.growth``, ``wavetrail.sem``, ``wavetrail.scoring`` and
-``wavetrail.forest`` (see DESIGN section 2.3 and docs/).
+``wavetrail.forest``: ``fit_growth`` returns a ``GrowthFit`` (``.estimates`` table,
+``.fit`` dict of indices), ``sem.fit``/``sem.fit_cfa`` a ``SemFit``, ``grow_tree`` a
+``Tree`` and ``grow_forest`` a ``Forest``. The methods pages under docs/methods/ give the
+arguments and the sources.
 """
 
 from wavetrail.errors import (

@@ -86,7 +86,7 @@ class BuildResult:
 
     @property
     def report(self) -> Path | None:
-        path = self.project / "results" / "reports" / "report.html"
+        path = self.project / "results" / "write-up" / "report.html"
         return path if path.is_file() else None
 
     @property
@@ -149,7 +149,7 @@ def _check_inputs(root: Path) -> dict:
             line = lines.get(("data", i)) or lines.get(("data",))
             where = f"{CONFIG_FILE}, line {line}" if line else CONFIG_FILE
             raise DataError(f"data file {name} does not exist (listed under `data` in {where})",
-                            hint="copy the raw file there and register it with `wavetrail data add`, "
+                            hint="copy the raw file there and register it with `wavetrail data register`, "
                                  "or correct the path in config/config.yaml")
     if not (root / config["codebook"]).is_file():
         raise DataError(f"codebook {config['codebook']} does not exist (key `codebook` in {CONFIG_FILE})",
@@ -174,7 +174,7 @@ def check_settings(root: Path, config: dict, lines: dict) -> tuple[list[str], st
             raise DataError(f"data file {name} has a header but no data rows (listed under `data` in "
                             f"{CONFIG_FILE}, line {lines.get(('data', i)) or lines.get(('data',), '?')})",
                             hint="copy the full data file again (the export may have stopped after the header), "
-                                 "then register it with `wavetrail data add`")
+                                 "then register it with `wavetrail data register`")
     return resolved
 
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import os
 import sys
+import warnings
 from pathlib import Path
 from typing import List, Optional
 
@@ -19,6 +20,8 @@ from rich.table import Table
 from wavetrail import __version__
 from wavetrail.errors import WavetrailError
 
+#: Python's own warning printer, for every warning but a renamed setting
+_SHOW_WARNING = warnings.showwarning
 console = Console(highlight=False)
 err_console = Console(stderr=True, highlight=False)
 
@@ -29,7 +32,8 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-data_app = typer.Typer(help="Register raw data files and show their state.", no_args_is_help=True)
+data_app = typer.Typer(help="Register raw data files and compare them with their registered hashes.",
+                       no_args_is_help=True)
 plan_app = typer.Typer(help="Freeze the analysis plan and list later deviations.", no_args_is_help=True)
 app.add_typer(data_app, name="data")
 app.add_typer(plan_app, name="plan")
@@ -190,26 +194,57 @@ def _first_commit_note(root: Path, author: Optional[str]) -> str:
     return f"first commit {head.hexsha[:10]} by {who} (git's configured identity)"
 
 
-@data_app.command("add")
-def data_add(
-    files: List[Path] = typer.Argument(..., help="Raw data file(s) to register."),
-    project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder."),
-):
-    """Register (or re-register) raw data hashes in data/SHA256SUMS."""
-    from wavetrail.registry import register_files
+def _earlier_spelling(old: str, new: str) -> None:
+    """Say on stderr that an option or command was used by its earlier name (accepted this version only)."""
+    err_console.print(f"note: {old} is now {new}; the earlier spelling is accepted this version only",
+                      markup=False)
 
-    for line in register_files(project, files):
+
+def _project_option(path: Path, project: Optional[Path], command: str) -> Path:
+    """The project folder: the positional PATH, or the earlier ``-p/--project`` option with a note."""
+    if project is None:
+        return path
+    _earlier_spelling("-p/--project", f"the positional PATH of `wavetrail {command}`")
+    return project
+
+
+EarlierProject = typer.Option(None, "--project", "-p", hidden=True)
+
+
+@data_app.command("register")
+def data_register(
+    files: List[Path] = typer.Argument(..., help="Raw data file(s) under data/ of a project; the project is "
+                                                 "the folder that holds that data/."),
+    project: Optional[Path] = EarlierProject,
+):
+    """Register (or re-register) the current bytes of raw data files in data/SHA256SUMS."""
+    from wavetrail.registry import project_of, register_files
+
+    root = project_of(files[0]) if project is None else _project_option(Path("."), project, "data register")
+    for line in register_files(root, files):
         console.print(line, markup=False)
 
 
-@data_app.command("status")
-def data_status(project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder.")):
-    """Show registered versus present raw data files."""
+@data_app.command("compare")
+def data_compare(path: Path = ProjectArg, project: Optional[Path] = EarlierProject):
+    """Compare the raw data files present with their registered hashes (exit 1 if any differs)."""
     from wavetrail.registry import registry_status
 
-    status = registry_status(project)
+    status = registry_status(_project_option(path, project, "data compare"))
     print_table(status, title="Raw data")
     raise typer.Exit(1 if (status["state"] != "ok").any() else 0)
+
+
+@data_app.command("add", hidden=True)
+def data_add_earlier(files: List[Path] = typer.Argument(...), project: Optional[Path] = EarlierProject):
+    _earlier_spelling("`wavetrail data add`", "`wavetrail data register`")
+    data_register(files, project)
+
+
+@data_app.command("status", hidden=True)
+def data_status_earlier(path: Path = ProjectArg, project: Optional[Path] = EarlierProject):
+    _earlier_spelling("`wavetrail data status`", "`wavetrail data compare`")
+    data_compare(path, project)
 
 
 @app.command()
@@ -248,21 +283,22 @@ def ledger(
 
 @plan_app.command("freeze")
 def plan_freeze(
-    project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder."),
+    path: Path = ProjectArg,
     replace: bool = typer.Option(False, "--replace", help="Freeze again over an existing plan (the old one stays in git history)."),
+    project: Optional[Path] = EarlierProject,
 ):
     """Record the hashes of config and codebook as the analysis plan."""
     from wavetrail.plan import freeze_plan
 
-    console.print(freeze_plan(project, replace=replace), markup=False)
+    console.print(freeze_plan(_project_option(path, project, "plan freeze"), replace=replace), markup=False)
 
 
 @plan_app.command("diff")
-def plan_diff(project: Path = typer.Option(Path("."), "--project", "-p", help="Project folder.")):
+def plan_diff(path: Path = ProjectArg, project: Optional[Path] = EarlierProject):
     """List every change to config and codebook since the plan was frozen."""
     from wavetrail.plan import plan_changes
 
-    changes = plan_changes(project)
+    changes = plan_changes(_project_option(path, project, "plan diff"))
     if len(changes):
         print_table(changes, title="Deviations from the frozen plan")
     else:
@@ -272,20 +308,25 @@ def plan_diff(project: Path = typer.Option(Path("."), "--project", "-p", help="P
 @app.command()
 def pack(
     path: Path = ProjectArg,
-    data: str = typer.Option("exclude", "--data", help="Raw data in the archive: include, exclude or stand-in."),
+    raw: str = typer.Option("exclude", "--raw", help="Raw data in the archive: include (the files), exclude "
+                                                    "(hashes only) or stand-in (synthetic rows in their place)."),
     output: Optional[Path] = typer.Option(None, "-o", "--output", help="Archive file (.zip or .tar.gz)."),
     allow_dirty: bool = typer.Option(False, "--allow-dirty", help="Pack even if the git tree has uncommitted changes."),
     allow_disclosure: bool = typer.Option(False, "--allow-disclosure", help="Pack even if the disclosure check finds something."),
     min_cell: Optional[int] = typer.Option(None, "--min-cell", help="Smallest count of people a packed file may show (default: report.min_cell of the project, else 5)."),
+    data: Optional[str] = typer.Option(None, "--data", hidden=True),
 ):
     """Write the reviewer archive (BagIt bag with an RO-Crate)."""
     from wavetrail.archive import pack_project
 
-    if data not in ("include", "exclude", "stand-in"):
-        raise typer.BadParameter("--data must be include, exclude or stand-in")
+    if data is not None:
+        _earlier_spelling("`wavetrail pack --data`", "`--raw`")
+        raw = data
+    if raw not in ("include", "exclude", "stand-in"):
+        raise typer.BadParameter("--raw must be include, exclude or stand-in")
     notes: list = []
     try:
-        out = pack_project(path, data=data, output=output, allow_dirty=allow_dirty,
+        out = pack_project(path, raw=raw, output=output, allow_dirty=allow_dirty,
                            allow_disclosure=allow_disclosure, min_cell=min_cell, notes=notes)
     finally:
         for line in notes:
@@ -297,7 +338,8 @@ def pack(
 def verify(
     archive: Path = typer.Argument(..., help="Archive made by `wavetrail pack`."),
     rebuild: bool = typer.Option(False, "--rebuild", help="Also rerun the workflow in a temporary copy (runs the authors' code)."),
-    json_out: Optional[Path] = typer.Option(None, "--json", help="Write the full report as JSON to this file."),
+    as_json: bool = typer.Option(False, "--json", help="Print the full report as JSON instead of a table."),
+    json_to: Optional[Path] = typer.Option(None, "--json-to", help="Also write the full report as JSON to this file."),
     rtol: float = typer.Option(1e-6, "--rtol", help="Relative tolerance for numeric tables in --rebuild."),
 ):
     """Verify a reviewer archive: integrity, provenance closure, optionally a rebuild."""
@@ -305,15 +347,37 @@ def verify(
 
     if rebuild:
         err_console.print(f"warning: {REBUILD_WARNING}")
-    report = verify_archive(archive, rebuild=rebuild, json_path=json_out, rtol=rtol,
-                            progress=lambda line: console.print(line, markup=False))
-    print_table(report.table, title="Verification")
-    console.print(report.summary, markup=False)
+    report = verify_archive(archive, rebuild=rebuild, json_path=json_to, rtol=rtol,
+                            progress=(lambda line: err_console.print(line, markup=False)) if as_json else
+                            (lambda line: console.print(line, markup=False)))
+    if as_json:
+        import json
+
+        console.print_json(json.dumps(report.to_dict()))
+    else:
+        print_table(report.table, title="Verification")
+        console.print(report.summary, markup=False)
     raise typer.Exit(0 if report.ok else 1)
+
+
+def _show_renamed(message, category, filename, lineno, file=None, line=None):
+    """Print a renamed-setting warning as one plain note (no source line of wavetrail's code)."""
+    from wavetrail.config import SettingRenamed
+
+    if issubclass(category, SettingRenamed):
+        err_console.print(f"note: {message}", markup=False, soft_wrap=True)
+    else:
+        _SHOW_WARNING(message, category, filename, lineno, file, line)
 
 
 def main(argv: list[str] | None = None) -> int:
     """Console entry point: run the app, turn WavetrailError into a message and exit code."""
+    with warnings.catch_warnings():
+        warnings.showwarning = _show_renamed
+        return _main(argv)
+
+
+def _main(argv: list[str] | None) -> int:
     try:
         code = app(args=argv, standalone_mode=False)
     except WavetrailError as err:

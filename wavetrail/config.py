@@ -147,6 +147,7 @@ def validate_config(config: Any, source: str | Path | None = None, lines: dict[t
     lines = lines or {}
     if not isinstance(config, dict):
         raise ConfigError(f"{where}: the settings must be a mapping of keys to values, not {type(config).__name__}")
+    config = _renamed_settings(config, where, lines)
     schema = config_schema()
     validator = jsonschema.Draft202012Validator(schema)
     problems = []
@@ -159,6 +160,38 @@ def validate_config(config: Any, source: str | Path | None = None, lines: dict[t
         raise ConfigError(f"{n} problem{'s' if n > 1 else ''} in the settings:\n{body}",
                           hint="each key, its type and its default are listed in docs/project-layout.md")
     return _fill_defaults(config, schema)
+
+
+#: settings renamed in 0.x that are still read, with a warning, for one version:
+#: (section, old key) -> (new key, old value -> new value)
+RENAMED_SETTINGS = {
+    ("forest", "method"): ("split", {"score": "scores", "likelihood": "likelihood_ratio"}),
+}
+
+
+class SettingRenamed(FutureWarning):
+    """A settings key was written with its earlier name (read this version, refused later)."""
+
+
+def _renamed_settings(config: dict, where: str, lines: dict[tuple, int]) -> dict:
+    """Rewrite keys of their earlier names to today's, warning with the file and line of each."""
+    import warnings
+
+    for (section, old), (new, values) in RENAMED_SETTINGS.items():
+        part = config.get(section)
+        if not isinstance(part, dict) or old not in part:
+            continue
+        line = _line(_line_of(lines, (section, old)))
+        if new in part:
+            raise ConfigError(f"{where}{line}: {section}.{old} is the earlier name of {section}.{new}, "
+                              f"and both are set", hint=f"delete {section}.{old}")
+        value = part[old]
+        value = values.get(value, value) if isinstance(value, str) else value
+        warnings.warn(f"{where}{line}: {section}.{old} is renamed {section}.{new}; write "
+                      f"'{new}: {value}' (the earlier name is read this version only)", SettingRenamed, stacklevel=2)
+        part = {(new if k == old else k): (value if k == old else v) for k, v in part.items()}
+        config = {**config, section: part}
+    return config
 
 
 def _line(line: int) -> str:

@@ -133,8 +133,8 @@ class GrowthFit:
 
 
 @_single_threaded
-def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, information="observed",
-               where="data", max_iter=500, search="auto", seed=0, bounded=False, robust=False):
+def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=None, se_from="observed",
+               where="data", max_iter=500, search="auto", seed=0, bounded=False, robust=False, **earlier):
     """Fit a latent growth curve model by ML, FIML for missing waves.
 
     Parameters
@@ -151,7 +151,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     covariates : DataFrame on the same index as ``wide`` (time-invariant covariates),
         or a list of columns of ``wide`` to use as covariates; optional. People
         with a missing covariate are dropped (covariates are conditioned on).
-    information : {"observed", "expected"} information for the standard errors
+    se_from : {"observed", "expected"} information for the standard errors
     where : names the data in error messages
     max_iter : int, iterations of the optimiser
     search : {"auto", True, False}
@@ -195,6 +195,10 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     latent correlation beyond +-1 is kept and reported (``fit["admissible"]`` False,
     ``fit["note"]``).
     """
+    if earlier:
+        from wavetrail.sem.fitting import renamed_arguments
+
+        se_from = renamed_arguments("fit_growth", earlier, {"information": "se_from"}).get("se_from", se_from)
     import pandas as pd
 
     from wavetrail.sem.fitting import fit as sem_fit
@@ -230,7 +234,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
             raise ModelError(f"{where}: robust standard errors are not available with individually varying "
                              "time scores", hint="drop robust= or give one time score per wave")
         g = _fit_varying(data, person_times.loc[data.index], shape, residuals, cov_names, wave_cols,
-                         information, where, max_iter)
+                         se_from, where, max_iter)
         g.fit["estimation"], g.fit["boundary"] = "unrestricted", ""
         if bounded:
             g.fit["note"] = "; ".join(x for x in (g.fit["note"], "bounded estimation is not available with "
@@ -241,7 +245,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     if search is True or (search == "auto" and (shape == "basis" or residuals == "free")):
         starts = nested_starts(spec, data[wave_cols + cov_names], time_scores, shape, residuals, cov_names,
                                wave_cols)
-    res = sem_fit(spec, data[wave_cols + cov_names], information=information, where=where, max_iter=max_iter,
+    res = sem_fit(spec, data[wave_cols + cov_names], se_from=se_from, where=where, max_iter=max_iter,
                   search=search, starts=starts, seed=seed, robust=robust)
     g = GrowthFit(res, shape, residuals, time_scores, wave_cols)
     g.fit["estimation"] = "unrestricted"
@@ -253,7 +257,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     g.fit["unrestricted_loglik"] = g.fit["loglik"]
     if res.admissible and res.converged:
         return g  # the unrestricted maximum is admissible: it is the bounded maximum too
-    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, information, where, robust)
+    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, se_from, where, robust)
     out = GrowthFit(b, shape, residuals, time_scores, wave_cols)
     out.fit["estimation"] = "bounded"
     out.fit["boundary"] = b.fit["boundary"]
@@ -262,7 +266,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     return out
 
 
-def _fit_bounded(spec, data, unrestricted, starts, seed, information, where, robust=False):
+def _fit_bounded(spec, data, unrestricted, starts, seed, se_from, where, robust=False):
     """Admissible maximum (variances >= 0, growth-factor covariance PSD) as a SemFit."""
     from wavetrail.sem.bounded import fit_bounded
     from wavetrail.sem.fitting import check_data, data_matrix, robust_errors, summarise
@@ -287,10 +291,10 @@ def _fit_bounded(spec, data, unrestricted, starts, seed, information, where, rob
                      "Self & Liang 1987)")
     notes.append(f"unrestricted maximum {unrestricted.fit['loglik']:.3f} is inadmissible; admissible maximum "
                  f"{r.loglik:.3f}")
-    fit = summarise(spec, stats, r.theta, r.loglik, r.converged, 0, notes, information,
+    fit = summarise(spec, stats, r.theta, r.loglik, r.converged, 0, notes, se_from,
                     search_info={"starts": r.n_starts, "maxima": len(r.maxima)}, at_bound=at)
     fit.fit["boundary"] = "; ".join(r.boundary)
-    fit.fit["se_type"] = information
+    fit.fit["se_type"] = se_from
     if robust:
         robust_errors(fit, stats, Y, at_bound=at)
     return fit
@@ -388,7 +392,7 @@ def _person_times(wide, time_scores, wave_cols, where):
     return ts
 
 
-def _fit_varying(data, times, shape, residuals, cov_names, wave_cols, information, where, max_iter):
+def _fit_varying(data, times, shape, residuals, cov_names, wave_cols, se_from, where, max_iter):
     """Growth model with each person's own time scores (definition variables)."""
     from wavetrail.sem.fitting import SemFit, admissibility, check_data, data_matrix, estimates_table
     from wavetrail.sem.fitting import fit as sem_fit
@@ -398,9 +402,9 @@ def _fit_varying(data, times, shape, residuals, cov_names, wave_cols, informatio
     if shape == "basis":
         raise ModelError(f"{where}: a latent-basis model estimates the time scores, so it cannot take each "
                          "person's own time scores", hint="use shape linear or quadratic, or one time score per wave")
-    if information != "observed":
+    if se_from != "observed":
         raise ModelError("individually varying time scores use the observed information only",
-                         hint="drop information=")
+                         hint="drop se_from=")
     T = len(wave_cols)
     tm = times.to_numpy(dtype=float)
     y_obs = data[wave_cols].notna().to_numpy()
@@ -411,7 +415,7 @@ def _fit_varying(data, times, shape, residuals, cov_names, wave_cols, informatio
     spec = growth_spec(nominal, shape=shape, residuals=residuals, covariates=cov_names, observed=wave_cols)
     Y = data_matrix(spec, data[wave_cols + cov_names], where)
     notes = check_data(spec, Y, where)
-    first = sem_fit(spec, Y, information=information, where=where, max_iter=max_iter)  # start values
+    first = sem_fit(spec, Y, se_from=se_from, where=where, max_iter=max_iter)  # start values
     cm = spec.compile()
     tz = np.where(np.isfinite(tm), tm, 0.0)
     lam = np.broadcast_to(cm.base[LAMBDA], (len(Y),) + cm.base[LAMBDA].shape).copy()
@@ -441,7 +445,7 @@ def _fit_varying(data, times, shape, residuals, cov_names, wave_cols, informatio
     mu, sigma = spec.implied(theta)
     sem = SemFit(spec=spec, theta=theta, estimates=estimates_table(spec, theta, res.vcov), fit=fitd,
                  implied_mean=mu, implied_cov=sigma, vcov=res.vcov, converged=bool(res.converged),
-                 admissible=bool(adm), notes=notes, n_iter=res.n_iter, information=information)
+                 admissible=bool(adm), notes=notes, n_iter=res.n_iter, se_from=se_from)
     g = GrowthFit(sem, shape, residuals, nominal, wave_cols)
     g.person_time_scores = times
     return g

@@ -47,16 +47,16 @@ import pandas as pd
 from wavetrail.errors import ModelError
 
 __all__ = ["invariance_spec", "longitudinal_invariance", "invariance_table", "Invariance",
-           "INVARIANCE_COLUMNS", "DELTA_CFI", "CHEN_RMSEA", "CHEN_SRMR_LOADINGS", "CHEN_SRMR_INTERCEPTS"]
+           "INVARIANCE_COLUMNS", "DELTA_CFI", "MAX_RISE_RMSEA", "MAX_RISE_SRMR_LOADINGS", "MAX_RISE_SRMR_INTERCEPTS"]
 
 #: largest CFI drop for a step to hold (Cheung & Rensvold 2002)
 DELTA_CFI = 0.01
 #: Chen (2007): largest RMSEA rise; SRMR rise for loadings and for intercepts
-CHEN_RMSEA, CHEN_SRMR_LOADINGS, CHEN_SRMR_INTERCEPTS = 0.015, 0.030, 0.010
+MAX_RISE_RMSEA, MAX_RISE_SRMR_LOADINGS, MAX_RISE_SRMR_INTERCEPTS = 0.015, 0.030, 0.010
 STEPS = ("configural", "metric", "scalar")
 INVARIANCE_COLUMNS = ["scale", "step", "n", "chisq", "df", "p", "cfi", "tli", "rmsea", "srmr",
                       "delta_chisq", "delta_df", "delta_p", "delta_cfi", "delta_rmsea", "delta_srmr",
-                      "decision", "chen", "freed", "free_order", "converged", "note"]
+                      "decision", "decision_all_indices", "freed", "free_order", "converged", "note"]
 
 
 def _obs(item: str, t: int) -> str:
@@ -341,7 +341,7 @@ def _row(scale, step, f, prev, constrained) -> dict:
     row = {"scale": scale, "step": step, "n": fd["n"], "chisq": fd["chisq"], "df": fd["df"], "p": fd["p"],
            "cfi": fd["cfi"], "tli": fd["tli"], "rmsea": fd["rmsea"], "srmr": fd["srmr"],
            "delta_chisq": np.nan, "delta_df": np.nan, "delta_p": np.nan, "delta_cfi": np.nan,
-           "delta_rmsea": np.nan, "delta_srmr": np.nan, "decision": "baseline", "chen": "",
+           "delta_rmsea": np.nan, "delta_srmr": np.nan, "decision": "baseline", "decision_all_indices": "",
            "freed": "", "free_order": "", "converged": bool(fd.get("converged", True)) and bool(f.converged),
            "note": fd.get("note", "") or ""}
     if prev is not None:
@@ -355,10 +355,10 @@ def _row(scale, step, f, prev, constrained) -> dict:
                    delta_cfi=fd["cfi"] - pd_["cfi"], delta_rmsea=fd["rmsea"] - pd_["rmsea"],
                    delta_srmr=fd["srmr"] - pd_["srmr"])
         row["decision"] = "holds" if row["delta_cfi"] >= -DELTA_CFI else "fails"
-        srmr_cut = CHEN_SRMR_LOADINGS if constrained == "loadings" else CHEN_SRMR_INTERCEPTS
-        chen_ok = (row["delta_cfi"] >= -DELTA_CFI and row["delta_rmsea"] <= CHEN_RMSEA
+        srmr_cut = MAX_RISE_SRMR_LOADINGS if constrained == "loadings" else MAX_RISE_SRMR_INTERCEPTS
+        all_ok = (row["delta_cfi"] >= -DELTA_CFI and row["delta_rmsea"] <= MAX_RISE_RMSEA
                    and (not np.isfinite(row["delta_srmr"]) or row["delta_srmr"] <= srmr_cut))
-        row["chen"] = "holds" if chen_ok else "fails"
+        row["decision_all_indices"] = "holds" if all_ok else "fails"
     if not row["converged"]:
         row["decision"] = "not converged"
     return row

@@ -128,7 +128,7 @@ def freeze_plan(project: str | Path, *, replace: bool = False, commit: bool = Tr
 
 
 #: steps that only check data and environment: their outputs are not results an analysis plan could follow
-PREPARATORY_STEPS = ("verify_data", "lock_environment", "check_data")
+PREPARATORY_STEPS = ("confirm_raw_hashes", "lock_environment", "check_data")
 
 
 def results_seen(project: str | Path) -> list[str]:

@@ -41,8 +41,8 @@ MARKERS = ("config/config.yaml", "workflow/Snakefile")
 GITIGNORE = """\
 # What git leaves out of this wavetrail project.
 
-# Raw data are treated as closed: only their hashes (data/SHA256SUMS) are tracked.
-# When the data are open and may be shared, delete the next line (or add a line
+# Raw data are kept private by default: git tracks only their hashes (data/SHA256SUMS).
+# When the data are shareable, delete the next line (or add a line
 # "!data/raw/<file>" after it) and commit the files.
 data/raw/
 

@@ -3,8 +3,8 @@
 The file is in sha256sum format — ``<64 hex digits><two spaces><path relative to
 data/>`` — so ``cd data && sha256sum -c SHA256SUMS`` checks it without
 wavetrail. Lines are sorted by path. The first workflow step
-(:func:`wavetrail.stages.provenance.verify_data`) refuses to run when a raw
-file's bytes differ from its registered hash; ``wavetrail data add FILE``
+(:func:`wavetrail.stages.provenance.confirm_raw_hashes`) refuses to run when a raw
+file's bytes differ from its registered hash; ``wavetrail data register FILE``
 accepts the new bytes and, in a git repository, commits the registry.
 """
 
@@ -30,7 +30,22 @@ STATUS_COLUMNS = ["file", "state", "sha256", "actual_sha256", "size"]
 
 
 def _hint_add(rel: str) -> str:
-    return f"if the new bytes are intended, accept them with `wavetrail data add {rel}`"
+    return f"if the new bytes are intended, accept them with `wavetrail data register {rel}`"
+
+
+def project_of(file: str | Path) -> Path:
+    """The project a data file belongs to: the nearest folder above it whose ``data/`` holds it.
+
+    A folder counts when it has ``config/config.yaml`` or ``data/SHA256SUMS``; without
+    one (or for a file outside any ``data/``) the current folder is the project, and
+    :func:`register_files` then says why the file cannot be registered there.
+    """
+    here = Path(os.path.abspath(file))
+    for parent in here.parents:
+        if parent.name == "data" and ((parent.parent / "config" / "config.yaml").is_file()
+                                      or (parent / "SHA256SUMS").is_file()):
+            return parent.parent
+    return Path(".")
 
 
 def registry_file(project: str | Path) -> Path:
@@ -58,7 +73,7 @@ def read_registry(project: str | Path, registry: str | Path | None = None) -> di
         if not match:
             raise RegistryError(
                 f"{REGISTRY_PATH}, line {number}: expected '<sha256>  <path>', found {raw!r}",
-                hint="fix the line by hand or re-register the file with `wavetrail data add data/raw/<file>`",
+                hint="fix the line by hand or re-register the file with `wavetrail data register data/raw/<file>`",
             )
         rel = PurePosixPath(match["path"])
         if rel.is_absolute() or ".." in rel.parts:
@@ -135,7 +150,7 @@ def register_files(project: str | Path, files, *, commit: bool = True) -> list[s
     """
     project = Path(project)
     if not project.is_dir():
-        raise RegistryError(f"no project folder at {project}", hint="pass --project PATH")
+        raise RegistryError(f"no project folder at {project}", hint="give the path of a file under data/ of a project")
     entries = read_registry(project)
     lines: list[str] = []
     changed = False
@@ -252,7 +267,7 @@ def verify_registered(project: str | Path, paths, registry: str | Path | None = 
         expected = entries.get(rel)
         if expected is None:
             problems.append(f"{rel}: not registered in {REGISTRY_PATH} (actual sha256 {actual})")
-            hints.append(f"register it with `wavetrail data add {rel}`")
+            hints.append(f"register it with `wavetrail data register {rel}`")
         elif expected != actual:
             problems.append(f"{rel}: bytes differ from the registered hash\n"
                             f"      expected sha256 {expected}\n      actual   sha256 {actual}")

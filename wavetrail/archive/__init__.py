@@ -14,7 +14,7 @@ from wavetrail.archive.compare import compare_files
 from wavetrail.archive.disclosure import check_outputs
 from wavetrail.archive.pack import pack_project
 from wavetrail.archive.safe_extract import Limits, safe_extract
-from wavetrail.archive.standin import synthesize
+from wavetrail.archive.stand_in import synthesize
 from wavetrail.archive.verify import REBUILD_WARNING, VerifyReport, verify_archive
 
 __all__ = [

@@ -27,6 +27,9 @@ import bagit
 from wavetrail.errors import ArchiveError
 
 ALGORITHM = "sha256"
+#: the BagIt version the bag declares (RFC 8493); the bagit library writes 0.97, and the bag is
+#: made to the 1.0 rules (UTF-8 tag files, sha256 manifests, no fetch.txt), so bagit.txt says 1.0
+BAGIT_VERSION = "1.0"
 
 
 def make_bag(staging: Path, bag_info: dict, date: str, agent: str) -> None:
@@ -52,6 +55,20 @@ def make_bag(staging: Path, bag_info: dict, date: str, agent: str) -> None:
         raise ArchiveError(f"the bag could not be made: {err}") from None
     finally:
         os.chdir(cwd)
+    _declare_version(staging)
+
+
+def _declare_version(bag_dir: Path) -> None:
+    """Write ``BagIt-Version: 1.0`` in bagit.txt and its new sha256 in the tag manifest."""
+    import hashlib
+
+    text = f"BagIt-Version: {BAGIT_VERSION}\nTag-File-Character-Encoding: UTF-8\n".encode("utf-8")
+    (bag_dir / "bagit.txt").write_bytes(text)
+    digest = hashlib.new(ALGORITHM, text).hexdigest()
+    manifest = bag_dir / f"tagmanifest-{ALGORITHM}.txt"
+    lines = manifest.read_bytes().decode("utf-8").splitlines()
+    lines = [f"{digest} bagit.txt" if line.split(" ", 1)[-1].strip() == "bagit.txt" else line for line in lines]
+    manifest.write_bytes(("\n".join(lines) + "\n").encode("utf-8"))
 
 
 def _files(folder: Path) -> list[tuple[str, Path]]:

@@ -376,6 +376,6 @@ def check_raw_files(files: dict, codebook, tables: dict) -> list[dict]:
                     frame[name].astype(str).str.strip() != "").any():
                 out.append(_finding("identifier column", BLOCK, rel, name, "",
                                     f"{rel}: raw data column {name!r} is an identifier and holds values; "
-                                    "remove the column before packing with --data include, or pack with "
-                                    "--data exclude or --data stand-in"))
+                                    "remove the column before packing with --raw include, or pack with "
+                                    "--raw exclude or --raw stand-in"))
     return out

@@ -13,7 +13,7 @@ Raw data modes
 ``exclude``
     Only their registered hashes go in (``data/SHA256SUMS``).
 ``stand-in``
-    Synthetic rows (:mod:`wavetrail.archive.standin`) go in under a file name
+    Synthetic rows (:mod:`wavetrail.archive.stand_in`) go in under a file name
     that says ``STAND-IN``; the archive's ``data/SHA256SUMS`` and
     ``config/config.yaml`` point at the stand-in so that a rebuild runs on it;
     the real registry and the original hashes of the two altered files are
@@ -41,10 +41,11 @@ from wavetrail import __version__
 from wavetrail._io import atomic_write_text, sha256_file, write_json, write_table
 from wavetrail.errors import ArchiveError, UsageError
 
-from wavetrail.archive import standin as standin_mod
+from wavetrail.archive import stand_in as standin_mod
 from wavetrail.archive.bag import make_bag, write_archive
 from wavetrail.archive.crate import build_crate
 from wavetrail.archive.disclosure import BLOCK, check_outputs, check_raw_files
+from wavetrail.archive.schema import STAND_IN_LABEL
 
 MODES = ("include", "exclude", "stand-in")
 MANIFEST = "wavetrail-archive.json"
@@ -216,16 +217,18 @@ def _readme(title: str, commit: str, mode: str, standin: dict | None, withheld: 
     return "\n".join(lines)
 
 
-def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool = False,
-                 allow_disclosure: bool = False, min_cell: int | None = None, notes: list | None = None) -> Path:
+def pack_project(path=".", raw: str = "include", output=None, allow_dirty: bool = False,
+                 allow_disclosure: bool = False, min_cell: int | None = None, notes: list | None = None,
+                 **earlier) -> Path:
     """Write the reviewer archive of a project.
 
     Parameters
     ----------
     path : path
         The project (or a folder inside it).
-    data : {"include", "exclude", "stand-in"}
-        What goes in for the raw data (see the module notes).
+    raw : {"include", "exclude", "stand-in"}
+        What goes in for the raw data (see the module notes); ``wavetrail pack --raw``.
+        The earlier name ``data=`` is accepted this version only (``DeprecationWarning``).
     output : path, optional
         Archive file, ``.zip`` or ``.tar.gz``; default
         ``<project>-<commit>-<mode>.zip`` beside the project folder.
@@ -258,8 +261,13 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
     from wavetrail.project import find_project
     from wavetrail.registry import read_registry
 
+    if earlier:
+        from wavetrail.sem.fitting import renamed_arguments
+
+        raw = renamed_arguments("pack_project", earlier, {"data": "raw"}).get("raw", raw)
+    data = raw
     if data not in MODES:
-        raise UsageError(f"--data {data!r}: choose include, exclude or stand-in")
+        raise UsageError(f"--raw {data!r}: choose include, exclude or stand-in")
     root = find_project(path)
     repo = _repo(root)
     config = load_config(root)
@@ -283,7 +291,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
     unregistered = [p for p in raw_paths if p not in registry]
     if unregistered:
         raise ArchiveError(f"{unregistered[0]}: listed under `data` in config/config.yaml but not registered "
-                           "in data/SHA256SUMS", hint=f"register it with `wavetrail data add {unregistered[0]}`, "
+                           "in data/SHA256SUMS", hint=f"register it with `wavetrail data register {unregistered[0]}`, "
                                                       "commit, and rebuild")
 
     # -------- the payload: tracked files + results + lock + registry
@@ -318,11 +326,11 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
         for rel in raw_paths:
             f = root / rel
             if not f.is_file():
-                raise ArchiveError(f"{rel}: raw data file missing; --data include needs it",
-                                   hint="put the file back, or pack with --data exclude")
+                raise ArchiveError(f"{rel}: raw data file missing; --raw include needs it",
+                                   hint="put the file back, or pack with --raw exclude")
             if rel in registry and sha256_file(f) != registry[rel]:
                 raise ArchiveError(f"{rel}: bytes differ from data/SHA256SUMS",
-                                   hint=f"accept them with `wavetrail data add {rel}` and rebuild")
+                                   hint=f"accept them with `wavetrail data register {rel}` and rebuild")
             files[rel] = f
     else:
         for rel in raw_paths:
@@ -362,7 +370,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             del files[rel]
     blocking = [f for f in findings if f["severity"] == BLOCK]
     if blocking and not allow_disclosure:
-        raise ArchiveError(f"the disclosure check found what an archive (--data {data}) must not show:\n  "
+        raise ArchiveError(f"the disclosure check found what an archive (--raw {data}) must not show:\n  "
                            + _short([f["message"] for f in blocking]),
                            hint="fix the outputs and rebuild, or pack anyway with --allow-disclosure "
                                 "(the findings are then listed in the archive)")
@@ -383,12 +391,12 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             too_close = standin_mod.closeness_problems(near)
             if too_close:
                 raise ArchiveError("the stand-in rows are too close to the real rows:\n  " + _short(too_close),
-                                   hint="pack with --data exclude")
+                                   hint="pack with --raw exclude")
         manifest = {
             "schema": SCHEMA, "title": _title(config, codebook, root), "commit": commit,
             "committed": when.isoformat(timespec="seconds"), "wavetrail": __version__, "mode": data,
             "registry": {p: registry[p] for p in sorted(registry)},
-            "withheld": withheld, "standin": standin, "altered": altered,
+            "withheld": withheld, "stand-in": standin, "altered": altered,
             "disclosure": {"min_cell": threshold, "min_cell_source": source, "findings": findings,
                            "allowed": bool(blocking)},
             "state": {"problems": problems, "allowed": bool(problems)},
@@ -422,7 +430,7 @@ def pack_project(path=".", data: str = "include", output=None, allow_dirty: bool
             "Raw-Data-Mode": data,
         }
         if standin:
-            bag_info["Stand-In-Data"] = f"{standin['path']}: {standin_mod.NOTE}"
+            bag_info[STAND_IN_LABEL] = f"{standin['path']}: {standin_mod.NOTE}"
         make_bag(staging, bag_info, date=when.date().isoformat(), agent=f"wavetrail {__version__}")
         if output is None:
             output = root.parent / f"{root.name}-{commit[:10]}-{data}.zip"

@@ -60,7 +60,7 @@ _KEPT = {"type": "object", "required": ["sha256"],
 #: the archive's own description (``wavetrail-archive.json``)
 ARCHIVE_SCHEMA = {
     "type": "object",
-    "required": ["schema", "title", "commit", "wavetrail", "mode", "registry", "withheld", "standin",
+    "required": ["schema", "title", "commit", "wavetrail", "mode", "registry", "withheld", "stand-in",
                  "altered", "disclosure", "state"],
     "properties": {
         "schema": {"const": "wavetrail-archive/1"},
@@ -72,7 +72,7 @@ ARCHIVE_SCHEMA = {
         "registry": {"type": "object", "additionalProperties": _HEX64},
         "withheld": {"type": "object", "additionalProperties": _KEPT},
         "altered": {"type": "object", "additionalProperties": _KEPT},
-        "standin": {"anyOf": [{"type": "null"}, {
+        "stand-in": {"anyOf": [{"type": "null"}, {
             "type": "object", "required": ["path", "sha256"],
             "properties": {"path": _PATH, "sha256": _HEX64, "replaces": {"type": "array", "items": _PATH},
                            "closeness": {"type": "object"}}}]},
@@ -88,6 +88,9 @@ ARCHIVE_SCHEMA = {
 }
 
 #: keys of bag-info.txt that must agree with the archive description
+#: bag-info.txt label of a stand-in archive (BagIt labels are capitalised words joined by hyphens)
+STAND_IN_LABEL = "Stand-in"
+
 BAG_INFO_KEYS = {"Project-Commit": "commit", "Raw-Data-Mode": "mode", "Wavetrail-Version": "wavetrail",
                  "Project-Title": "title"}
 

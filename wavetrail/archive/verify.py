@@ -34,8 +34,8 @@ from wavetrail.archive import compare as cmp
 from wavetrail.archive.bag import find_bag, read_bag_info, validate_bag
 from wavetrail.archive.pack import MANIFEST
 from wavetrail.archive.safe_extract import DEFAULT_LIMITS, Limits, safe_extract
-from wavetrail.archive.schema import (ARCHIVE_SCHEMA, BAG_INFO_KEYS, LEDGER_SCHEMA, PathProblem, payload_file,
-                                      schema_problems)
+from wavetrail.archive.schema import (ARCHIVE_SCHEMA, BAG_INFO_KEYS, LEDGER_SCHEMA, STAND_IN_LABEL, PathProblem,
+                                      payload_file, schema_problems)
 
 OK, FAIL, WARN, NOTE = "ok", "fail", "warn", "note"
 COLUMNS = ["check", "target", "status", "detail"]
@@ -101,7 +101,7 @@ def _finish(rows: _Rows, json_path, details: dict, rebuild: bool, archive: Path)
         lines.append(f"  ... and {len(bad) - 10} more")
     if details.get("code"):
         lines.append(details["code"]["headline"])
-    if details.get("standin_rebuilt"):
+    if details.get("rebuilt_on_stand_in"):
         lines.append("stand-in: the outputs were rebuilt on the STAND-IN rows and not compared with the "
                      "archived results (those come from the real data); the rebuild shows only that the "
                      "workflow runs end to end")
@@ -201,7 +201,7 @@ def verify_archive(archive, rebuild: bool = False, json_path=None, rtol: float =
                 progress(code.headline())
             _guarded(rows, "rebuild", lambda: _rebuild(payload, manifest, records, Path(tmp), rows, rtol, cores),
                      None)
-            details["standin_rebuilt"] = any(r["status"] == "rebuilt on stand-in" for r in rows.rows)
+            details["rebuilt_on_stand_in"] = any(r["status"] == "rebuilt on stand-in" for r in rows.rows)
     return _finish(rows, json_path, details, rebuild, archive)
 
 
@@ -219,6 +219,8 @@ def _read_manifest(payload: Path, rows: _Rows) -> dict | None:
     except (json.JSONDecodeError, UnicodeDecodeError, RecursionError) as err:
         rows.add("archive", f"data/{MANIFEST}", FAIL, f"not readable JSON ({err})")
         return None
+    if isinstance(manifest, dict) and "standin" in manifest and "stand-in" not in manifest:
+        manifest["stand-in"] = manifest.pop("standin")  # the key's spelling in archives of 0.1.0
     problems = schema_problems(manifest, ARCHIVE_SCHEMA, f"data/{MANIFEST}")
     if problems:
         for text in problems[:20]:
@@ -228,10 +230,10 @@ def _read_manifest(payload: Path, rows: _Rows) -> dict | None:
         for rel in manifest[kind]:
             if _unsafe(rel, rows, "archive", f"data/{MANIFEST} ({kind})"):
                 return None
-    standin = manifest["standin"]
+    standin = manifest["stand-in"]
     if standin is not None:
         for rel in [standin["path"], *standin.get("replaces", [])]:
-            if _unsafe(rel, rows, "archive", f"data/{MANIFEST} (standin)"):
+            if _unsafe(rel, rows, "archive", f"data/{MANIFEST} (stand-in)"):
                 return None
     if (manifest["mode"] == "stand-in") != (standin is not None):
         rows.add("archive", f"data/{MANIFEST}", FAIL, f"mode {manifest['mode']!r} does not fit its stand-in entry")
@@ -263,8 +265,9 @@ def _check_bag_info(info: dict, manifest: dict, rows: _Rows) -> None:
         rows.add("bag", "bag-info.txt", FAIL, f"External-Identifier {info.get('External-Identifier')!r} differs "
                                               f"from the archive's commit")
         bad = True
-    if manifest["mode"] == "stand-in" and "Stand-In-Data" not in info:
-        rows.add("bag", "bag-info.txt", FAIL, "stand-in archive without the Stand-In-Data label")
+    if manifest["mode"] == "stand-in" and STAND_IN_LABEL not in info and "Stand-In-Data" not in info:
+        # "Stand-In-Data" is the label's spelling in archives of 0.1.0
+        rows.add("bag", "bag-info.txt", FAIL, f"stand-in archive without the {STAND_IN_LABEL} label")
         bad = True
     if not bad:
         rows.add("bag", "bag-info.txt", OK, "commit, raw data mode, version and title agree with the archive's "
@@ -344,7 +347,7 @@ def _check_ledger(payload: Path, manifest: dict, rows: _Rows) -> list[dict]:
     withheld = manifest.get("withheld") or {}
     altered = manifest.get("altered") or {}
     real_registry = manifest.get("registry") or {}
-    standin = manifest.get("standin")
+    standin = manifest.get("stand-in")
     try:
         archive_registry = _registry(payload)
     except (WavetrailError, UnicodeDecodeError) as err:

@@ -1,7 +1,8 @@
 """Moderator forests: SEM trees and forests over the latent growth model.
 
-Public surface (DESIGN 2.3): :func:`grow_tree`, :func:`grow_forest`,
-:class:`Tree`, :class:`Forest`. See docs/methods/forest.md for the methods.
+Public surface: :func:`grow_tree` (one tree) and :func:`grow_forest` (a :class:`Forest`
+with ``importance()``, ``dependence()``, ``interactions()``, ``to_json()``), and the classes
+:class:`Tree` and :class:`Forest`. See docs/methods/forest.md for the methods.
 """
 
 from wavetrail.forest.forest import Forest, grow_forest, grow_tree

@@ -74,7 +74,7 @@ def partial_dependence(trees, model, X_bg: np.ndarray, settings: list[tuple[int,
     for tree in trees:
         E = tree_expected(tree, model)
         M2 = tree_second(tree, model) if spread else None
-        if np.intersect1d(tree.used_features, cols).size == 0:
+        if np.intersect1d(tree.used_predictors, cols).size == 0:
             leaf = tree.apply(X_bg)
             out += E[leaf].mean(axis=0)[None, :]
             if spread:

@@ -37,6 +37,9 @@ from wavetrail.forest.models import GrowthNodeModel, PanelTerms, fit_robust, mod
 from wavetrail.forest.tree import Settings, Tree, build_tree
 from wavetrail.seeds import derive_seed
 
+#: the two ways a node chooses its split (the ``forest.split`` setting, ``split=`` here, ``settings.split`` in forest.json)
+SPLIT_TESTS = ("scores", "likelihood_ratio")
+
 log = logging.getLogger("wavetrail")
 
 #: nodes below ``MC_PER_PARAMETER * k`` people get Monte Carlo p-values by default
@@ -89,8 +92,15 @@ def _prepare(wide, predictors, time_scores):
 
 def _resolve(model, m, n, alpha, min_size, max_depth, mtry, split, max_cuts, max_levels,
              refine=8, mc_below=None, permutations=199) -> Settings:
-    if split not in ("score", "likelihood"):
-        raise ModelError(f"split must be 'score' or 'likelihood', not {split!r}")
+    if split in serial.OLD_SPLIT_NAMES:
+        import warnings
+
+        new = serial.OLD_SPLIT_NAMES[split]
+        warnings.warn(f"split={split!r} is renamed split={new!r}; the old value is accepted this version only",
+                      DeprecationWarning, stacklevel=3)
+        split = new
+    if split not in SPLIT_TESTS:
+        raise ModelError(f"split must be 'scores' or 'likelihood_ratio', not {split!r}")
     if not 0 < alpha <= 1:
         raise ModelError(f"alpha must lie in (0, 1], not {alpha!r}")
     ms = default_min_size(model) if min_size is None else int(min_size)
@@ -115,7 +125,7 @@ def _default_mtry(m: int) -> int:
 # ---------------------------------------------------------------- single tree
 
 def grow_tree(wide, predictors, time_scores, shape="linear", alpha=0.05, min_size=None, seed=0, *,
-              residuals="free", max_depth=None, split="score", max_cuts=32, max_levels=6,
+              residuals="free", max_depth=3, split="scores", max_cuts=32, max_levels=6,
               refine=8, model=None, mc_below=None, permutations=199) -> Tree:
     """Grow one SEM tree of the growth model on all people, testing every predictor at each node.
 
@@ -126,10 +136,13 @@ def grow_tree(wide, predictors, time_scores, shape="linear", alpha=0.05, min_siz
     time_scores : one time score per wave column.
     shape, residuals : growth model (see :func:`wavetrail.growth.growth_spec`).
     alpha : significance level of the Bonferroni-adjusted split test.
+    max_depth : deepest level a tree may reach (the root is level 0); default 3, as the ``forest.max_depth``
+        setting; ``None`` for no limit.
     min_size : smallest node; default :func:`default_min_size` (``max(k, 2 (p + 1))`` for
         ``k`` free model parameters and ``p`` waves).
     seed : seeds the Monte Carlo tests (a single tree tests all predictors).
-    split : ``"score"`` (score-based tests, default) or ``"likelihood"`` (likelihood-ratio search over all predictors).
+    split : ``"scores"`` (score-based tests, default) or ``"likelihood_ratio"`` (likelihood-ratio search over all
+        predictors); the same names as the ``forest.split`` setting and ``settings.split`` in forest.json.
     max_cuts : most candidate cuts fitted per predictor without pre-screening (spread evenly).
     max_levels : unordered categories with at most this many levels try every two-group partition.
     refine : score method: fit only the cuts with the ``refine`` largest LM statistics
@@ -179,8 +192,8 @@ def _grow_one(i: int) -> dict:
 
 
 def grow_forest(wide, predictors, time_scores, shape="linear", trees=500, seed=0, n_jobs=1, *,
-                residuals="free", alpha=0.05, min_size=None, max_depth=None, mtry=None,
-                sample_share=0.632, split="score", max_cuts=32, max_levels=6, refine=8,
+                residuals="free", alpha=0.05, min_size=None, max_depth=3, mtry=None,
+                sample_share=0.632, split="scores", max_cuts=32, max_levels=6, refine=8,
                 importance=True, tree_indices=None, model=None, mc_below=None, permutations=199,
                 progress=None) -> "Forest":
     """Grow a forest of SEM trees of the growth model.
@@ -447,7 +460,7 @@ class Forest:
             for t in self.trees_:
                 for nid in t.internal:
                     d = t.nodes[nid]
-                    if d["feature"] != j or not d.get("parts"):
+                    if d["predictor"] != j or not d.get("parts"):
                         continue
                     w = max(float(d.get("lr") or 0.0), 0.0)
                     count += 1
@@ -561,7 +574,7 @@ class Forest:
     # -- JSON and merging
     def to_dict(self) -> dict:
         return {
-            "format": serial.FORMAT,
+            "schema": serial.FORMAT,
             "model": self.model_desc,
             "predictors": self.info_.to_dict(),
             "settings": self.settings_,

@@ -35,7 +35,7 @@ def oob_drop(tree, model, Y_oob: np.ndarray, X_oob: np.ndarray, rng: np.random.G
     m = X_oob.shape[1]
     drop = np.zeros(m)
     n = X_oob.shape[0]
-    used = tree.used_features
+    used = tree.used_predictors
     if n == 0 or len(used) == 0:
         return drop
     leaves = tree.leaves

@@ -49,7 +49,7 @@ def h_statistic(trees, model, X_bg: np.ndarray, X_eval: np.ndarray, a: int, b: i
     pts = X_eval[keep][:, [a, b]]
     if pts.shape[0] < 2:
         return float("nan")
-    use = [t for t in trees if np.isin([a, b], t.used_features).any()]
+    use = [t for t in trees if np.isin([a, b], t.used_predictors).any()]
     if not use:
         return 0.0
     T = len(trees)

@@ -43,7 +43,7 @@ from wavetrail.forest._encode import UNORDERED
 class Split:
     """The chosen cut of one predictor at one node."""
 
-    feature: int
+    predictor: int
     kind: str
     cut: float | None
     left_levels: list[int] | None
@@ -103,7 +103,7 @@ def _fit_candidates(model, terms, T_left, T_total, start):
 
 
 def best_cut(model, terms, rows, z, kind, start, *, min_size, max_cuts=32, max_levels=6,
-             scores_w=None, refine=None, feature=-1) -> Split | None:
+             scores_w=None, refine=None, predictor=-1) -> Split | None:
     """Best cut of predictor values ``z`` (aligned with ``rows``) or ``None`` if none is admissible."""
     rows = np.asarray(rows)
     z = np.asarray(z, dtype=float)
@@ -161,7 +161,7 @@ def best_cut(model, terms, rows, z, kind, start, *, min_size, max_cuts=32, max_l
     else:
         missing_left = bool(len(left_obs) >= len(right_obs))
         left_rows, right_rows = np.sort(left_obs), np.sort(right_obs)
-    return Split(feature, kind, None if kind == UNORDERED else cut, left_levels, missing_left, lr,
+    return Split(predictor, kind, None if kind == UNORDERED else cut, left_levels, missing_left, lr,
                  left_rows, right_rows, np.asarray(theta_l), np.asarray(theta_r), ll_l, ll_r,
                  refit=bool(len(miss)))
 

@@ -5,7 +5,7 @@ each node: casewise scores at the node estimate, an instability test for each
 candidate predictor (a random subset of ``mtry`` of them in a forest, all in a
 single tree), Bonferroni over the candidates, and, if the smallest adjusted
 p-value is below ``alpha``, the likelihood-ratio cut of that predictor
-(:mod:`wavetrail.forest.splitter`). With ``split="likelihood"`` every candidate
+(:mod:`wavetrail.forest.splitter`). With ``split="likelihood_ratio"`` every candidate
 predictor's best cut is searched and the largest likelihood ratio wins; its
 p-value is ``P(chi2_k > LR)`` times the number of candidates (this ignores the
 search over cut points, so it favours predictors with many distinct values;
@@ -54,7 +54,7 @@ class Settings:
     min_size: int = 10
     max_depth: int = 1_000_000
     mtry: int = 1
-    split: str = "score"
+    split: str = "scores"
     max_cuts: int = 32
     max_levels: int = 6
     refine: int | None = 8
@@ -88,12 +88,12 @@ class Tree:
 
     def _arrays(self):
         nd = self.nodes
-        self.feature = np.array([d["feature"] for d in nd], dtype=np.int64)
+        self.predictor = np.array([d["predictor"] for d in nd], dtype=np.int64)
         self.left = np.array([d["left"] for d in nd], dtype=np.int64)
         self.right = np.array([d["right"] for d in nd], dtype=np.int64)
         self.theta_ = np.array([d["theta"] for d in nd], dtype=float)
-        self.internal = np.flatnonzero(self.feature >= 0)
-        self.leaves = np.flatnonzero(self.feature < 0)
+        self.internal = np.flatnonzero(self.predictor >= 0)
+        self.leaves = np.flatnonzero(self.predictor < 0)
 
     @property
     def failed_fits_(self) -> int:
@@ -105,26 +105,26 @@ class Tree:
         return int(len(self.leaves))
 
     @property
-    def used_features(self) -> np.ndarray:
-        return np.unique(self.feature[self.internal])
+    def used_predictors(self) -> np.ndarray:
+        return np.unique(self.predictor[self.internal])
 
     @property
     def splits_(self) -> pd.DataFrame:
         rows = []
         for i in self.internal:
             d = self.nodes[i]
-            rows.append({"node": int(i), "predictor": self.info.names[d["feature"]],
+            rows.append({"node": int(i), "predictor": self.info.names[d["predictor"]],
                          "cut": self._cut_label(d), "statistic": d["statistic"], "p": d["p"]})
         return pd.DataFrame(rows, columns=["node", "predictor", "cut", "statistic", "p"])
 
     @property
     def nodes_(self) -> pd.DataFrame:
         return pd.DataFrame([{"node": i, "parent": d["parent"], "depth": d["depth"], "n": d["n"],
-                              "leaf": d["feature"] < 0, "loglik": d["loglik"]}
+                              "leaf": d["predictor"] < 0, "loglik": d["loglik"]}
                              for i, d in enumerate(self.nodes)])
 
     def _cut_label(self, d):
-        j = d["feature"]
+        j = d["predictor"]
         kind = self.info.kinds[j]
         if kind == UNORDERED:
             return "{" + ", ".join(self.info.levels[j][c] for c in d["left_levels"]) + "}"
@@ -141,7 +141,7 @@ class Tree:
             if idx.size == 0:
                 continue
             d = self.nodes[nid]
-            go = route_left(X[idx, d["feature"]], kinds[d["feature"]], d["cut"], d["left_levels"],
+            go = route_left(X[idx, d["predictor"]], kinds[d["predictor"]], d["cut"], d["left_levels"],
                             d["missing_left"])
             node[idx] = np.where(go, self.left[nid], self.right[nid])
         return node
@@ -150,7 +150,7 @@ class Tree:
 def _node(parent, depth, n, theta, loglik, failed=False):
     d = {"parent": int(parent), "depth": int(depth), "n": int(n),
          "theta": [float(v) for v in np.asarray(theta).reshape(-1)], "loglik": float(loglik),
-         "feature": -1, "kind": None, "cut": None, "left_levels": None, "missing_left": None,
+         "predictor": -1, "kind": None, "cut": None, "left_levels": None, "missing_left": None,
          "left": -1, "right": -1, "statistic": None, "p": None, "lr": None}
     if failed:
         d["failed"] = True
@@ -256,7 +256,7 @@ def _select_score(model, terms, X, kinds, rows, theta, cand, st: Settings, count
             return None
     split = best_cut(model, terms, rows, X[rows, cand[best]], kinds[cand[best]], theta,
                      min_size=st.min_size, max_cuts=st.max_cuts, max_levels=st.max_levels,
-                     scores_w=Sw, refine=st.refine, feature=int(cand[best]))
+                     scores_w=Sw, refine=st.refine, predictor=int(cand[best]))
     if split is None:
         return None
     split.scores = S
@@ -271,7 +271,7 @@ def _select_lr(model, terms, X, kinds, rows, theta, cand, st: Settings, counts=N
     best = None
     for j in cand:
         s = best_cut(model, terms, rows, X[rows, j], kinds[j], theta, min_size=st.min_size,
-                     max_cuts=st.max_cuts, max_levels=st.max_levels, feature=int(j))
+                     max_cuts=st.max_cuts, max_levels=st.max_levels, predictor=int(j))
         if s is not None and (best is None or s.lr > best.lr):
             best = s
     if best is None:
@@ -312,7 +312,7 @@ def build_tree(model, terms, X, info: PredictorInfo, rows, rng: np.random.Genera
         return Tree(nodes, info, index=index, seed=seed, counts=counts)
     nodes = [_node(-1, 0, len(rows), theta[0], ll[0])]
     stack = [(0, rows, True)]
-    select = _select_lr if st.split == "likelihood" else _select_score
+    select = _select_lr if st.split == "likelihood_ratio" else _select_score
     while stack:
         nid, nrows, ok = stack.pop()
         d = nodes[nid]
@@ -344,7 +344,7 @@ def build_tree(model, terms, X, info: PredictorInfo, rows, rng: np.random.Genera
         ll_l = float(lls[0]) if cv[0] else float(sp.ll_left)
         ll_r = float(lls[1]) if cv[1] else float(sp.ll_right)
         conv_l, conv_r = bool(cv[0]), bool(cv[1])
-        d.update(feature=int(sp.feature), kind=sp.kind, cut=sp.cut, left_levels=sp.left_levels,
+        d.update(predictor=int(sp.predictor), kind=sp.kind, cut=sp.cut, left_levels=sp.left_levels,
                  missing_left=bool(sp.missing_left), statistic=stat, p=p, lr=float(sp.lr))
         S = getattr(sp, "scores", None)
         if S is None:

@@ -115,7 +115,7 @@ class Report:
         self.settings = dict(settings)
         self.min_cell = int(self.settings.get("min_cell", 5))
         self.study = _in.read_study(self.root / self.settings["codebook"]) if self.settings.get("codebook") else _in.StudyInfo()
-        self.figures_dir = self.root / self.settings.get("figures", "results/reports/figures")
+        self.figures_dir = self.root / self.settings.get("figures", "results/write-up/figures")
         self._numbers: dict[tuple[str, str], int] = {}
 
     # ------------------------------------------------------------------ helpers
@@ -1086,7 +1086,7 @@ class Report:
             + '<pre class="wt-commands">wavetrail build             # rebuild what is out of date\n'
               "wavetrail ledger --drift    # outputs whose bytes no longer match their record\n"
               "wavetrail plan diff         # deviations from the frozen analysis plan\n"
-              "wavetrail pack -o review.zip --data stand-in\n"
+              "wavetrail pack -o review.zip --raw stand-in\n"
               "wavetrail verify review.zip --rebuild</pre>"
         )
 

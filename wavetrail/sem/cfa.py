@@ -8,19 +8,24 @@ from wavetrail.errors import ModelError
 from wavetrail.sem.spec import ModelSpec
 
 
-def cfa_spec(factors, observed=None, orthogonal=False, unit_variance=False) -> ModelSpec:
+def cfa_spec(factors, observed=None, uncorrelated=False, unit_variance=False, **earlier) -> ModelSpec:
     """Measurement model: each factor loads on its indicators.
 
     Parameters
     ----------
     factors : dict factor name -> list of indicator columns
     observed : list of str, optional, column order (default: indicators in order of appearance)
-    orthogonal : bool, fix factor covariances at 0
+    uncorrelated : bool, fix factor covariances at 0
     unit_variance : bool, identify factors by variance 1 (all loadings free) instead of
         fixing the first loading at 1
 
     Intercepts are free, factor means fixed at 0, residuals uncorrelated.
     """
+    if earlier:
+        from wavetrail.sem.fitting import renamed_arguments
+
+        uncorrelated = renamed_arguments("cfa_spec", earlier, {"orthogonal": "uncorrelated"}).get(
+            "uncorrelated", uncorrelated)
     if not factors:
         raise ModelError("fit_cfa needs at least one factor with indicators")
     obs = []
@@ -45,12 +50,12 @@ def cfa_spec(factors, observed=None, orthogonal=False, unit_variance=False) -> M
         spec.mean(f, value=0.0)
         spec.cov(f, f, value=1.0 if unit_variance else None)
         for g in names[i + 1:]:
-            spec.cov(f, g, value=0.0 if orthogonal else None)
+            spec.cov(f, g, value=0.0 if uncorrelated else None)
     return spec
 
 
-def fit_cfa(data: pd.DataFrame, factors, missing="fiml", orthogonal=False, unit_variance=False,
-            information="observed", where="data", meanstructure=True):
+def fit_cfa(data: pd.DataFrame, factors, missing="fiml", uncorrelated=False, unit_variance=False,
+            se_from="observed", where="data", means=True, **earlier):
     """Fit a confirmatory factor model by ML (FIML for missing entries).
 
     Parameters
@@ -59,9 +64,9 @@ def fit_cfa(data: pd.DataFrame, factors, missing="fiml", orthogonal=False, unit_
     factors : dict factor name -> indicator columns; the first loading of each
         factor is fixed at 1 unless ``unit_variance=True``
     missing : {"fiml", "listwise"}
-    orthogonal, unit_variance : see :func:`cfa_spec`
-    information : {"observed", "expected"} for the standard errors
-    meanstructure : bool, ``False`` leaves the (saturated) intercepts out of the
+    uncorrelated, unit_variance : see :func:`cfa_spec`
+    se_from : {"observed", "expected"} information for the standard errors
+    means : bool, ``False`` leaves the (saturated) intercepts out of the
         parameter count (AIC/BIC of a covariance-structure model)
 
     Returns
@@ -71,6 +76,12 @@ def fit_cfa(data: pd.DataFrame, factors, missing="fiml", orthogonal=False, unit_
     """
     from wavetrail.sem.fitting import fit
 
-    spec = cfa_spec(factors, orthogonal=orthogonal, unit_variance=unit_variance)
-    return fit(spec, data, missing=missing, information=information, where=where,
-               meanstructure=meanstructure)
+    if earlier:
+        from wavetrail.sem.fitting import renamed_arguments
+
+        named = renamed_arguments("fit_cfa", earlier, {"orthogonal": "uncorrelated", "information": "se_from",
+                                                       "meanstructure": "means"})
+        uncorrelated = named.get("uncorrelated", uncorrelated)
+        se_from, means = named.get("se_from", se_from), named.get("means", means)
+    spec = cfa_spec(factors, uncorrelated=uncorrelated, unit_variance=unit_variance)
+    return fit(spec, data, missing=missing, se_from=se_from, where=where, means=means)

@@ -4,7 +4,7 @@ Standard errors come from the inverse of the **observed** information (the
 negative Hessian of the log-likelihood, by central differences of the analytic
 gradient) by default: with missing data under MAR only the observed information
 gives valid standard errors (Kenward & Molenberghs 1998, Biometrika 85(1)).
-``information="expected"`` uses the Fisher information instead.
+``se_from="expected"`` uses the Fisher (expected) information instead.
 
 Estimation is unrestricted ML: variances may become negative and latent
 covariance matrices indefinite as long as every pattern's implied covariance
@@ -94,7 +94,7 @@ class SemFit:
     admissible: bool
     notes: list = field(default_factory=list)
     n_iter: int = 0
-    information: str = "observed"
+    se_from: str = "observed"
     saturated_mean: np.ndarray | None = None
     saturated_cov: np.ndarray | None = None
 
@@ -147,8 +147,9 @@ def check_data(spec, Y, where="data"):
 
 
 @single_threaded
-def fit(spec, data, missing="fiml", start=None, information="observed", max_iter=500, tol=1e-10,
-        where="data", meanstructure=True, search="auto", starts=None, n_random=8, seed=0, robust=False) -> SemFit:
+def fit(spec, data, missing="fiml", start=None, se_from="observed", max_iter=500, tol=1e-10,
+        where="data", means=True, search="auto", starts=None, n_random=8, seed=0, robust=False,
+        **earlier) -> SemFit:
     """Fit ``spec`` by maximum likelihood.
 
     Parameters
@@ -158,7 +159,8 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
         array, or a :class:`SuffStats` with B = 1
     missing : {"fiml", "listwise"}
     start : (k,) starting values, optional
-    information : {"observed", "expected"} for the standard errors
+    se_from : {"observed", "expected"}: the standard errors come from the inverse of the
+        observed (negative Hessian) or the expected (Fisher) information
     where : str, names the data in error messages (e.g. the file)
     search : {"auto", True, False}
         multiple starts (:func:`wavetrail.sem.search.multistart`): ``"auto"`` searches when
@@ -172,7 +174,7 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
         sandwich standard errors ``A^-1 B A^-1`` with ``A`` the observed information and
         ``B`` the outer product of the casewise scores (FIML; Huber 1967; White 1982;
         the estimator lavaan calls MLR). Needs the data rows, not statistics.
-    meanstructure : bool
+    means : bool
         ``False`` counts neither the free intercepts nor the means in parameters,
         moments, AIC and BIC (a covariance-structure model). Every observed
         variable must then have its own free intercept (so the means are
@@ -184,8 +186,11 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
     """
     if missing not in ("fiml", "listwise"):
         raise ModelError(f"missing={missing!r}: use 'fiml' or 'listwise'")
-    if information not in ("observed", "expected"):
-        raise ModelError(f"information={information!r}: use 'observed' or 'expected'")
+    if earlier:
+        named = renamed_arguments("fit", earlier, {"information": "se_from", "meanstructure": "means"})
+        se_from, means = named.get("se_from", se_from), named.get("means", means)
+    if se_from not in ("observed", "expected"):
+        raise ModelError(f"se_from={se_from!r}: use 'observed' or 'expected'")
     notes: list[str] = []
     if isinstance(data, SuffStats):
         stats = data
@@ -202,8 +207,8 @@ def fit(spec, data, missing="fiml", start=None, information="observed", max_iter
         stats = SuffStats.from_data(Y)
     theta, ll, converged, n_iter, search_info = _maximise(spec, stats, start, max_iter, tol, search, starts,
                                                            n_random, seed, notes)
-    res = summarise(spec, stats, theta, ll, converged, n_iter, notes, information, meanstructure, search_info)
-    res.fit["se_type"] = information
+    res = summarise(spec, stats, theta, ll, converged, n_iter, notes, se_from, means, search_info)
+    res.fit["se_type"] = se_from
     if robust:
         if isinstance(data, SuffStats):
             raise ModelError("robust standard errors need the data rows, not sufficient statistics")
@@ -264,7 +269,25 @@ def _h1_trace(mu, sigma, stats, rows):
     return float(np.trace(np.linalg.solve(A1, S1.T @ S1)))
 
 
-def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="observed", meanstructure=True,
+def renamed_arguments(func: str, given: dict, renamed: dict) -> dict:
+    """Today's names for keyword arguments given by their earlier names (one version only).
+
+    ``renamed`` maps earlier -> today's name; each earlier name used warns
+    (``DeprecationWarning``); any other unknown keyword is a ``TypeError`` as usual.
+    """
+    import warnings
+
+    out = {}
+    for old, value in given.items():
+        if old not in renamed:
+            raise TypeError(f"{func}() got an unexpected keyword argument {old!r}")
+        warnings.warn(f"{func}({old}=...) is renamed {func}({renamed[old]}=...); the earlier name is "
+                      "accepted this version only", DeprecationWarning, stacklevel=3)
+        out[renamed[old]] = value
+    return out
+
+
+def summarise(spec, stats, theta, ll, converged, n_iter, notes, se_from="observed", means=True,
               search_info=None, at_bound=()) -> SemFit:
     """Standard errors, admissibility, fit indices and the estimates table at ``theta``.
 
@@ -276,7 +299,7 @@ def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="obs
     search_info = search_info or {"starts": 1, "maxima": 1}
     notes = list(notes)
     # standard errors
-    vcov = _vcov(cm, theta, stats, information, drop=at_bound)
+    vcov = _vcov(cm, theta, stats, se_from, drop=at_bound)
     if not np.all(np.isfinite(np.delete(np.diag(vcov), list(at_bound)))):
         notes.append("information matrix is singular: the model may not be identified; no standard errors")
     mu, sigma = spec.implied(theta)
@@ -299,15 +322,15 @@ def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="obs
     p = spec.p
     n_moments = _n_moments(spec)
     k_count = cm.k
-    if not meanstructure:
+    if not means:
         own = _own_intercepts(spec)
         if own is None:
-            raise ModelError("meanstructure=False needs a free, unlabelled intercept for every observed variable")
+            raise ModelError("means=False needs a free, unlabelled intercept for every observed variable")
         k_count -= own
         n_moments -= p
     fitd = fit_indices(ll, k_count, N, p, ll_s, ll_b, sig_s if np.isfinite(ll_s) else None, sigma,
-                       n_moments=n_moments, n_base=p if meanstructure else 0,
-                       sample_mean=mu_s if meanstructure else None, implied_mean=mu if meanstructure else None)
+                       n_moments=n_moments, n_base=p if means else 0,
+                       sample_mean=mu_s if means else None, implied_mean=mu if means else None)
     fitd["converged"] = converged
     fitd["admissible"] = adm
     fitd["starts"] = int(search_info["starts"])
@@ -316,7 +339,7 @@ def summarise(spec, stats, theta, ll, converged, n_iter, notes, information="obs
     est = estimates_table(spec, theta, vcov)
     return SemFit(spec=spec, theta=theta, estimates=est, fit=fitd, implied_mean=mu, implied_cov=sigma,
                   vcov=vcov, converged=converged, admissible=adm, notes=notes, n_iter=int(n_iter),
-                  information=information, saturated_mean=mu_s, saturated_cov=sig_s)
+                  se_from=se_from, saturated_mean=mu_s, saturated_cov=sig_s)
 
 
 def needs_search(spec) -> bool:
@@ -405,8 +428,8 @@ def observed_information(cm, theta, stats, base=None, numeric=False):
     return -0.5 * (Hs + Hs.T)
 
 
-def _vcov(cm, theta, stats, information, drop=()):
-    if information == "expected":
+def _vcov(cm, theta, stats, se_from, drop=()):
+    if se_from == "expected":
         I = evaluate(cm, theta[None], stats, grad=False, info=True)[1][0]
     else:
         I = observed_information(cm, theta, stats)

@@ -9,7 +9,7 @@ one ``Job`` and write exactly the outputs it names; they never import Snakemake.
 
 #: rule name -> "module:function" of the step that implements it
 STEPS: dict[str, str] = {
-    "verify_data": "wavetrail.stages.provenance:verify_data",
+    "confirm_raw_hashes": "wavetrail.stages.provenance:confirm_raw_hashes",
     "lock_environment": "wavetrail.stages.provenance:lock_environment",
     "check_data": "wavetrail.stages.checks:check_data",
     "score_scales": "wavetrail.stages.scores:score_scales",

@@ -119,7 +119,6 @@ def _inputs(job, cfg):
 
 def _options(job, cfg) -> dict:
     growth = job.config.get("growth") or {}
-    method = cfg.get("method", "score")
     return {
         "shape": cfg.get("shape", "linear"),
         "residuals": growth.get("residuals", "free"),
@@ -128,7 +127,7 @@ def _options(job, cfg) -> dict:
         "max_depth": cfg.get("max_depth"),
         "mtry": cfg.get("mtry"),
         "sample_share": float(cfg.get("sample_share", 0.632)),
-        "split": "likelihood" if method in ("likelihood", "lr") else "score",
+        "split": cfg.get("split", "scores"),
         "mc_below": cfg.get("mc_below"),
     }
 

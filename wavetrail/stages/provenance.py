@@ -13,8 +13,8 @@ def _as_list(value) -> list[str]:
     return [str(v) for v in value] if isinstance(value, (list, tuple)) else [str(value)]
 
 
-def verify_data(job) -> None:
-    """Rule ``verify_data``: refuse to go on when a raw file differs from data/SHA256SUMS.
+def confirm_raw_hashes(job) -> None:
+    """Rule ``confirm_raw_hashes``: refuse to go on when a raw file differs from data/SHA256SUMS.
 
     Inputs ``data`` (raw files) and ``registry`` (data/SHA256SUMS); output
     ``registry`` = results/checks/data_registry.csv with columns

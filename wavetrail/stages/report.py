@@ -11,7 +11,7 @@ from wavetrail.stages.runner import Job
 #: the report notebook of a project, relative to its root
 NOTEBOOK_SOURCE = "workflow/notebooks/report.ipynb"
 #: where the report keeps its own figures when the rule does not name a ``figures`` output
-FIGURES = "results/reports/figures"
+FIGURES = "results/write-up/figures"
 
 
 def render_report(job: Job) -> None:

@@ -1,4 +1,4 @@
-"""Stand-in data: synthetic panel rows that let a reviewer run the workflow on closed data.
+"""Stand-in data: synthetic panel rows that let a reviewer run the workflow on data kept private.
 
 The stand-in follows the codebook (types, ranges, levels, missing codes, the
 waves each variable is measured at) and the real data's margins, attrition
@@ -479,7 +479,7 @@ def _new_ids(real_ids: np.ndarray) -> np.ndarray:
         new = np.arange(start + 1, start + n + 1, dtype=np.int64)
     else:
         width = len(str(n))
-        new = np.array([f"standin-{i:0{width}d}" for i in range(1, n + 1)], dtype=object)
+        new = np.array([f"stand-in-{i:0{width}d}" for i in range(1, n + 1)], dtype=object)
     clash = set(new.tolist()) & set(real_ids.tolist())
     if clash:  # cannot happen by construction; never let it pass silently
         raise ArchiveError(f"stand-in ids clash with real ids: {sorted(clash)[:3]}")
@@ -641,7 +641,7 @@ def synthesize(panel, seed: int, missing_reasons: pd.DataFrame | None = None) ->
     else:
         raise ArchiveError(
             "cannot draw stand-in rows that differ from every real row: the codebook has too few "
-            "variables with too few values", hint="use --data exclude for this project")
+            "variables with too few values", hint="use --raw exclude for this project")
     near = closeness(real_cmp, enc, wave_col)
 
     coded = _coded_share(long, reasons, vars_out, wave_col)

@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from test_archive_helpers import CODEBOOK, ITEMS, make_panel
-from wavetrail.archive.standin import LABEL, nearest_correlation, normal_scores, pairwise_corr, synthesize
+from wavetrail.archive.stand_in import LABEL, nearest_correlation, normal_scores, pairwise_corr, synthesize
 from wavetrail.codebook import parse_codebook
 from wavetrail.panel import load_panel
 
@@ -236,7 +236,7 @@ def _brute_nearest(real_enc: pd.DataFrame, fake_enc: pd.DataFrame, wave: str = "
 
 
 def test_closeness_recovers_known_distances():
-    from wavetrail.archive.standin import closeness
+    from wavetrail.archive.stand_in import closeness
 
     # wave 1: real rows 0 and 1 lie one cell apart (not isolated); wave 2: one real row (isolated)
     real = pd.DataFrame({"wave": ["1", "1", "2"], "a": ["1", "2", "3"], "b": ["1", "1", "NA"], "c": ["5", "5", "5"]})
@@ -255,7 +255,7 @@ def test_closeness_recovers_known_distances():
 
 
 def test_stand_in_rows_are_not_closer_to_real_rows_than_real_rows_are_to_each_other(made):
-    from wavetrail.archive.standin import _comparable_real, _encoded_frame, closeness, closeness_problems
+    from wavetrail.archive.stand_in import _comparable_real, _encoded_frame, closeness, closeness_problems
 
     cb, real, stand, again = made
     vars_out = [v for v in cb.variables.values() if v.name not in ("pid", "wave")]
@@ -312,18 +312,18 @@ def test_pack_prints_the_closeness_and_refuses_above_the_threshold(tmp_path, cap
     import zipfile
 
     from test_archive_helpers import make_project
-    from wavetrail.archive import standin as standin_mod
+    from wavetrail.archive import stand_in as standin_mod
     from wavetrail.cli import main
 
     root = make_project(tmp_path / "proj", n=150, email=False)
-    assert main(["pack", str(root), "--data", "stand-in", "-o", str(tmp_path / "s.zip")]) == 0
+    assert main(["pack", str(root), "--raw", "stand-in", "-o", str(tmp_path / "s.zip")]) == 0
     out = " ".join(capsys.readouterr().out.split())
     assert re.search(r"stand-in closeness: \d+ of \d+ stand-in rows", out) and "0 equal a real row" in out
     with zipfile.ZipFile(tmp_path / "s.zip") as zf:
         readme = zf.read("proj-stand-in/data/ARCHIVE-README.md").decode()
     assert "stand-in closeness:" in readme and "0 equal a real row" in readme
     monkeypatch.setattr(standin_mod, "FIT_MARGIN", -1.0)  # the allowance now lies below any share
-    code = main(["pack", str(root), "--data", "stand-in", "-o", str(tmp_path / "t.zip")])
+    code = main(["pack", str(root), "--raw", "stand-in", "-o", str(tmp_path / "t.zip")])
     text = " ".join(capsys.readouterr().err.split())
     assert code == 1 and "too close to the real rows" in text and "Traceback" not in text
     assert not (tmp_path / "t.zip").exists()
