@@ -173,6 +173,20 @@ class Codebook:
                 todo.append(var.derived_from)
         return out
 
+    def first_wave_predictors(self, outcome: str | None = None) -> list[str]:
+        """The candidate predictors that ``predictors: wave1`` stands for.
+
+        Every variable measured at the first wave outside the scales, not an
+        identifier, text or date, and not one of the outcome's own raw variables
+        (:meth:`sources_of`, and anything else derived from those).
+        """
+        first = self.study.waves[0]
+        own = self.sources_of(outcome) if outcome else set()
+        own |= {v.name for v in self.variables.values() if v.derived and v.derived_from in own}
+        return [v.name for v in self.data_variables()
+                if v.measured_at(first) and not v.scale and not v.identifier
+                and v.type not in ("text", "date") and v.name not in own]
+
     def where(self, name: str) -> str:
         """``file:line`` of a variable's entry, for messages."""
         var = self.variables.get(name)

@@ -479,6 +479,17 @@ def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
     if not (growth.get("outcomes") or []) and not codebook.scales and forest_on:
         problems.append((line("growth", "outcomes") or line("growth"),
                          "growth.outcomes is empty and " + _no_outcome_message(codebook)))
+    forest_cfg = config.get("forest") or {}
+    if forest_on and isinstance(forest_cfg.get("predictors", "wave1"), str):
+        target = (forest_cfg.get("outcome") or next(iter(growth.get("outcomes") or []), None)
+                  or next(iter(codebook.scales), None))
+        if target is not None and (target in codebook.scales or target in variables) \
+                and not codebook.first_wave_predictors(str(target)):
+            problems.append((line("forest", "predictors") or line("forest"),
+                             f"forest.predictors {forest_cfg.get('predictors', 'wave1')!r} names no variable: the "
+                             f"codebook has no first-wave variable besides {target!r} and its own items to screen; "
+                             "add predictors measured at the first wave to the codebook, list them under "
+                             "forest.predictors, or set forest.enabled: false"))
     if problems:
         problems = sorted(set(problems))
         body = "\n".join(f"  {where}{_line(n)}: {text}" for n, text in problems)

@@ -281,13 +281,7 @@ class Panel:
         if isinstance(spec, str):
             if spec not in ("wave1", "first_wave", f"wave{self.waves[0]}"):
                 raise DataError(f"predictors {spec!r}: give \"wave1\" or a list of variable names")
-            first = self.waves[0]
-            own = self.codebook.sources_of(outcome) if outcome else set()
-            # and every other variable computed from the same raw values
-            own |= {v.name for v in self.codebook.variables.values() if v.derived and v.derived_from in own}
-            names = [v.name for v in self.codebook.data_variables()
-                     if v.measured_at(first) and not v.scale and not v.identifier
-                     and v.type not in ("text", "date") and v.name not in own]
+            names = self.codebook.first_wave_predictors(outcome)
         else:
             names = [str(n) for n in spec]
             for n in names:

@@ -324,6 +324,11 @@ def _outcome_settings(codebook, outcomes: list[str]) -> dict:
     note = ""
     if outcomes:
         growth, forest, enabled = list(outcomes), outcomes[0], True
+        if not codebook.first_wave_predictors(outcomes[0]):
+            enabled = False
+            note = (f"# The forest is off: the data hold no first-wave variable other than {outcomes[0]}\n"
+                    "# itself to screen as a predictor of who develops differently. Add predictors to the\n"
+                    "# codebook (measured at the first wave), then set forest.enabled: true.")
     elif scales:
         growth, forest, enabled = [], scales[0], True
         note = f"# No outcome was named: growth models every scale; the forest splits {scales[0]}."
