@@ -262,7 +262,10 @@ def check_report_against_tables(root: Path, page: str) -> None:
         if (imp["importance"] > 0).any():
             top = imp.iloc[0]
             first = _cells(page, "importance")[0]
-            assert first[1:4] == [study.label(top["predictor"]), top["predictor"], F.fmt_number(top["importance"])]
+            # importances are printed with three significant digits, so small ones stay readable
+            from wavetrail.report.document import _sig
+
+            assert first[1:4] == [study.label(top["predictor"]), top["predictor"], _sig(top["importance"])]
 
 
 # ---------------------------------------------------------------- journal conventions
