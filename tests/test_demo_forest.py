@@ -104,6 +104,6 @@ def test_demo_held_out_people_confirm_the_planted_moderators_and_not_the_noise(t
     paths = pd.read_csv(forest / "confirmation.csv")
     slope = paths[(paths["predictor"] == "screen_evening") & (paths["factor"] == "slope")].iloc[0]
     assert abs(slope["estimate"] - 0.05) < 2.5 * slope["se"]  # planted: +0.05 per evening hour
-    page = (root / "results" / "reports" / "report.html").read_text(encoding="utf-8")
+    page = (root / "results" / "write-up" / "report.html").read_text(encoding="utf-8")
     assert "Held-out confirmation" in page and "The forest above is exploration" in page
     assert "Confirmed in the held-out people:" in page
