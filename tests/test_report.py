@@ -536,6 +536,15 @@ def test_render_report_step_writes_its_outputs(tmp_path):
 
     root = make_project(tmp_path / "p")
     inputs = dict(TABLE_PATHS)
+    # the growth and forest steps always write these, header-only when no predictors of
+    # growth are named and nobody is held out of the forest
+    from wavetrail.stages.forest import CONFIRMATION_TEST_COLUMNS
+    from wavetrail.stages.growth import CONDITIONAL_COLUMNS
+    from wavetrail.stages.growth import CONDITIONAL_TEST_COLUMNS as GROWTH_TEST_COLUMNS
+    for name, columns in (("growth_conditional", CONDITIONAL_COLUMNS), ("growth_conditional_tests", GROWTH_TEST_COLUMNS),
+                          ("confirmation", CONDITIONAL_COLUMNS), ("confirmation_tests", CONFIRMATION_TEST_COLUMNS)):
+        if not (root / inputs[name]).exists():
+            write_table(root / inputs[name], pd.DataFrame(columns=columns))
     # names the rule also passes and the report does not read as tables
     inputs.update(lock="environment/requirements.lock", codebook="config/codebook.yaml",
                   registry="results/checks/data_registry.csv", notebook_source="workflow/notebooks/report.ipynb",
