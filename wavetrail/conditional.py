@@ -37,8 +37,8 @@ EFFECT_COLUMNS = ["predictor", "term", "level", "reference", "factor", "estimate
 TEST_COLUMNS = ["predictor", "kind", "paths", "wald", "df", "p", "n", "n_excluded", "note"]
 
 
-def _code_text(code) -> str:
-    """A level code as text ('1', not '1.0')."""
+def code_text(code) -> str:
+    """A level code as text ('1', not '1.0'), as every table and label lookup writes it."""
     try:
         f = float(code)
         return str(int(f)) if f.is_integer() else str(code)
@@ -69,11 +69,11 @@ def design(predictors: pd.DataFrame, levels: dict | None = None) -> tuple[pd.Dat
         s = predictors[name]
         declared = levels.get(str(name))
         if declared or isinstance(s.dtype, pd.CategoricalDtype) or not pd.api.types.is_numeric_dtype(s):
-            codes = s.map(lambda v: _code_text(v) if pd.notna(v) else None)
-            order = [_code_text(k) for k in (declared or {})]
+            codes = s.map(lambda v: code_text(v) if pd.notna(v) else None)
+            order = [code_text(k) for k in (declared or {})]
             seen = [c for c in pd.unique(codes.dropna())]
             order += sorted(c for c in seen if c not in order)
-            labels = {_code_text(k): str(v) for k, v in (declared or {}).items()}
+            labels = {code_text(k): str(v) for k, v in (declared or {}).items()}
             present = [c for c in order if (codes == c).any()]
             absent = [labels.get(c, c) for c in order if c not in present]
             if absent:

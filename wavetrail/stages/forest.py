@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from wavetrail._io import atomic_write_text, write_table
+from wavetrail.conditional import code_text
 from wavetrail.errors import ConfigError, DataError
 
 log = logging.getLogger("wavetrail")
@@ -217,21 +218,13 @@ def _level_labels(job, names) -> dict[str, dict[str, str]]:
         var = codebook.variables.get(name)
         levels = getattr(var, "levels", None) if var is not None else None
         if levels:
-            out[name] = {_code_text(k): str(v) for k, v in dict(levels).items()}
+            out[name] = {code_text(k): str(v) for k, v in dict(levels).items()}
     return out
 
 
-def _code_text(code) -> str:
-    """A level code as the forest writes it ('1', not '1.0')."""
-    try:
-        f = float(code)
-        return str(int(f)) if f.is_integer() else str(code)
-    except (TypeError, ValueError):
-        return str(code)
-
 
 def _label_of(labels: dict, name: str, level) -> str:
-    return labels.get(name, {}).get(_code_text(level), str(level))
+    return labels.get(name, {}).get(code_text(level), str(level))
 
 
 OVERVIEW_COLUMNS = ["people", "trees", "min_size", "mc_below", "trees_split", "failed_fits",
