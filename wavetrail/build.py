@@ -185,13 +185,11 @@ def _has_records(path: Path) -> bool:
     """A data file holds a record below its header (text files: from the first lines only,
     without importing pandas, so an up-to-date build stays quick)."""
     if path.suffix.lower() in _TEXT_SUFFIXES:
-        seen = 0
-        with open(path, "rb") as fh:
-            for line in fh:
-                if line.strip():
-                    seen += 1
-                    if seen >= 2:
-                        return True
+        from wavetrail._textscan import count_nonblank_lines
+
+        seen = count_nonblank_lines(path)
+        if seen >= 2:
+            return True
         if seen == 1:
             return False
     from wavetrail.readers import has_records

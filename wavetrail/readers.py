@@ -501,13 +501,11 @@ def has_records(path: str | os.PathLike) -> bool:
     """
     path = Path(path)
     if FORMATS.get(path.suffix.lower()) == "csv":
-        seen = 0
-        with open(path, "rb") as fh:
-            for line in fh:
-                if line.strip():
-                    seen += 1
-                    if seen >= 2:
-                        return True
+        from wavetrail._textscan import count_nonblank_lines
+
+        seen = count_nonblank_lines(path)
+        if seen >= 2:
+            return True
         if seen == 0:
             read_table(path)  # raises its own message for an empty file
         return False
