@@ -143,10 +143,13 @@ scales:
     results.mkdir(parents=True)
     header = "variable,wave,check,severity,count,rows,message\n"
     (results / "findings.csv").write_text(header + "mail,,identifier,info,1,,never output\n")
+    # No first-wave predictor in this codebook, so the forest is off (the settings check refuses
+    # a forest with nothing to screen).
     job = Job(step="score_scales", project=tmp_path,
               input={"data": ["data/p.csv"], "codebook": "config/codebook.yaml",
                      "findings": "results/checks/findings.csv"},
-              output={"scores": "results/scores/scores.csv", "reliability": "results/scores/reliability.csv"})
+              output={"scores": "results/scores/scores.csv", "reliability": "results/scores/reliability.csv"},
+              config={"forest": {"enabled": False}})
     score_scales(job)
     assess_reliability(job)
     scores = (tmp_path / "results/scores/scores.csv").read_text()
