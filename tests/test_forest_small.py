@@ -174,7 +174,7 @@ def test_failed_node_fits_become_counted_leaves_never_an_abort():
     model = FlakyModel(4)
     f = grow_forest(wide, X, times, trees=10, seed=3, model=model, min_size=10, mc_below=0)
     ff = f.fit_failures()
-    assert list(ff.columns) == ["tree", "people", "leaves", "failed_fits"]
+    assert list(ff.columns) == ["tree", "people", "leaves", "failed_fits", "inadmissible_leaves"]
     assert ff["failed_fits"].sum() > 0
     for t in f.trees_:
         failed = [d for d in t.nodes if d.get("failed")]

@@ -11,7 +11,9 @@ where ``mu(leaf)`` is the implied mean vector of the leaf's growth model
 two-way table.
 
 The spread of individual trajectories around it is the standard deviation of the
-same mixture of leaf models: with ``s2(leaf)`` the implied variance of each wave,
+same mixture of leaf models: with ``s2(leaf)`` the implied variance of each wave
+(of the nearest admissible ancestor when the leaf's estimate is inadmissible, see
+:meth:`wavetrail.forest.tree.Tree.scoring_nodes`),
 ``SD_j(v)^2 = mean[s2 + mu^2] - E_j(v)^2`` over the same trees and people. A
 predictor that moderates only the variance of the slopes leaves ``E_j`` flat and
 widens or narrows ``SD_j`` over time.
@@ -41,7 +43,8 @@ def tree_second(tree, model) -> np.ndarray:
     cached = getattr(tree, "_second", None)
     if cached is None:
         mu = tree_expected(tree, model)
-        var = np.array([model.implied_variance(th) for th in tree.theta_])
+        scorer = tree.scoring_nodes(model) if hasattr(model, "admissible") else np.arange(len(tree.theta_))
+        var = np.array([model.implied_variance(tree.theta_[j]) for j in scorer])
         cached = var + mu * mu
         tree._second = cached
     return cached

@@ -368,12 +368,16 @@ class Forest:
                              "no_variation": tot["no variation"]})
 
     def fit_failures(self) -> pd.DataFrame:
-        """Per tree: people, leaves, and node fits that did not converge (they became leaves)."""
+        """Per tree: people, leaves, node fits that did not converge (they became leaves), and
+        converged leaves with an inadmissible estimate (scored by their nearest admissible
+        ancestor out of bag)."""
+        model = self.model_
         return pd.DataFrame({"tree": [t.index for t in self.trees_],
                              "people": [int(t.nodes[0]["n"]) for t in self.trees_],
                              "leaves": [t.n_leaves_ for t in self.trees_],
-                             "failed_fits": [t.failed_fits_ for t in self.trees_]},
-                            columns=["tree", "people", "leaves", "failed_fits"])
+                             "failed_fits": [t.failed_fits_ for t in self.trees_],
+                             "inadmissible_leaves": [t.inadmissible_leaves(model) for t in self.trees_]},
+                            columns=["tree", "people", "leaves", "failed_fits", "inadmissible_leaves"])
 
     def splits_possible(self) -> bool:
         """Whether any tree split at all."""
@@ -393,7 +397,8 @@ class Forest:
         same order. For person ``i`` and the trees ``b`` that did not draw them, the
         forest predicts the density ``mean_b f(y_i | leaf_b(x_i))`` and the single
         growth model ``mean_b f(y_i | root_b)`` (each tree's root model, fitted to the
-        same subsample). The gain of person ``i`` is the difference of the two log
+        same subsample). A leaf whose model did not converge or is inadmissible scores
+        under its nearest admissible ancestor (:meth:`Tree.scoring_nodes`). The gain of person ``i`` is the difference of the two log
         densities; the total is their sum over people with at least one such tree and
         its standard error ``sqrt(n) * SD`` of the per-person gains.
 
@@ -414,11 +419,12 @@ class Forest:
             if oob.size == 0:
                 continue
             leaf = t.apply(X[oob])
+            scorer = t.scoring_nodes(model)
             root = model.loglik(t.theta_[0], Y[oob])
             leaf_ll = np.empty(oob.size)
             for node in np.unique(leaf):
                 sel = leaf == node
-                leaf_ll[sel] = model.loglik(t.theta_[node], Y[oob[sel]])
+                leaf_ll[sel] = model.loglik(t.theta_[scorer[node]], Y[oob[sel]])
             for i, a, b in zip(oob, leaf_ll, root):
                 lf[i].append(a)
                 ls[i].append(b)

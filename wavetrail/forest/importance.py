@@ -8,6 +8,13 @@ out-of-bag person,
 
     D_bj = (1 / |O_b|) * sum_{i in O_b} [ l_i(leaf_b(x_i)) - l_i(leaf_b(x_i with x_j permuted)) ].
 
+A leaf whose model did not converge or is inadmissible (a negative variance, a
+correlation beyond +-1: common in small nodes fitted without bounds) scores its
+people under the model of its nearest admissible ancestor
+(:meth:`wavetrail.forest.tree.Tree.scoring_nodes`); otherwise one such leaf's
+near-singular covariance can make a single tree's drop millions of times larger
+than the others'.
+
 A tree that never splits on ``j`` has ``D_bj = 0`` exactly. A predictor that
 was never tested at any node (too small nodes, too few people in a category,
 no variation) has a missing importance instead, since 0 would read as "no
@@ -39,7 +46,8 @@ def oob_drop(tree, model, Y_oob: np.ndarray, X_oob: np.ndarray, rng: np.random.G
     if n == 0 or len(used) == 0:
         return drop
     leaves = tree.leaves
-    L = np.column_stack([model.loglik(tree.theta_[leaf], Y_oob) for leaf in leaves])
+    scorer = tree.scoring_nodes(model)
+    L = np.column_stack([model.loglik(tree.theta_[scorer[leaf]], Y_oob) for leaf in leaves])
     pos = np.full(len(tree.nodes), -1, dtype=np.int64)
     pos[leaves] = np.arange(len(leaves))
     ar = np.arange(n)

@@ -1,7 +1,7 @@
 """Node models: what a tree fits in each node, seen through one small interface.
 
 A node model knows its number of free parameters ``k`` and the number of
-observed variables ``p`` and offers five operations, all vectorised:
+observed variables ``p`` and offers six operations, all vectorised:
 
 * ``fit(stats, start, search=False)`` — maximum likelihood for ``B`` stacked groups
   from their sufficient statistics (``stats``: a :class:`GroupStats`; ``search``:
@@ -10,6 +10,8 @@ observed variables ``p`` and offers five operations, all vectorised:
 * ``scores(theta, Y)`` and ``loglik(theta, Y)`` — casewise gradients (n, k) and
   log-likelihoods (n,) of people ``Y`` (NaN = missing wave) at one ``theta``;
 * ``expected(theta)`` — the model-implied mean of each observed variable;
+* ``admissible(theta)`` — whether the estimate gives a proper density (no negative
+  variance, positive definite implied covariance), so it may score other people;
 * ``to_dict()`` / :func:`model_from_dict` — its description for the JSON file.
 
 :class:`GrowthNodeModel` is the growth model of :mod:`wavetrail.growth` fitted by
@@ -173,6 +175,10 @@ class NormalNodeModel:
     def expected(self, theta):
         return self._split(theta)[0][0].copy()
 
+    def admissible(self, theta) -> bool:
+        """Whether every variance is positive (the model gives a proper density)."""
+        return bool(np.all(self._split(theta)[1] > 0))
+
     def implied_variance(self, theta):
         return self._split(theta)[1][0].copy()
 
@@ -224,6 +230,27 @@ class SpecNodeModel:
         """Model-implied variance of each observed variable."""
         _, sigma = self.spec.implied(np.asarray(theta).reshape(-1))
         return np.diag(np.asarray(sigma, dtype=float)).copy()
+
+    def admissible(self, theta) -> bool:
+        """Whether the estimate is admissible and gives a proper density of the waves.
+
+        No negative variance, a positive semi-definite latent covariance matrix (no
+        correlation beyond +-1), no residual variance at exactly 0, and an implied
+        covariance matrix of the waves that is positive definite (smallest eigenvalue above
+        1e-10 times the largest). Small nodes fitted without bounds often end outside
+        this set; their log-likelihoods of other people are then meaningless.
+        """
+        from wavetrail.sem.fitting import admissibility
+
+        theta = np.asarray(theta, dtype=float).reshape(-1)
+        if not np.all(np.isfinite(theta)):
+            return False
+        ok, notes = admissibility(self.spec, theta)
+        if not ok or any("exactly 0" in note for note in notes):
+            return False
+        _, sigma = self.spec.implied(theta)
+        ev = np.linalg.eigvalsh(np.asarray(sigma, dtype=float).reshape(self.p, self.p))
+        return bool(ev[0] > 1e-10 * max(ev[-1], 1e-300))
 
 
 class GrowthNodeModel(SpecNodeModel):

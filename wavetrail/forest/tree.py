@@ -104,6 +104,36 @@ class Tree:
     def n_leaves_(self) -> int:
         return int(len(self.leaves))
 
+    def scoring_nodes(self, model) -> np.ndarray:
+        """Per node, the node whose model scores the people routed there, shape (n_nodes,).
+
+        A node scores with its own model when the fit converged and the estimate is
+        admissible (``model.admissible``); otherwise with its nearest ancestor that
+        qualifies (the root when none does). Out-of-bag log-likelihoods (importance and
+        the forest's gain over the single growth model) use this map, so a small leaf
+        with, say, a correlation of -3 between intercept and slope cannot produce
+        log-likelihoods of other people that are off by millions.
+        """
+        cached = getattr(self, "_scoring", None)
+        if cached is not None and cached[0] is model:
+            return cached[1]
+        ok = np.array([not d.get("failed") and model.admissible(self.theta_[i])
+                       for i, d in enumerate(self.nodes)], dtype=bool)
+        parent = np.array([d["parent"] for d in self.nodes], dtype=np.int64)
+        out = np.arange(len(self.nodes))
+        for i in range(len(self.nodes)):
+            j = i
+            while not ok[j] and parent[j] >= 0:
+                j = parent[j]
+            out[i] = j
+        self._scoring = (model, out)
+        return out
+
+    def inadmissible_leaves(self, model) -> int:
+        """Leaves that converged but whose estimate is not admissible (scored by an ancestor)."""
+        return int(sum(1 for i in self.leaves
+                       if not self.nodes[i].get("failed") and not model.admissible(self.theta_[i])))
+
     @property
     def used_predictors(self) -> np.ndarray:
         return np.unique(self.predictor[self.internal])

@@ -755,6 +755,12 @@ class Report:
                          "not converge even after retries and were kept as leaves (results/forest/trees.csv)")
         else:
             facts.append("every node model converged")
+        bad = r.get("inadmissible_leaves")
+        if bad is not None and pd.notna(bad) and int(bad) > 0:
+            facts.append(f"{fmt_count(int(bad))} of {fmt_count(int(r['leaves']))} leaves had an inadmissible growth "
+                         "model (a negative variance or a correlation beyond ±1, common in small nodes); "
+                         "people routed there out of bag were scored under the nearest admissible parent node "
+                         "(results/forest/trees.csv)")
         html += _p(esc("Forest: " + "; ".join(facts) + "."))
         return html
 

@@ -228,12 +228,13 @@ def _label_of(labels: dict, name: str, level) -> str:
 
 
 OVERVIEW_COLUMNS = ["people", "trees", "min_size", "mc_below", "trees_split", "failed_fits",
-                    "trees_with_failed_fits", "loglik_forest", "loglik_single", "gain", "se",
+                    "trees_with_failed_fits", "leaves", "inadmissible_leaves", "loglik_forest", "loglik_single", "gain", "se",
                     "gain_per_person", "se_per_person"]
 
 
 def overview_table(forest, wide, predictors) -> pd.DataFrame:
-    """One row: sample, settings in force, splits, failed node fits and the out-of-bag gain."""
+    """One row: sample, settings in force, splits, failed node fits, leaves with an inadmissible
+    estimate (scored out of bag by their nearest admissible ancestor) and the out-of-bag gain."""
     per_tree = forest.fit_failures()
     gain, _ = forest.oob_gain(wide, predictors)
     row = {"people": len(wide), "trees": len(forest.trees_),
@@ -241,7 +242,9 @@ def overview_table(forest, wide, predictors) -> pd.DataFrame:
            "mc_below": int(forest.settings_.get("mc_below", 0)),
            "trees_split": int((per_tree["leaves"] > 1).sum()),
            "failed_fits": int(per_tree["failed_fits"].sum()),
-           "trees_with_failed_fits": int((per_tree["failed_fits"] > 0).sum())}
+           "trees_with_failed_fits": int((per_tree["failed_fits"] > 0).sum()),
+           "leaves": int(per_tree["leaves"].sum()),
+           "inadmissible_leaves": int(per_tree["inadmissible_leaves"].sum())}
     for key in ("loglik_forest", "loglik_single", "gain", "se", "gain_per_person", "se_per_person"):
         row[key] = float(gain[key].iloc[0])
     return pd.DataFrame([row], columns=OVERVIEW_COLUMNS)
