@@ -158,6 +158,47 @@ def browser():
 
 IMAGES = "Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])"
 
+#: the page's layout as the browser laid it out: the content column (inside the padding of
+#: main.wt-page), how far each table, figure, image and pre block reaches past its right edge
+#: (``over`` > 0: cut off on paper, scrolled sideways on screen), inner boxes that scroll
+#: sideways, and every pair of captions or headings whose boxes overlap
+LAYOUT = r"""
+(() => {
+  const main = document.querySelector('main.wt-page');
+  const box = main.getBoundingClientRect();
+  const cs = getComputedStyle(main);
+  const left = box.left + parseFloat(cs.paddingLeft), right = box.right - parseFloat(cs.paddingRight);
+  const name = el => {
+    const holder = el.closest('figure') || el;
+    return el.tagName.toLowerCase() + (holder.id ? '#' + holder.id : '');
+  };
+  const items = [];
+  for (const el of document.querySelectorAll('main table, main figure, main img, main pre, main dl')) {
+    const r = el.getBoundingClientRect();
+    items.push({what: name(el), left: r.left, right: r.right, over: Math.max(r.right - right, left - r.left)});
+  }
+  for (const el of document.querySelectorAll('main figure, main .wt-scroll, main td, main th')) {
+    if (el.scrollWidth > el.clientWidth + 1 && el.clientWidth > 0 && getComputedStyle(el).overflowX !== 'visible') {
+      items.push({what: 'sideways scroll in ' + name(el), left: 0, right: right + el.scrollWidth - el.clientWidth,
+                  over: el.scrollWidth - el.clientWidth});
+    }
+  }
+  const titles = Array.from(document.querySelectorAll('main h2, main h3, main figcaption, main thead th'))
+    .map(el => [el, el.getBoundingClientRect()]).filter(([, r]) => r.width > 0 && r.height > 0);
+  const overlaps = [];
+  for (let i = 0; i < titles.length; i++) {
+    for (let j = i + 1; j < titles.length; j++) {
+      const [a, ra] = titles[i], [b, rb] = titles[j];
+      if (a.contains(b) || b.contains(a)) continue;
+      const w = Math.min(ra.right, rb.right) - Math.max(ra.left, rb.left);
+      const h = Math.min(ra.bottom, rb.bottom) - Math.max(ra.top, rb.top);
+      if (w > 1 && h > 1) overlaps.push([a.textContent.slice(0, 40), b.textContent.slice(0, 40)]);
+    }
+  }
+  return {left, right, items, overlaps, docWidth: document.documentElement.scrollWidth, viewport: innerWidth};
+})()
+"""
+
 
 def test_report_renders_offline_with_every_figure(browser, tmp_path):
     from test_report import make_project, render_project

@@ -573,12 +573,44 @@ class Report:
         df = self.tables.get("growth_comparison")
         if df is None or not len(df):
             return _absent("No model comparison (only one model, or results/growth/comparison.csv is absent).")
-        cols = list(df.columns)
-        heads = [_HEADS.get(c, _pretty(c).capitalize()) for c in cols]
-        rows = [[_auto(c, r.get(c), None, self.study) for c in cols] for _, r in df.iterrows()]
-        table = Table("Comparison of nested and non-nested growth models", heads, rows, key="growth-comparison",
-                      numeric=[j for j, c in enumerate(cols) if c not in _TEXT_COLUMNS],
-                      note="Lower AIC and BIC favour a model; \u0394 values are model b minus model a. "
+        df = df.copy()
+        # the AIC and BIC of each model are in the fit table: here only their differences
+        for ic in ("aic", "bic"):
+            if {f"{ic}_a", f"{ic}_b"} <= set(df.columns) and f"delta_{ic}" not in df.columns:
+                df[f"delta_{ic}"] = pd.to_numeric(df[f"{ic}_b"], errors="coerce") - pd.to_numeric(df[f"{ic}_a"], errors="coerce")
+        shown = [c for c in _COMPARISON_ORDER if c in df.columns]
+        shown += [c for c in df.columns if c not in _COMPARISON_ORDER and c not in _COMPARISON_HIDDEN]
+        heads = [_head(c) for c in shown]
+        rows = []
+        for _, r in df.iterrows():
+            row = []
+            for c in shown:
+                if c in ("outcome",):
+                    row.append(self.study.scale_label(r[c]) if isinstance(r.get(c), str) else MISSING)
+                elif c in ("model_a", "model_b", "preferred"):
+                    row.append(_value_text(r.get(c)) if isinstance(r.get(c), str) and r.get(c) else MISSING)
+                else:
+                    row.append(_auto(c, r.get(c), None, self.study))
+            rows.append(row)
+        row_notes = []
+        if "note" in df.columns:
+            for _, r in df.iterrows():
+                if isinstance(r.get("note"), str) and r["note"].strip():
+                    row_notes.append(f"{r.get('model_a')} vs {r.get('model_b')}: {r['note'].strip().rstrip('.')}.")
+        parts = []
+        if "lr_chisq" in shown:
+            parts.append("LR \u03c7\u00b2: likelihood-ratio test of the smaller model against the larger one "
+                         "(twice the difference in log-likelihood, on df = the difference in free parameters).")
+        deltas = [h for c, h in zip(shown, heads) if c in ("delta_aic", "delta_bic")]
+        if deltas:
+            parts.append(f"{' and '.join(deltas)}: larger model minus smaller; a negative value favours the "
+                         "larger model. The AIC and BIC of each model are in the fit table.")
+        if "preferred" in shown:
+            parts.append("Preferred: the larger model when the test rejects at .05 and its BIC is lower, else the "
+                         "smaller one; a model that did not converge or is inadmissible is never preferred.")
+        table = Table("Comparison of nested growth models", heads, rows, key="growth-comparison",
+                      numeric=[j for j, c in enumerate(shown) if c not in _TEXT_COLUMNS],
+                      note=" ".join(parts + row_notes) + (" " if parts or row_notes else "")
                            + self._source("growth_comparison"))
         return self._table(table)
 
@@ -1137,12 +1169,38 @@ _ATTRITION_HEADS = {"n_retained": "Retained", "n_new": "New", "n_dropped": "Drop
 #: packages whose versions the environment table always shows when the lock pins them
 KEY_PACKAGES = ("wavetrail", "numpy", "pandas", "scipy", "matplotlib", "snakemake", "papermill", "nbconvert")
 
+#: columns of comparison.csv in the order the report shows them (the others follow)
+_COMPARISON_ORDER = ["outcome", "model_a", "model_b", "lr_chisq", "df", "p", "delta_aic", "delta_bic", "preferred"]
+#: columns of comparison.csv the report does not show as columns (AIC/BIC of each model are in the
+#: fit table; the notes go under the table)
+_COMPARISON_HIDDEN = {"aic_a", "aic_b", "bic_a", "bic_b", "note"}
+
 _HEADS = {
-    "outcome": "Outcome", "model_a": "Model a", "model_b": "Model b", "delta_chisq": "\u0394\u03c7\u00b2",
+    "outcome": "Outcome", "model_a": "Smaller model", "model_b": "Larger model", "lr_chisq": "LR \u03c7\u00b2", "delta_chisq": "\u0394\u03c7\u00b2",
     "delta_df": "\u0394df", "chisq_diff": "\u0394\u03c7\u00b2", "df_diff": "\u0394df", "p": "p",
     "delta_aic": "\u0394AIC", "delta_bic": "\u0394BIC", "delta_cfi": "\u0394CFI", "preferred": "Preferred",
     "test": "Test", "nested": "Nested", "note": "Note",
 }
+_ACRONYMS = {"aic": "AIC", "bic": "BIC", "cfi": "CFI", "tli": "TLI", "rmsea": "RMSEA", "srmr": "SRMR", "lr": "LR",
+             "chisq": "\u03c7\u00b2", "df": "df", "se": "SE", "sd": "SD", "n": "n", "p": "p"}
+
+
+def _head(column: str) -> str:
+    """A column head: a known name's head, else its words with statistics' usual spelling.
+
+    >>> _head("bic_a"), _head("lr_chisq"), _head("n_free")
+    ('BIC a', 'LR \u03c7\u00b2', 'N free')
+    """
+    if column in _HEADS:
+        return _HEADS[column]
+    words = [_ACRONYMS.get(w.lower(), w) for w in str(column).split("_") if w]
+    if not words:
+        return str(column)
+    if words[0] == str(column).split("_")[0]:
+        words[0] = words[0].capitalize()
+    return " ".join(words)
+
+
 _TEXT_COLUMNS = {"outcome", "model_a", "model_b", "preferred", "test", "nested", "note", "decision"}
 _UNIT_COLUMNS = re.compile(r"(^|_)(cfi|tli|rmsea|srmr|alpha|omega|h|r)($|_)")
 
