@@ -682,3 +682,46 @@ def test_moderators_show_generalisation_untested_and_spread(tmp_path):
     assert "Mainly a difference in spread rather than in average development" in text
     diffs = _cells(page, "differences")
     assert diffs[0][-1] == "spread of development" and diffs[1][-1] == "average development"
+
+
+def _title_boxes(fig):
+    """Window extents of the visible axes titles, as the renderer lays them out."""
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    return [ax.title.get_window_extent(renderer) for ax in fig.axes if ax.get_visible() and ax.get_title()]
+
+
+def _overlapping(boxes) -> list[tuple[int, int]]:
+    return [(i, j) for i in range(len(boxes)) for j in range(i + 1, len(boxes)) if boxes[i].overlaps(boxes[j])]
+
+
+def test_expected_trajectory_panels_keep_long_titles_apart():
+    # three predictors with long codebook labels, as a real panel has them; measured with
+    # matplotlib's renderer: no two panel titles overlap and none leaves the figure
+    import matplotlib.pyplot as plt
+
+    from wavetrail.report.plots import dependence_figure
+
+    labels = {"sicdegp": "Sequenced Inventory of Communication Development, expressive language group",
+              "race": "Race of the child as reported by the parent at enrolment",
+              "gender": "Gender of the child"}
+    dep = pd.DataFrame([{"predictor": p, "level": lv, "value": v, "time": t, "expected": v + t, "sd": 0.5,
+                         "legend": f"{lv} ({v:.2f})"}
+                        for p in labels for lv, v in (("low", 1.0), ("high", 3.0)) for t in (0.0, 1.0, 2.0)])
+    fig, data = dependence_figure(dep, list(labels), labels, waves=[2, 3, 5], times=[0.0, 1.0, 2.0],
+                                  unit="years", ylabel="Expected VSAE score")
+    boxes = _title_boxes(fig)
+    assert len(boxes) == 3 and _overlapping(boxes) == []
+    width = fig.canvas.get_renderer().width
+    assert all(b.x0 >= 0 and b.x1 <= width for b in boxes)
+    # the full label is still there, only wrapped
+    assert [ax.get_title().replace("\n", " ") for ax in fig.axes] == list(labels.values())
+    assert fig.axes[0].get_xlabel() == "Wave (time score, years)"
+    assert "legend" not in data.columns  # the figure's data file keeps the result table's columns
+    plt.close(fig)
+    # control: the same titles set without wrapping do overlap, so the check can fail
+    fig, axes = plt.subplots(1, 3, figsize=(8.9, 3.3), sharey=True, layout="constrained")
+    for ax, text in zip(axes, labels.values()):
+        ax.set_title(text, fontsize=9)
+    assert _overlapping(_title_boxes(fig))
+    plt.close(fig)

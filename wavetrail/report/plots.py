@@ -8,6 +8,8 @@ they stay apart in greyscale.
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 import pandas as pd
 
@@ -27,7 +29,7 @@ def attrition_figure(attrition: pd.DataFrame):
     """Participants present at each wave (count) with retention in percent on the right axis."""
     data = attrition[["wave", "n_present"]].copy()
     with style():
-        fig, ax = plt.subplots(figsize=(6.0, 3.2))
+        fig, ax = plt.subplots(figsize=(6.0, 3.2), layout="constrained")
         x = np.arange(len(data))
         ax.plot(x, data["n_present"], color=PALETTE[0], marker=MARKERS[0], linestyle=LINESTYLES[0])
         for xi, n in zip(x, data["n_present"]):
@@ -47,7 +49,7 @@ def trajectory_figure(observed: pd.DataFrame, implied: pd.DataFrame, *, waves, t
     ``observed``: wave, time, n, mean, lo, hi. ``implied``: model, time, expected.
     """
     with style():
-        fig, ax = plt.subplots(figsize=(6.0, 3.8))
+        fig, ax = plt.subplots(figsize=(6.0, 3.8), layout="constrained")
         ax.errorbar(observed["time"], observed["mean"],
                     yerr=[observed["mean"] - observed["lo"], observed["hi"] - observed["mean"]],
                     color="#000000", marker="o", linestyle="none", capsize=3, label="Observed mean (95% CI)")
@@ -75,7 +77,7 @@ def importance_figure(importance: pd.DataFrame, labels: dict[str, str]):
     data = data.iloc[::-1].reset_index(drop=True)
     with style():
         height = 1.2 + 0.28 * len(data)
-        fig, ax = plt.subplots(figsize=(6.0, height))
+        fig, ax = plt.subplots(figsize=(6.0, height), layout="constrained")
         y = np.arange(len(data))
         ax.errorbar(data["importance"], y, xerr=[data["importance"] - data["lo"], data["hi"] - data["importance"]],
                     color=PALETTE[0], marker=MARKERS[1], linestyle="none", capsize=2)
@@ -88,37 +90,81 @@ def importance_figure(importance: pd.DataFrame, labels: dict[str, str]):
 
 def dependence_figure(dependence: pd.DataFrame, predictors: list[str], labels: dict[str, str], *,
                       waves, times, unit, ylabel):
-    """Expected trajectories at each level of the top predictors, one panel per predictor."""
+    """Expected trajectories at each level of the top predictors, one panel per predictor.
+
+    Up to :data:`PANELS_PER_ROW` panels per row. A ``legend`` column of ``dependence``
+    (the report's text for each level: a category's codebook label, ``low (4.10)``)
+    names the lines; without it the level and its value are shown. Panel titles are
+    wrapped to the width of their panel, so long labels never run into the next title.
+    """
     data = dependence[dependence["predictor"].isin(predictors)].copy()
+    n = max(len(predictors), 1)
+    cols = min(PANELS_PER_ROW, n)
+    rows = -(-n // cols)
     with style():
-        fig, axes = plt.subplots(1, len(predictors), figsize=(2.6 * len(predictors) + 0.8, 3.4), sharey=True,
-                                 squeeze=False)
-        for ax, name in zip(axes[0], predictors):
+        fig, axes = plt.subplots(rows, cols, figsize=(2.7 * cols + 0.8, 3.3 * rows), sharey=True,
+                                 squeeze=False, layout="constrained")
+        for ax in axes.ravel()[n:]:
+            ax.set_visible(False)
+        titled = []
+        for ax, name in zip(axes.ravel(), predictors):
             part = data[data["predictor"] == name]
             for k, (level, curve) in enumerate(part.groupby("level", sort=False)):
                 curve = curve.sort_values("time")
-                value = curve["value"].iloc[0]
-                text = f"{level} ({_short(value)})" if str(level) != str(value) else str(level)
-                if str(level) == str(value) and "label" in curve and not pd.isna(curve["label"].iloc[0]):
-                    text = str(curve["label"].iloc[0])  # the codebook's label of a category level
+                if "legend" in curve and not pd.isna(curve["legend"].iloc[0]):
+                    text = str(curve["legend"].iloc[0])
+                else:
+                    value = curve["value"].iloc[0]
+                    text = f"{level} ({_short(value)})" if str(level) != str(value) else str(level)
+                    if str(level) == str(value) and "label" in curve and not pd.isna(curve["label"].iloc[0]):
+                        text = str(curve["label"].iloc[0])  # the codebook's label of a category level
                 colour = PALETTE[k % len(PALETTE)]
                 ax.plot(curve["time"], curve["expected"], color=colour,
                         linestyle=LINESTYLES[k % len(LINESTYLES)], marker=MARKERS[k % len(MARKERS)],
-                        markersize=4, label=text)
+                        markersize=4, label="\n".join(textwrap.wrap(text, LEGEND_CHARS)) or text)
                 if "sd" in curve:
                     # spread of individual trajectories (expected +- 1 SD): a moderator of the
                     # variances shows as bands of different width around similar lines
                     ax.fill_between(curve["time"], curve["expected"] - curve["sd"], curve["expected"] + curve["sd"],
                                     color=colour, alpha=0.12, linewidth=0)
-            ax.set_title(labels.get(name, name), fontsize=9)
+            titled.append((ax, labels.get(name, name)))
             _wave_axis(ax, waves, times, unit)
             ax.legend(frameon=False, fontsize=7)
-        axes[0][0].set_ylabel(ylabel)
-    return fig, data.reset_index(drop=True)
+        for row in axes:
+            row[0].set_ylabel("\n".join(textwrap.wrap(ylabel, YLABEL_CHARS)) or ylabel)
+        fit_titles(fig, titled, fontsize=9)
+    return fig, data.drop(columns=["legend"], errors="ignore").reset_index(drop=True)
+
+
+#: most panels side by side in the expected-trajectory figure
+PANELS_PER_ROW = 3
+#: characters per line of a legend entry
+LEGEND_CHARS = 24
+#: characters per line of the value axis label (the panels are about 3 inches high)
+YLABEL_CHARS = 36
+
+
+def fit_titles(fig, titled, fontsize: float = 9) -> None:
+    """Set each axes' title, wrapped onto as many lines as it needs to fit its axes' width.
+
+    ``titled``: (axes, text) pairs. The width is measured with the figure's renderer
+    after the layout has run, so a title never reaches over the next panel's title.
+    """
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    for ax, text in titled:
+        text = str(text)
+        room = ax.get_window_extent(renderer).width
+        ax.set_title(text, fontsize=fontsize)
+        width = len(text)
+        while ax.title.get_window_extent(renderer).width > room and width > 6:
+            width = max(6, min(width - 2, int(width * room / ax.title.get_window_extent(renderer).width)))
+            ax.set_title("\n".join(textwrap.wrap(text, width, break_long_words=True)), fontsize=fontsize)
+    fig.canvas.draw()
 
 
 def _short(value) -> str:
     try:
-        return f"{float(value):.3g}"
+        return f"{float(value):.2f}".replace("-", "\u2212")
     except (TypeError, ValueError):
         return str(value)
