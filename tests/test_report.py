@@ -685,10 +685,12 @@ def test_moderators_show_generalisation_untested_and_spread(tmp_path):
 
 
 def _title_boxes(fig):
-    """Window extents of the visible axes titles, as the renderer lays them out."""
+    """Window extents of the visible axes titles and x-axis labels, as the renderer lays them out."""
     fig.canvas.draw()
     renderer = fig.canvas.get_renderer()
-    return [ax.title.get_window_extent(renderer) for ax in fig.axes if ax.get_visible() and ax.get_title()]
+    axes = [ax for ax in fig.axes if ax.get_visible()]
+    return ([ax.title.get_window_extent(renderer) for ax in axes if ax.get_title()]
+            + [ax.xaxis.label.get_window_extent(renderer) for ax in axes if ax.get_xlabel()])
 
 
 def _overlapping(boxes) -> list[tuple[int, int]]:
@@ -708,20 +710,25 @@ def test_expected_trajectory_panels_keep_long_titles_apart():
     dep = pd.DataFrame([{"predictor": p, "level": lv, "value": v, "time": t, "expected": v + t, "sd": 0.5,
                          "legend": f"{lv} ({v:.2f})"}
                         for p in labels for lv, v in (("low", 1.0), ("high", 3.0)) for t in (0.0, 1.0, 2.0)])
+    ylabel = "Expected Vineland Adaptive Behavior Scales socialization age-equivalent score (months)"
     fig, data = dependence_figure(dep, list(labels), labels, waves=[2, 3, 5], times=[0.0, 1.0, 2.0],
-                                  unit="years", ylabel="Expected VSAE score")
+                                  unit="years since age 2", ylabel=ylabel)
     boxes = _title_boxes(fig)
-    assert len(boxes) == 3 and _overlapping(boxes) == []
-    width = fig.canvas.get_renderer().width
-    assert all(b.x0 >= 0 and b.x1 <= width for b in boxes)
-    # the full label is still there, only wrapped
+    assert len(boxes) == 6 and _overlapping(boxes) == []  # three titles, three time-axis labels
+    renderer = fig.canvas.get_renderer()
+    assert all(b.x0 >= 0 and b.x1 <= renderer.width for b in boxes)
+    # the full labels are still there, only wrapped; the value axis label fits the panel height
     assert [ax.get_title().replace("\n", " ") for ax in fig.axes] == list(labels.values())
-    assert fig.axes[0].get_xlabel() == "Wave (time score, years)"
+    assert fig.axes[0].get_xlabel().replace("\n", " ") == "Wave (time score, years since age 2)"
+    assert fig.axes[0].get_ylabel().replace("\n", " ") == ylabel
+    assert (fig.axes[0].yaxis.label.get_window_extent(renderer).height
+            <= fig.axes[0].get_window_extent(renderer).height + 1)
     assert "legend" not in data.columns  # the figure's data file keeps the result table's columns
     plt.close(fig)
-    # control: the same titles set without wrapping do overlap, so the check can fail
+    # control: the same titles and axis labels set without wrapping do overlap, so the check can fail
     fig, axes = plt.subplots(1, 3, figsize=(8.9, 3.3), sharey=True, layout="constrained")
     for ax, text in zip(axes, labels.values()):
         ax.set_title(text, fontsize=9)
+        ax.set_xlabel("Wave (time score, years since age 2)")
     assert _overlapping(_title_boxes(fig))
     plt.close(fig)

@@ -244,12 +244,13 @@ LAYOUTS = (("screen", 1280), ("print", 688))
 
 
 def raw_floats(text: str) -> list[str]:
-    """Decimal numbers printed with six or more significant digits: raw floats that escaped the
-    formatting (the report prints two or three decimals, or three significant digits)."""
+    """Decimal numbers with five or more decimals and five or more significant digits: raw floats
+    that escaped the formatting (the report prints two or three decimals, three significant
+    digits for importances, and log-likelihoods with three decimals in model notes)."""
     import re
 
     found = re.findall(r"(?<![\d.,])\d+\.\d+", text)
-    return [x for x in found if len(x.replace(".", "").lstrip("0")) >= 6]
+    return [x for x in found if len(x.split(".")[1]) >= 5 and len(x.replace(".", "").lstrip("0")) >= 5]
 
 
 def layout_problems(browser: Browser, page: Path) -> list[str]:
@@ -281,7 +282,7 @@ def page_text(page: Path) -> str:
 
 def test_raw_floats_are_found():
     assert raw_floats("Value 10.055372301274492 and 4.097368402592921") == ["10.055372301274492", "4.097368402592921"]
-    assert raw_floats("4.10 | 0.00987 | 4,696.39 | .618 | 1.000 | 12.5") == []
+    assert raw_floats("4.10 | 0.00987 | 4,696.39 | .618 | 1.000 | 12.5 | \u22122229.749 | 0.0001234") == []
 
 
 def test_the_layout_check_sees_a_table_too_wide_for_the_page(browser, tmp_path):

@@ -40,6 +40,7 @@ def attrition_figure(attrition: pd.DataFrame):
         ax.set_ylabel("Participants present (n)")
         top = float(data["n_present"].max()) if len(data) else 1.0
         ax.set_ylim(0, top * 1.15 if top > 0 else 1)
+        fit_labels(fig)
     return fig, data
 
 
@@ -60,6 +61,7 @@ def trajectory_figure(observed: pd.DataFrame, implied: pd.DataFrame, *, waves, t
         _wave_axis(ax, waves, times, unit)
         ax.set_ylabel(ylabel)
         ax.legend(frameon=False, fontsize=8)
+        fit_labels(fig)
     data = pd.concat(
         [observed.assign(series="observed").rename(columns={"mean": "value"})[["series", "time", "value", "lo", "hi"]],
          implied.rename(columns={"expected": "value", "model": "series"}).assign(lo=np.nan, hi=np.nan)[
@@ -75,16 +77,19 @@ def importance_figure(importance: pd.DataFrame, labels: dict[str, str]):
     data["lo"] = data["importance"] - 1.96 * data["se"].fillna(0)
     data["hi"] = data["importance"] + 1.96 * data["se"].fillna(0)
     data = data.iloc[::-1].reset_index(drop=True)
+    names = ["\n".join(textwrap.wrap(labels.get(p, p), TICK_CHARS)) or labels.get(p, p) for p in data["predictor"]]
     with style():
-        height = 1.2 + 0.28 * len(data)
+        # a row per predictor, taller for a label wrapped onto several lines
+        height = 1.2 + sum(max(0.28, 0.17 * (name.count("\n") + 1)) for name in names)
         fig, ax = plt.subplots(figsize=(6.0, height), layout="constrained")
         y = np.arange(len(data))
         ax.errorbar(data["importance"], y, xerr=[data["importance"] - data["lo"], data["hi"] - data["importance"]],
                     color=PALETTE[0], marker=MARKERS[1], linestyle="none", capsize=2)
         ax.axvline(0, color="#000000", linewidth=0.8, linestyle=LINESTYLES[3])
         ax.set_yticks(y)
-        ax.set_yticklabels([labels.get(p, p) for p in data["predictor"]])
+        ax.set_yticklabels(names)
         ax.set_xlabel("Permutation importance (drop in out-of-bag log-likelihood)")
+        fit_labels(fig)
     return fig, data.iloc[::-1].reset_index(drop=True)
 
 
@@ -95,7 +100,7 @@ def dependence_figure(dependence: pd.DataFrame, predictors: list[str], labels: d
     Up to :data:`PANELS_PER_ROW` panels per row. A ``legend`` column of ``dependence``
     (the report's text for each level: a category's codebook label, ``low (4.10)``)
     names the lines; without it the level and its value are shown. Panel titles are
-    wrapped to the width of their panel, so long labels never run into the next title.
+    and axis labels are wrapped to the size of their panel (:func:`fit_labels`).
     """
     data = dependence[dependence["predictor"].isin(predictors)].copy()
     n = max(len(predictors), 1)
@@ -106,7 +111,6 @@ def dependence_figure(dependence: pd.DataFrame, predictors: list[str], labels: d
                                  squeeze=False, layout="constrained")
         for ax in axes.ravel()[n:]:
             ax.set_visible(False)
-        titled = []
         for ax, name in zip(axes.ravel(), predictors):
             part = data[data["predictor"] == name]
             for k, (level, curve) in enumerate(part.groupby("level", sort=False)):
@@ -127,12 +131,12 @@ def dependence_figure(dependence: pd.DataFrame, predictors: list[str], labels: d
                     # variances shows as bands of different width around similar lines
                     ax.fill_between(curve["time"], curve["expected"] - curve["sd"], curve["expected"] + curve["sd"],
                                     color=colour, alpha=0.12, linewidth=0)
-            titled.append((ax, labels.get(name, name)))
+            ax.set_title(labels.get(name, name), fontsize=9)
             _wave_axis(ax, waves, times, unit)
             ax.legend(frameon=False, fontsize=7)
         for row in axes:
-            row[0].set_ylabel("\n".join(textwrap.wrap(ylabel, YLABEL_CHARS)) or ylabel)
-        fit_titles(fig, titled, fontsize=9)
+            row[0].set_ylabel(ylabel)
+        fit_labels(fig)
     return fig, data.drop(columns=["legend"], errors="ignore").reset_index(drop=True)
 
 
@@ -140,27 +144,54 @@ def dependence_figure(dependence: pd.DataFrame, predictors: list[str], labels: d
 PANELS_PER_ROW = 3
 #: characters per line of a legend entry
 LEGEND_CHARS = 24
-#: characters per line of the value axis label (the panels are about 3 inches high)
-YLABEL_CHARS = 36
+#: characters per line of a predictor's label beside the importance figure
+TICK_CHARS = 40
 
 
-def fit_titles(fig, titled, fontsize: float = 9) -> None:
-    """Set each axes' title, wrapped onto as many lines as it needs to fit its axes' width.
+def fit_labels(fig, passes: int = 5) -> None:
+    """Wrap every axes' title and x label to the axes' width and its y label to its height.
 
-    ``titled``: (axes, text) pairs. The width is measured with the figure's renderer
-    after the layout has run, so a title never reaches over the next panel's title.
+    Sizes are measured with the figure's renderer after the (constrained) layout has
+    run, so a long codebook label never runs into the next panel's title or axis label
+    and never stretches the figure. Text that fits is left as it is.
     """
+    for _ in range(passes):  # wrapping moves the layout: repeat until nothing changes
+        fig.canvas.draw()
+        renderer = fig.canvas.get_renderer()
+        changed = False
+        for ax in fig.axes:
+            if not ax.get_visible():
+                continue
+            box = ax.get_window_extent(renderer)
+            changed |= _wrap_to(ax.title, box.width, renderer)
+            changed |= _wrap_to(ax.xaxis.label, box.width, renderer)
+            changed |= _wrap_to(ax.yaxis.label, box.height, renderer, along=1)
+        if not changed:
+            break
     fig.canvas.draw()
-    renderer = fig.canvas.get_renderer()
-    for ax, text in titled:
-        text = str(text)
-        room = ax.get_window_extent(renderer).width
-        ax.set_title(text, fontsize=fontsize)
-        width = len(text)
-        while ax.title.get_window_extent(renderer).width > room and width > 6:
-            width = max(6, min(width - 2, int(width * room / ax.title.get_window_extent(renderer).width)))
-            ax.set_title("\n".join(textwrap.wrap(text, width, break_long_words=True)), fontsize=fontsize)
-    fig.canvas.draw()
+
+
+def _wrap_to(text, room: float, renderer, along: int = 0) -> bool:
+    """Wrap a matplotlib text onto as many lines as it needs to be at most ``room`` pixels long.
+
+    Returns True when the text's lines changed.
+    """
+    before = text.get_text()
+    words = " ".join(before.split())
+    if not words:
+        return False
+    room *= 0.97  # a little air, so that the next layout pass does not push it over again
+
+    def length() -> float:
+        extent = text.get_window_extent(renderer)
+        return extent.height if along else extent.width
+
+    text.set_text(words)
+    chars = len(words)
+    while length() > room and chars > 6:
+        chars = max(6, min(chars - 2, int(chars * room / length())))
+        text.set_text("\n".join(textwrap.wrap(words, chars, break_long_words=True, break_on_hyphens=False)))
+    return text.get_text() != before
 
 
 def _short(value) -> str:
