@@ -332,7 +332,7 @@ def test_report_shows_the_numbers_of_the_result_tables(built):
     # two-way expected trajectories: a numeric grid point with its value, a category by its label
     pairs = _cells(page, "dependence_pairs")
     assert len(pairs) == 4
-    assert pairs[0][3] == "none" and pairs[3][1] == "high (5.5)" and pairs[3][4:] == ["2.10", "2.50", "0.40"]
+    assert pairs[0][3] == "none" and pairs[3][1] == "high (5.50)" and pairs[3][4:] == ["2.10", "2.50", "0.40"]
     # small cells suppressed: 3 valid answers for house rules, min_cell 5
     desc = {r[0]: r for r in _cells(page, "descriptives")}
     assert desc["House rules on bedtime"][2] == "< 5" and desc["Evening screen time"][2] == "118"
@@ -732,3 +732,27 @@ def test_expected_trajectory_panels_keep_long_titles_apart():
         ax.set_xlabel("Wave (time score, years since age 2)")
     assert _overlapping(_title_boxes(fig))
     plt.close(fig)
+
+
+def test_comparison_table_has_clear_heads_and_a_note_on_shown_columns_only(tmp_path):
+    # the columns the growth stage writes (wavetrail.stages.growth.compare_models); numbers from
+    # a demo build: dAIC = 4701.741869 - 4696.391759 = 5.35, dBIC = 4767.308922 - 4743.225368 = 24.08
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p", forest="absent")
+    write_table(root / "results/growth/comparison.csv", pd.DataFrame([{
+        "outcome": "sleep_difficulty", "model_a": "linear-free", "model_b": "quadratic-free",
+        "lr_chisq": 2.649889867, "df": 4, "p": 0.6180112737, "aic_a": 4696.391759, "aic_b": 4701.741869,
+        "bic_a": 4743.225368, "bic_b": 4767.308922, "preferred": "linear-free",
+        "note": "boundary estimates: the chi-square reference of the LR test is conservative"}]))
+    page = open_report(root, {}, {"forest": {"enabled": False}}).growth().html
+    table = re.search(r'<figure class="wt-table" id="growth-comparison">(.*?)</figure>', page, re.DOTALL).group(1)
+    heads = [html.unescape(re.sub(r"<[^>]+>", "", h)) for h in re.findall(r"<th[^>]*>(.*?)</th>", table)]
+    assert heads == ["Outcome", "Smaller model", "Larger model", "LR \u03c7\u00b2", "df", "p", "\u0394AIC", "\u0394BIC",
+                     "Preferred"]
+    assert _cells(page, "growth-comparison") == [["Sleep difficulty", "linear-free", "quadratic-free", "2.65", "4",
+                                                  ".618", "5.35", "24.08", "linear-free"]]
+    note = html.unescape(re.search(r'<p class="wt-note">(.*?)</p>', table, re.DOTALL).group(1))
+    assert "LR \u03c7\u00b2:" in note and "\u0394AIC and \u0394BIC: larger model minus smaller" in note
+    assert "linear-free vs quadratic-free: boundary estimates" in note
+    assert "model b minus model a" not in note and "Model a" not in page

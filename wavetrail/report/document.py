@@ -319,7 +319,10 @@ class Report:
         return self._table(table)
 
     def _levels(self, name: str, text) -> str:
-        """``1:12; 2:3`` -> ``none 12; some < 5`` (codebook labels, small counts suppressed)."""
+        """``1:12; 2:3`` -> ``none 12; some < 5`` (codebook labels, small counts suppressed).
+
+        Text codes arrive quoted (``'low':49``); they are shown by their label too.
+        """
         if text is None or (isinstance(text, float) and np.isnan(text)) or not str(text).strip():
             return MISSING
         parts = []
@@ -328,6 +331,9 @@ class Report:
             if not sep:
                 parts.append(item.strip())
                 continue
+            code = code.strip()
+            if len(code) >= 2 and code[0] == code[-1] and code[0] in "'\"":  # a text code, written quoted
+                code = code[1:-1]
             parts.append(f"{self.study.level_label(name, _in._code(code))} {fmt_small(count, self.min_cell)}")
         return "; ".join(parts)
 
@@ -600,8 +606,9 @@ class Report:
                 if isinstance(r.get("note"), str) and r["note"].strip():
                     row_notes.append(f"{r.get('model_a')} vs {r.get('model_b')}: {r['note'].strip().rstrip('.')}.")
         parts = []
-        if "lr_chisq" in shown:
-            parts.append("LR \u03c7\u00b2: likelihood-ratio test of the smaller model against the larger one "
+        tests = [h for c, h in zip(shown, heads) if c in ("lr_chisq", "delta_chisq", "chisq_diff")]
+        if tests:
+            parts.append(f"{tests[0]}: likelihood-ratio test of the smaller model against the larger one "
                          "(twice the difference in log-likelihood, on df = the difference in free parameters).")
         deltas = [h for c, h in zip(shown, heads) if c in ("delta_aic", "delta_bic")]
         if deltas:
@@ -1181,7 +1188,8 @@ _ATTRITION_HEADS = {"n_retained": "Retained", "n_new": "New", "n_dropped": "Drop
 KEY_PACKAGES = ("wavetrail", "numpy", "pandas", "scipy", "matplotlib", "snakemake", "papermill", "nbconvert")
 
 #: columns of comparison.csv in the order the report shows them (the others follow)
-_COMPARISON_ORDER = ["outcome", "model_a", "model_b", "lr_chisq", "df", "p", "delta_aic", "delta_bic", "preferred"]
+_COMPARISON_ORDER = ["outcome", "model_a", "model_b", "lr_chisq", "delta_chisq", "chisq_diff", "df", "delta_df",
+                     "df_diff", "p", "delta_aic", "delta_bic", "preferred"]
 #: columns of comparison.csv the report does not show as columns (AIC/BIC of each model are in the
 #: fit table; the notes go under the table)
 _COMPARISON_HIDDEN = {"aic_a", "aic_b", "bic_a", "bic_b", "note"}
