@@ -147,6 +147,30 @@ def test_new_project_builds_end_to_end_and_a_second_build_runs_nothing(built_dem
 
 
 @pytest.mark.slow
+def test_built_demo_uses_todays_names(built_demo):
+    # every text file a build writes or a new project holds (results, report, settings,
+    # workflow, docs; hidden folders such as .git and .snakemake aside) is free of the
+    # earlier names listed in tests/test_names.py
+    from test_names import EARLIER_NAMES, _hits
+
+    root = built_demo[0]
+    found, scanned = {}, 0
+    for path in sorted(root.rglob("*")):
+        rel = path.relative_to(root)
+        if not path.is_file() or any(part.startswith(".") for part in rel.parts) or path.suffix == ".png":
+            continue
+        try:
+            text = path.read_text(encoding="utf-8")
+        except UnicodeDecodeError:
+            continue
+        scanned += 1
+        if _hits(text, EARLIER_NAMES):
+            found[str(rel)] = _hits(text, EARLIER_NAMES)
+    assert scanned > 50 and (root / "results/write-up/report.html").is_file()
+    assert found == {}
+
+
+@pytest.mark.slow
 def test_cluster_executor_gives_the_same_tables_as_a_local_run(built_demo, tmp_path):
     """The generic cluster executor with a local submit script (jobs run in the background)."""
     local, cluster, _, _ = built_demo

@@ -147,6 +147,23 @@ def test_time_scores_of_labels():
     assert time_scores_for(["pre", "post", "fu6m"])[3] is True
 
 
+def test_time_unit_of_labels_goes_into_the_draft(tmp_path):
+    from wavetrail.drafting import time_unit_for
+
+    assert time_unit_for(["12m", "baseline", "6m"]) == "months"
+    assert time_unit_for(["0w", "6w", "1y"]) == "years"  # the unit the converted scores are in
+    assert time_unit_for([2019, 2021, 2023]) == "years"
+    assert time_unit_for([1, 2, 3]) is None and time_unit_for(["pre", "post"]) is None
+    # a wide file with month labels: the draft names the unit, the codebook keeps it
+    wide = pd.DataFrame({"id": [1, 2, 3], "score_baseline": [1.0, 2.0, 3.0], "score_6m": [2.0, 2.5, 3.5],
+                         "score_12m": [2.5, 3.0, 4.0]})
+    path = tmp_path / "months.csv"
+    wide.to_csv(path, index=False)
+    text = draft_codebook(path)
+    assert "  time_unit: months" in text
+    assert parse_codebook(text, allow_guesses=True).study.time_unit == "months"
+
+
 # ----------------------------------------------------------------------------- labelled files
 
 

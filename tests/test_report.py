@@ -332,7 +332,7 @@ def test_report_shows_the_numbers_of_the_result_tables(built):
     # two-way expected trajectories: a numeric grid point with its value, a category by its label
     pairs = _cells(page, "dependence_pairs")
     assert len(pairs) == 4
-    assert pairs[0][3] == "none" and pairs[3][1] == "high (5.5)" and pairs[3][4:] == ["2.10", "2.50", "0.40"]
+    assert pairs[0][3] == "none" and pairs[3][1] == "high (5.50)" and pairs[3][4:] == ["2.10", "2.50", "0.40"]
     # small cells suppressed: 3 valid answers for house rules, min_cell 5
     desc = {r[0]: r for r in _cells(page, "descriptives")}
     assert desc["House rules on bedtime"][2] == "< 5" and desc["Evening screen time"][2] == "118"
@@ -682,3 +682,77 @@ def test_moderators_show_generalisation_untested_and_spread(tmp_path):
     assert "Mainly a difference in spread rather than in average development" in text
     diffs = _cells(page, "differences")
     assert diffs[0][-1] == "spread of development" and diffs[1][-1] == "average development"
+
+
+def _title_boxes(fig):
+    """Window extents of the visible axes titles and x-axis labels, as the renderer lays them out."""
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    axes = [ax for ax in fig.axes if ax.get_visible()]
+    return ([ax.title.get_window_extent(renderer) for ax in axes if ax.get_title()]
+            + [ax.xaxis.label.get_window_extent(renderer) for ax in axes if ax.get_xlabel()])
+
+
+def _overlapping(boxes) -> list[tuple[int, int]]:
+    return [(i, j) for i in range(len(boxes)) for j in range(i + 1, len(boxes)) if boxes[i].overlaps(boxes[j])]
+
+
+def test_expected_trajectory_panels_keep_long_titles_apart():
+    # three predictors with long codebook labels, as a real panel has them; measured with
+    # matplotlib's renderer: no two panel titles overlap and none leaves the figure
+    import matplotlib.pyplot as plt
+
+    from wavetrail.report.plots import dependence_figure
+
+    labels = {"sicdegp": "Sequenced Inventory of Communication Development, expressive language group",
+              "race": "Race of the child as reported by the parent at enrolment",
+              "gender": "Gender of the child"}
+    dep = pd.DataFrame([{"predictor": p, "level": lv, "value": v, "time": t, "expected": v + t, "sd": 0.5,
+                         "legend": f"{lv} ({v:.2f})"}
+                        for p in labels for lv, v in (("low", 1.0), ("high", 3.0)) for t in (0.0, 1.0, 2.0)])
+    ylabel = "Expected Vineland Adaptive Behavior Scales socialization age-equivalent score (months)"
+    fig, data = dependence_figure(dep, list(labels), labels, waves=[2, 3, 5], times=[0.0, 1.0, 2.0],
+                                  unit="years since age 2", ylabel=ylabel)
+    boxes = _title_boxes(fig)
+    assert len(boxes) == 6 and _overlapping(boxes) == []  # three titles, three time-axis labels
+    renderer = fig.canvas.get_renderer()
+    assert all(b.x0 >= 0 and b.x1 <= renderer.width for b in boxes)
+    # the full labels are still there, only wrapped; the value axis label fits the panel height
+    assert [ax.get_title().replace("\n", " ") for ax in fig.axes] == list(labels.values())
+    assert fig.axes[0].get_xlabel().replace("\n", " ") == "Wave (time score, years since age 2)"
+    assert fig.axes[0].get_ylabel().replace("\n", " ") == ylabel
+    assert (fig.axes[0].yaxis.label.get_window_extent(renderer).height
+            <= fig.axes[0].get_window_extent(renderer).height + 1)
+    assert "legend" not in data.columns  # the figure's data file keeps the result table's columns
+    plt.close(fig)
+    # control: the same titles and axis labels set without wrapping do overlap, so the check can fail
+    fig, axes = plt.subplots(1, 3, figsize=(8.9, 3.3), sharey=True, layout="constrained")
+    for ax, text in zip(axes, labels.values()):
+        ax.set_title(text, fontsize=9)
+        ax.set_xlabel("Wave (time score, years since age 2)")
+    assert _overlapping(_title_boxes(fig))
+    plt.close(fig)
+
+
+def test_comparison_table_has_clear_heads_and_a_note_on_shown_columns_only(tmp_path):
+    # the columns the growth stage writes (wavetrail.stages.growth.compare_models); numbers from
+    # a demo build: dAIC = 4701.741869 - 4696.391759 = 5.35, dBIC = 4767.308922 - 4743.225368 = 24.08
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p", forest="absent")
+    write_table(root / "results/growth/comparison.csv", pd.DataFrame([{
+        "outcome": "sleep_difficulty", "model_a": "linear-free", "model_b": "quadratic-free",
+        "lr_chisq": 2.649889867, "df": 4, "p": 0.6180112737, "aic_a": 4696.391759, "aic_b": 4701.741869,
+        "bic_a": 4743.225368, "bic_b": 4767.308922, "preferred": "linear-free",
+        "note": "boundary estimates: the chi-square reference of the LR test is conservative"}]))
+    page = open_report(root, {}, {"forest": {"enabled": False}}).growth().html
+    table = re.search(r'<figure class="wt-table" id="growth-comparison">(.*?)</figure>', page, re.DOTALL).group(1)
+    heads = [html.unescape(re.sub(r"<[^>]+>", "", h)) for h in re.findall(r"<th[^>]*>(.*?)</th>", table)]
+    assert heads == ["Outcome", "Smaller model", "Larger model", "LR \u03c7\u00b2", "df", "p", "\u0394AIC", "\u0394BIC",
+                     "Preferred"]
+    assert _cells(page, "growth-comparison") == [["Sleep difficulty", "linear-free", "quadratic-free", "2.65", "4",
+                                                  ".618", "5.35", "24.08", "linear-free"]]
+    note = html.unescape(re.search(r'<p class="wt-note">(.*?)</p>', table, re.DOTALL).group(1))
+    assert "LR \u03c7\u00b2:" in note and "\u0394AIC and \u0394BIC: larger model minus smaller" in note
+    assert "linear-free vs quadratic-free: boundary estimates" in note
+    assert "model b minus model a" not in note and "Model a" not in page

@@ -34,7 +34,7 @@ import yaml
 
 from wavetrail.errors import CodebookError
 
-__all__ = ["GUESS_MARK", "draft_text", "unchecked_guesses", "parse_wave_label", "time_scores_for"]
+__all__ = ["GUESS_MARK", "draft_text", "unchecked_guesses", "parse_wave_label", "time_scores_for", "time_unit_for"]
 
 #: the comment text that marks a drafted guess to check before the first build
 GUESS_MARK = "UNCHECKED GUESS"
@@ -163,6 +163,27 @@ def time_scores_for(waves: list) -> tuple[list, list, str, bool]:
     note = (f"wave label(s) {', '.join(map(repr, unread))} say no time: the waves are in the order they "
             "appear and scored 0, 1, 2, ...; set the order and the real spacing")
     return list(waves), list(range(len(waves))), note, True
+
+
+def time_unit_for(waves: list) -> str | None:
+    """The unit of the time scores :func:`time_scores_for` gives, when the wave labels say it.
+
+    Calendar years give ``years``; labels with a time unit (``6m``, ``week 2``) give the
+    unit the scores are in (the largest one used, plural); other labels give None.
+
+    >>> time_unit_for([2019, 2021]), time_unit_for(["baseline", "6m", "12m"]), time_unit_for([1, 2])
+    ('years', 'months', None)
+    """
+    if all(_is_number(w) for w in waves):
+        values = [float(w) for w in waves]
+        if len(values) > 1 and all(v.is_integer() and 1800 <= v <= 2200 for v in values):
+            return "years"
+        return None
+    labels = [parse_wave_label(w) for w in waves]
+    units = {lab.unit for lab in labels if lab.kind == "delay"}
+    if units and {lab.kind for lab in labels} <= {"delay", "baseline"}:
+        return max(units, key=lambda u: _DAYS[u]) + "s"
+    return None
 
 
 def unchecked_guesses(text: str) -> list[tuple[int, str]]:
@@ -529,6 +550,9 @@ def draft_text(tables, *, id=None, wave=None, waves=None) -> str:
     ts = f"  time_scores: {_y(list(scores))}"
     ts += _guess(time_note) if time_guess else _review(f"{time_note}; in the growth model's time unit")
     out.append(ts)
+    unit = time_unit_for(labels) if waves is None and not time_guess else None
+    if unit:
+        out.append(f"  time_unit: {unit}" + _review("read from the wave labels; the figures' time axis names it"))
     if lay.kind == "single" and lay.wave_guess:
         out.append(f"  # {GUESS_MARK}: {lay.wave_note}; check it, then delete this comment")
     out.append("variables:")

@@ -345,7 +345,8 @@ def codebook() -> dict:
         entry["waves"] = [WAVES[0]]
         variables.append(entry)
     return {
-        "study": {"id": "pid", "wave": "wave", "waves": list(WAVES), "time_scores": list(TIME_SCORES)},
+        "study": {"id": "pid", "wave": "wave", "waves": list(WAVES), "time_scores": list(TIME_SCORES),
+                  "time_unit": "years"},
         "variables": variables,
         "scales": {"sleep_difficulty": {"label": "Sleep difficulty", "min_share": 0.8}},
     }

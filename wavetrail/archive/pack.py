@@ -217,7 +217,7 @@ def _readme(title: str, commit: str, mode: str, standin: dict | None, withheld: 
     return "\n".join(lines)
 
 
-def pack_project(path=".", raw: str = "include", output=None, allow_dirty: bool = False,
+def pack_project(path=".", raw: str = "exclude", output=None, allow_dirty: bool = False,
                  allow_disclosure: bool = False, min_cell: int | None = None, notes: list | None = None,
                  **earlier) -> Path:
     """Write the reviewer archive of a project.
@@ -228,6 +228,8 @@ def pack_project(path=".", raw: str = "include", output=None, allow_dirty: bool 
         The project (or a folder inside it).
     raw : {"include", "exclude", "stand-in"}
         What goes in for the raw data (see the module notes); ``wavetrail pack --raw``.
+        Default ``"exclude"``, the same as the command: raw data leave the machine only
+        when asked for (``"include"``) or as a stand-in.
         The earlier name ``data=`` is accepted this version only (``DeprecationWarning``).
     output : path, optional
         Archive file, ``.zip`` or ``.tar.gz``; default

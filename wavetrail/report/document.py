@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from wavetrail.report import inputs as _in
+from wavetrail.report.inputs import _code
 from wavetrail.report.formatting import (
     MISSING, Table, esc, fmt_bool, fmt_chisq, fmt_count, fmt_interval, fmt_number, fmt_p, fmt_percent,
     fmt_small, fmt_unit,
@@ -318,7 +319,10 @@ class Report:
         return self._table(table)
 
     def _levels(self, name: str, text) -> str:
-        """``1:12; 2:3`` -> ``none 12; some < 5`` (codebook labels, small counts suppressed)."""
+        """``1:12; 2:3`` -> ``none 12; some < 5`` (codebook labels, small counts suppressed).
+
+        Text codes arrive quoted (``'low':49``); they are shown by their label too.
+        """
         if text is None or (isinstance(text, float) and np.isnan(text)) or not str(text).strip():
             return MISSING
         parts = []
@@ -327,6 +331,9 @@ class Report:
             if not sep:
                 parts.append(item.strip())
                 continue
+            code = code.strip()
+            if len(code) >= 2 and code[0] == code[-1] and code[0] in "'\"":  # a text code, written quoted
+                code = code[1:-1]
             parts.append(f"{self.study.level_label(name, _in._code(code))} {fmt_small(count, self.min_cell)}")
         return "; ".join(parts)
 
@@ -481,7 +488,8 @@ class Report:
                 for _, r in sub.iterrows():
                     term = self.study.label(r["predictor"])
                     if isinstance(r.get("level"), str) and r["level"]:
-                        term += f": {r['level']} vs {r['reference']}"
+                        term += (f": {self.study.level_label(r['predictor'], r['level'])} vs "
+                                 f"{self.study.level_label(r['predictor'], r['reference'])}")
                     rows.append([term, str(r["factor"]), _sig(r["estimate"]), _sig(r["se"]),
                                  fmt_number(r["z"]), fmt_p(r["p"]), fmt_number(r.get("std"))])
                 html.append(self._table(Table(
@@ -573,12 +581,45 @@ class Report:
         df = self.tables.get("growth_comparison")
         if df is None or not len(df):
             return _absent("No model comparison (only one model, or results/growth/comparison.csv is absent).")
-        cols = list(df.columns)
-        heads = [_HEADS.get(c, _pretty(c).capitalize()) for c in cols]
-        rows = [[_auto(c, r.get(c), None, self.study) for c in cols] for _, r in df.iterrows()]
-        table = Table("Comparison of nested and non-nested growth models", heads, rows, key="growth-comparison",
-                      numeric=[j for j, c in enumerate(cols) if c not in _TEXT_COLUMNS],
-                      note="Lower AIC and BIC favour a model; \u0394 values are model b minus model a. "
+        df = df.copy()
+        # the AIC and BIC of each model are in the fit table: here only their differences
+        for ic in ("aic", "bic"):
+            if {f"{ic}_a", f"{ic}_b"} <= set(df.columns) and f"delta_{ic}" not in df.columns:
+                df[f"delta_{ic}"] = pd.to_numeric(df[f"{ic}_b"], errors="coerce") - pd.to_numeric(df[f"{ic}_a"], errors="coerce")
+        shown = [c for c in _COMPARISON_ORDER if c in df.columns]
+        shown += [c for c in df.columns if c not in _COMPARISON_ORDER and c not in _COMPARISON_HIDDEN]
+        heads = [_head(c) for c in shown]
+        rows = []
+        for _, r in df.iterrows():
+            row = []
+            for c in shown:
+                if c in ("outcome",):
+                    row.append(self.study.scale_label(r[c]) if isinstance(r.get(c), str) else MISSING)
+                elif c in ("model_a", "model_b", "preferred"):
+                    row.append(_value_text(r.get(c)) if isinstance(r.get(c), str) and r.get(c) else MISSING)
+                else:
+                    row.append(_auto(c, r.get(c), None, self.study))
+            rows.append(row)
+        row_notes = []
+        if "note" in df.columns:
+            for _, r in df.iterrows():
+                if isinstance(r.get("note"), str) and r["note"].strip():
+                    row_notes.append(f"{r.get('model_a')} vs {r.get('model_b')}: {r['note'].strip().rstrip('.')}.")
+        parts = []
+        tests = [h for c, h in zip(shown, heads) if c in ("lr_chisq", "delta_chisq", "chisq_diff")]
+        if tests:
+            parts.append(f"{tests[0]}: likelihood-ratio test of the smaller model against the larger one "
+                         "(twice the difference in log-likelihood, on df = the difference in free parameters).")
+        deltas = [h for c, h in zip(shown, heads) if c in ("delta_aic", "delta_bic")]
+        if deltas:
+            parts.append(f"{' and '.join(deltas)}: larger model minus smaller; a negative value favours the "
+                         "larger model. The AIC and BIC of each model are in the fit table.")
+        if "preferred" in shown:
+            parts.append("Preferred: the larger model when the test rejects at .05 and its BIC is lower, else the "
+                         "smaller one; a model that did not converge or is inadmissible is never preferred.")
+        table = Table("Comparison of nested growth models", heads, rows, key="growth-comparison",
+                      numeric=[j for j, c in enumerate(shown) if c not in _TEXT_COLUMNS],
+                      note=" ".join(parts + row_notes) + (" " if parts or row_notes else "")
                            + self._source("growth_comparison"))
         return self._table(table)
 
@@ -872,6 +913,9 @@ class Report:
         waves = [self._wave_at(t) for t in times]
         scale = (self.settings.get("forest") or {}).get("outcome")
         ylabel = "Expected " + (self._unit_label(scale) if scale else "outcome")
+        dep = dep.copy()
+        dep["legend"] = [self._legend(n, lv, v, lb) for n, lv, v, lb in
+                         zip(dep["predictor"], dep["level"], dep["value"], _col(dep, "label"))]
         fig, data = dependence_figure(dep, top, self.study.labels, waves=waves, times=times,
                                       unit=self.study.time_unit, ylabel=ylabel)
         html = self._figure("dependence", fig, data,
@@ -889,8 +933,8 @@ class Report:
                 b = float(b.iloc[0]) if len(b) else np.nan
                 sd = curve.loc[curve["time"] == last, "sd"] if "sd" in curve else pd.Series(dtype=float)
                 sd = float(sd.iloc[0]) if len(sd) else np.nan
-                rows.append([self.study.label(name), self._dep_label(name, curve, level),
-                             _value_text(curve["value"].iloc[0]),
+                level_text, value_text = self._point(name, level, curve["value"].iloc[0], _first(curve, "label"))
+                rows.append([self.study.label(name), level_text, value_text,
                              fmt_number(a), fmt_number(b), fmt_number(b - a), fmt_number(sd)])
         html += self._table(Table("Expected outcome at the first and last wave by predictor value",
                                   ["Predictor", "Level", "Value", f"Wave {self._wave_at(first)}",
@@ -913,10 +957,24 @@ class Report:
                 out.add(name)
         return out
 
-    def _dep_label(self, name, curve, level) -> str:
-        if "label" in curve and not pd.isna(curve["label"].iloc[0]):
-            return str(curve["label"].iloc[0])
-        return self.study.level_label(name, level)
+    def _point(self, name, level, value, label=None) -> tuple[str, str]:
+        """(level text, value text) of one point of an expected-trajectory grid.
+
+        A category shows the codebook's label of its code (else the label the forest
+        wrote, else the code) and no separate value; a numeric predictor's grid point
+        shows its name (low, average, high) and its value with two decimals.
+        """
+        if _code(level) == _code(value):  # a category: the level is its code
+            if str(name) in self.study.levels:
+                return self.study.level_label(name, level), MISSING
+            text = str(label) if label is not None and not _missing(label) else _code(level)
+            return text, MISSING
+        return str(level), _number_text(value)
+
+    def _legend(self, name, level, value, label=None) -> str:
+        """A figure legend entry: a category's label, or ``low (4.10)`` for a numeric grid point."""
+        text, number = self._point(name, level, value, label)
+        return text if number == MISSING else f"{text} ({number})"
 
     def _wave_at(self, t) -> str:
         for w, s in zip(self.study.waves, self.study.time_scores):
@@ -939,12 +997,6 @@ class Report:
                                       "the pair on the expected trajectory that the two single effects do not explain "
                                       "(0 = none). " + self._source("interactions")))
 
-    def _level_text(self, name, level, value) -> str:
-        """A category's label, or 'low (4.1)' for a numeric predictor's grid point."""
-        if str(level) == str(value):
-            return self.study.level_label(name, level)
-        return f"{level} ({_value_text(value)})"
-
     def _pair_table(self) -> str:
         df = self.tables.get("dependence_pairs")
         if df is None or not len(df):
@@ -958,10 +1010,8 @@ class Report:
             b = curve.loc[curve["time"] == last, "expected"]
             a = float(a.iloc[0]) if len(a) else np.nan
             b = float(b.iloc[0]) if len(b) else np.nan
-            text_a = (str(curve["label_a"].iloc[0]) if "label_a" in curve and str(la) == str(curve["value_a"].iloc[0])
-                      else self._level_text(pa, la, curve["value_a"].iloc[0]))
-            text_b = (str(curve["label_b"].iloc[0]) if "label_b" in curve and str(lb) == str(curve["value_b"].iloc[0])
-                      else self._level_text(pb, lb, curve["value_b"].iloc[0]))
+            text_a = self._legend(pa, la, curve["value_a"].iloc[0], _first(curve, "label_a"))
+            text_b = self._legend(pb, lb, curve["value_b"].iloc[0], _first(curve, "label_b"))
             rows.append([self.study.label(pa), text_a, self.study.label(pb), text_b,
                          fmt_number(a), fmt_number(b), fmt_number(b - a)])
         return self._table(Table("Expected outcome for a pair of predictors set together",
@@ -1137,12 +1187,39 @@ _ATTRITION_HEADS = {"n_retained": "Retained", "n_new": "New", "n_dropped": "Drop
 #: packages whose versions the environment table always shows when the lock pins them
 KEY_PACKAGES = ("wavetrail", "numpy", "pandas", "scipy", "matplotlib", "snakemake", "papermill", "nbconvert")
 
+#: columns of comparison.csv in the order the report shows them (the others follow)
+_COMPARISON_ORDER = ["outcome", "model_a", "model_b", "lr_chisq", "delta_chisq", "chisq_diff", "df", "delta_df",
+                     "df_diff", "p", "delta_aic", "delta_bic", "preferred"]
+#: columns of comparison.csv the report does not show as columns (AIC/BIC of each model are in the
+#: fit table; the notes go under the table)
+_COMPARISON_HIDDEN = {"aic_a", "aic_b", "bic_a", "bic_b", "note"}
+
 _HEADS = {
-    "outcome": "Outcome", "model_a": "Model a", "model_b": "Model b", "delta_chisq": "\u0394\u03c7\u00b2",
-    "delta_df": "\u0394df", "chisq_diff": "\u0394\u03c7\u00b2", "df_diff": "\u0394df", "p": "p",
+    "outcome": "Outcome", "model_a": "Smaller model", "model_b": "Larger model", "lr_chisq": "LR \u03c7\u00b2", "delta_chisq": "\u0394\u03c7\u00b2",
+    "delta_df": "\u0394df", "chisq_diff": "\u0394\u03c7\u00b2", "df_diff": "\u0394df", "p": "p", "df": "df",
     "delta_aic": "\u0394AIC", "delta_bic": "\u0394BIC", "delta_cfi": "\u0394CFI", "preferred": "Preferred",
     "test": "Test", "nested": "Nested", "note": "Note",
 }
+_ACRONYMS = {"aic": "AIC", "bic": "BIC", "cfi": "CFI", "tli": "TLI", "rmsea": "RMSEA", "srmr": "SRMR", "lr": "LR",
+             "chisq": "\u03c7\u00b2", "df": "df", "se": "SE", "sd": "SD", "n": "n", "p": "p"}
+
+
+def _head(column: str) -> str:
+    """A column head: a known name's head, else its words with statistics' usual spelling.
+
+    >>> _head("bic_a"), _head("lr_chisq"), _head("n_free")
+    ('BIC a', 'LR \u03c7\u00b2', 'N free')
+    """
+    if column in _HEADS:
+        return _HEADS[column]
+    words = [_ACRONYMS.get(w.lower(), w) for w in str(column).split("_") if w]
+    if not words:
+        return str(column)
+    if words[0] == str(column).split("_")[0]:
+        words[0] = words[0].capitalize()
+    return " ".join(words)
+
+
 _TEXT_COLUMNS = {"outcome", "model_a", "model_b", "preferred", "test", "nested", "note", "decision"}
 _UNIT_COLUMNS = re.compile(r"(^|_)(cfi|tli|rmsea|srmr|alpha|omega|h|r)($|_)")
 
@@ -1248,6 +1325,26 @@ def _value_text(value) -> str:
     if isinstance(value, float):
         return f"{value:.4g}"
     return str(value)
+
+
+def _missing(value) -> bool:
+    try:
+        return bool(pd.isna(value))
+    except (TypeError, ValueError):
+        return False
+
+
+def _first(df: pd.DataFrame, column: str):
+    """The first value of ``column`` (None when the table has no such column or no row)."""
+    return df[column].iloc[0] if column in df.columns and len(df) else None
+
+
+def _number_text(value) -> str:
+    """A number read from a table (also when the CSV column held text) with two decimals."""
+    try:
+        return fmt_number(float(value))
+    except (TypeError, ValueError):
+        return MISSING if _missing(value) else str(value)
 
 
 def _wave_text(value) -> str:

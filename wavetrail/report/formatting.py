@@ -183,22 +183,28 @@ class Table:
         return len(self.rows)
 
     def to_html(self, number: int | None = None) -> str:
-        """The table as an HTML fragment (``<figure class="wt-table">``)."""
+        """The table as an HTML fragment (``<figure class="wt-table">``).
+
+        A table of :data:`WIDE_COLUMNS` or more columns is set in a smaller type
+        (``<table class="wt-wide">``) so that it fits the page; column heads wrap, and
+        long names break after an underscore, so no table needs a horizontal scroll.
+        """
         label = f"Table {number}. " if number is not None else ""
         ident = f' id="{esc(self.key)}"' if self.key else ""
         head = "".join(
-            f'<th scope="col"{self._cls(j)}>{esc(c)}</th>' for j, c in enumerate(self.columns)
+            f'<th scope="col"{self._cls(j)}>{_breakable(c)}</th>' for j, c in enumerate(self.columns)
         )
         body = []
         for row in self.rows:
-            cells = "".join(f"<td{self._cls(j)}>{esc(v)}</td>" for j, v in enumerate(row))
+            cells = "".join(f"<td{self._cls(j, v)}>{_breakable(v)}</td>" for j, v in enumerate(row))
             body.append(f"<tr>{cells}</tr>")
         wrap_open = '<div class="wt-scroll">' if self.scroll else ""
         wrap_close = "</div>" if self.scroll else ""
+        wide = ' class="wt-wide"' if len(self.columns) >= WIDE_COLUMNS else ""
         note = f'<p class="wt-note"><em>Note.</em> {esc(self.note)}</p>' if self.note else ""
         return (
             f'<figure class="wt-table"{ident}><figcaption><span class="wt-label">{esc(label)}</span>'
-            f"{esc(self.caption)}</figcaption>{wrap_open}<table><thead><tr>{head}</tr></thead>"
+            f"{esc(self.caption)}</figcaption>{wrap_open}<table{wide}><thead><tr>{head}</tr></thead>"
             f"<tbody>{''.join(body)}</tbody></table>{wrap_close}{note}</figure>"
         )
 
@@ -211,6 +217,22 @@ class Table:
                 found.add(j)
         return found
 
-    def _cls(self, j: int) -> str:
+    def _cls(self, j: int, value: str | None = None) -> str:
         names = (["wt-num"] if j in self.numeric else []) + (["wt-hash"] if j in self.mono else [])
+        if j in self.numeric and value is not None and str(value).startswith("["):
+            names.append("wt-ci")  # an interval may wrap after its comma on a narrow page
         return f' class="{" ".join(names)}"' if names else ""
+
+
+#: tables with at least this many columns are set in a smaller type (``table.wt-wide``)
+WIDE_COLUMNS = 8
+
+
+def _breakable(text) -> str:
+    """Escaped cell text with a line-break opportunity after each underscore of a long name.
+
+    Variable names such as ``evening_screen_time`` have no space to wrap at; without the
+    ``<wbr>`` a narrow page would have to overflow. The text a reader copies is unchanged.
+    """
+    out = esc(text)
+    return out.replace("_", "_<wbr>") if len(out) > 12 else out

@@ -76,7 +76,8 @@ class StudyInfo:
         return str(name) in self.scale_names
 
     def level_label(self, name: str, code) -> str:
-        return self.levels.get(str(name), {}).get(str(code), str(code))
+        """The codebook's label of a category code (``1``, ``1.0`` and ``"1"`` alike), else the code."""
+        return self.levels.get(str(name), {}).get(_code(code), _code(code))
 
     def label(self, name: str) -> str:
         return self.labels.get(str(name), str(name))

@@ -223,6 +223,16 @@ def _level_labels(job, names) -> dict[str, dict[str, str]]:
 
 
 
+def _time_unit(job) -> str | None:
+    """The codebook's unit of the time scores (``study.time_unit``), None when it names none."""
+    from wavetrail.codebook import load_codebook
+
+    try:
+        return load_codebook(job.path(job.input["codebook"])).study.time_unit
+    except KeyError:
+        return None
+
+
 def _label_of(labels: dict, name: str, level) -> str:
     return labels.get(name, {}).get(code_text(level), str(level))
 
@@ -431,6 +441,7 @@ def _figures(job, imp: pd.DataFrame, dep: pd.DataFrame, names: list[str]) -> Non
         ax.axvline(0.0, color="#000000", linewidth=0.8)
         save_figure(fig, Path(job.path(job.output["importance_figure"])).with_suffix(""), imp)
 
+        unit = _time_unit(job)
         n = max(1, len(names))
         cols = min(3, n)
         rows = int(np.ceil(n / cols))
@@ -450,7 +461,7 @@ def _figures(job, imp: pd.DataFrame, dep: pd.DataFrame, names: list[str]) -> Non
                     a.fill_between(g["time"], g["expected"] - g["sd"], g["expected"] + g["sd"],
                                    color=colour, alpha=0.12, linewidth=0)
             a.set_title(name)
-            a.set_xlabel("time")
+            a.set_xlabel(f"time score ({unit})" if unit else "time score")
             a.legend(fontsize=7, frameon=False)
         axes[0, 0].set_ylabel("expected score")
         save_figure(fig, Path(job.path(job.output["trajectories_figure"])).with_suffix(""), dep)

@@ -181,7 +181,8 @@ def trajectory_figure(scores, waves, time_scores, outcomes, fits, stem, n_people
                     rows.append({"outcome": outcome, "series": f"{shape} implied", "wave": str(w),
                                  "time": t[r], "value": float(g.implied_mean[r])})
             ax.set_title(outcome)
-            ax.set_xlabel("time score (as in the codebook)")
+            unit = getattr(getattr(codebook, "study", None), "time_unit", None)
+            ax.set_xlabel(f"time score ({unit})" if unit else "time score (as in the codebook)")
             ax.set_ylabel(outcome_axis_label(codebook, outcome))
             ax.set_xticks(t)
             ax.legend(frameon=False, fontsize=8)
