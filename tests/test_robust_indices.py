@@ -124,3 +124,24 @@ def test_unit_scaling_gives_the_normal_theory_indices():
     more = rb.scaled_and_robust(chisq, df, 1.5, chisq_b, df_b, 1.5, 200, chisq, 1.5, chisq_b, 1.5)
     assert more["rmsea_scaled"] < base["rmsea"]
     assert more["baseline_chisq_scaled"] == pytest.approx(chisq_b / 1.5)
+
+
+def test_growth_fit_table_carries_the_robust_columns():
+    # The growth step's fit table: the new columns are filled with robust=True (autism, missing
+    # waves) and empty without it; the robust RMSEA lies inside its own interval.
+    from wavetrail.stages.growth import FIT_COLUMNS, fit_growth_models
+
+    d, t = _autism()
+    long = d.stack().rename("score").reset_index().set_axis(["id", "wave", "score"], axis=1)
+    long["scale"] = "vsae"
+    long["n_items"] = 1
+    waves = list(d.columns)
+    new = list(rb.ROBUST_KEYS[2:])
+    assert set(new) <= set(FIT_COLUMNS)
+    fit_r, _, _ = fit_growth_models(long, waves, t, ["vsae"], ["linear"], robust=True)
+    fit_n, _, _ = fit_growth_models(long, waves, t, ["vsae"], ["linear"], robust=False)
+    row = fit_r.iloc[0]
+    assert row[new].notna().all(), row[new]
+    assert fit_n.iloc[0][new].isna().all()
+    assert row["rmsea_robust_lo"] <= row["rmsea_robust"] <= row["rmsea_robust_hi"]
+    assert row["rmsea_scaled_lo"] <= row["rmsea_scaled"] <= row["rmsea_scaled_hi"]

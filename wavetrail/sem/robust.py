@@ -18,8 +18,8 @@ Two families of indices, both reported beside the normal-theory ones:
   ``tli_robust = 1 - (T3 - c3 df) df_B / ((T3_B - c3_B df_B) df)``.
 
   With missing data the FIML chi-square does not estimate the complete-data noncentrality,
-  so ``T3`` and ``c3`` follow the corrected version of Savalei (2018, Structural Equation
-  Modeling 25(3)) and Zhang & Savalei (2023, Structural Equation Modeling 30(2)): ``T3`` is
+  so ``T3`` and ``c3`` follow the corrected version of Zhang & Savalei (2023, Psychological
+  Methods 28(2)): ``T3`` is
   the complete-data ML discrepancy ``N F_ML`` of the model-implied moments (at the FIML
   estimates) against the saturated model's EM moments, and
   ``c3 = tr(U Wm^-1 Wc Wm^-1 U Gamma) / df`` with ``Wm`` the observed (FIML) information of
