@@ -145,3 +145,28 @@ def test_growth_fit_table_carries_the_robust_columns():
     assert fit_n.iloc[0][new].isna().all()
     assert row["rmsea_robust_lo"] <= row["rmsea_robust"] <= row["rmsea_robust_hi"]
     assert row["rmsea_scaled_lo"] <= row["rmsea_scaled"] <= row["rmsea_scaled_hi"]
+
+
+@pytest.mark.parametrize("name", ["orthodont", "sleepstudy"])
+def test_complete_data_formulas_with_the_scaling_factors_equal_lavaan_listwise(name, tmp_path):
+    # Reference: lavaan 0.6-14 sem(model, data, estimator = "MLR") with its default
+    # missing = "listwise" on complete panels (nlme Orthodont, lme4 sleepstudy): there its
+    # robust indices are the complete-data formulas of Brosseau-Liard, Savalei & Li (2012) and
+    # Brosseau-Liard & Savalei (2014) with T3 = T and c3 = the Yuan-Bentler scaling factors of
+    # the model and the baseline. The same formulas fed with our T, c, T_B, c_B give its values.
+    # (wavetrail itself reports the FIML-corrected c3, as lavaan does with missing = "ml"; on
+    # these small samples the two differ, e.g. Orthodont robust RMSEA .096 against .136.)
+    need_lavaan()
+    d, t = PANELS[name]()
+    g = fit_growth(d, t, shape="linear", residuals="free", robust=True)
+    f = g.fit
+    ref = run_lavaan(tmp_path, d, growth_syntax(t, "linear", "free", list(d.columns), start=g.estimates),
+                     'sem(model, data = d, meanstructure = TRUE, estimator = "MLR")')
+    fm = ref["fm"]
+    out = rb.scaled_and_robust(f["chisq"], f["df"], f["scaling"], f["baseline_chisq"], f["baseline_df"],
+                               f["baseline_scaling"], f["n"], f["chisq"], f["scaling"], f["baseline_chisq"],
+                               f["baseline_scaling"])
+    for ours, theirs in PAIRS.items():
+        rel = 1e-3 if ours.endswith(("_lo", "_hi")) else 1e-4
+        assert out[ours] == pytest.approx(fm[theirs], rel=rel, abs=1e-7), (ours, out[ours], fm[theirs])
+    assert f["rmsea_robust"] != pytest.approx(out["rmsea_robust"], rel=1e-3)  # the corrected c3 differs
