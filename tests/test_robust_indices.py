@@ -123,48 +123,23 @@ def test_unit_scaling_gives_the_normal_theory_indices():
     more = rb.scaled_and_robust(chisq, df, 1.5, chisq_b, df_b, 1.5, 200, chisq, 1.5, chisq_b, 1.5)
     assert more["rmsea_scaled"] < base["rmsea"]
     assert more["baseline_chisq_scaled"] == pytest.approx(chisq_b / 1.5)
+    # no degrees of freedom: no index, never an error
+    none = rb.scaled_and_robust(0.0, 0, np.nan, chisq_b, df_b, 1.5, 200, 0.0, np.nan, chisq_b, 1.5)
+    assert all(np.isnan(none[k]) for k in rb.ROBUST_KEYS[2:])
 
 
-def test_growth_fit_table_carries_the_robust_columns():
-    # The growth step's fit table: the new columns are filled with robust=True (autism, missing
-    # waves) and empty without it; the robust RMSEA lies inside its own interval.
-    from wavetrail.stages.growth import FIT_COLUMNS, fit_growth_models
+def test_covariance_structure_count_leaves_the_indices_unchanged():
+    # means=False only stops counting the (saturated) mean structure in parameters and
+    # moments; chi-square, df, the baseline and so every scaled and robust index stay the
+    # same (one-factor model of the four Orthodont distances, free intercepts).
+    from wavetrail.sem.cfa import cfa_spec
+    from wavetrail.sem.fitting import fit
 
-    d, t = _autism()
-    long = d.stack().rename("score").reset_index().set_axis(["id", "wave", "score"], axis=1)
-    long["scale"] = "vsae"
-    long["n_items"] = 1
-    waves = list(d.columns)
-    new = list(rb.ROBUST_KEYS[2:])
-    assert set(new) <= set(FIT_COLUMNS)
-    fit_r, _, _ = fit_growth_models(long, waves, t, ["vsae"], ["linear"], robust=True)
-    fit_n, _, _ = fit_growth_models(long, waves, t, ["vsae"], ["linear"], robust=False)
-    row = fit_r.iloc[0]
-    assert row[new].notna().all(), row[new]
-    assert fit_n.iloc[0][new].isna().all()
-    assert row["rmsea_robust_lo"] <= row["rmsea_robust"] <= row["rmsea_robust_hi"]
-    assert row["rmsea_scaled_lo"] <= row["rmsea_scaled"] <= row["rmsea_scaled_hi"]
-
-
-@pytest.mark.parametrize("name", ["orthodont", "sleepstudy"])
-def test_complete_data_formulas_with_the_scaling_factors_equal_lavaan_listwise(name, tmp_path):
-    # Reference: lavaan 0.6-14 sem(model, data, estimator = "MLR") with its default
-    # missing = "listwise" on complete panels (nlme Orthodont, lme4 sleepstudy): there its
-    # robust indices are the complete-data formulas of Brosseau-Liard, Savalei & Li (2012) and
-    # Brosseau-Liard & Savalei (2014) with T3 = T and c3 = the Yuan-Bentler scaling factors of
-    # the model and the baseline. The same formulas fed with our T, c, T_B, c_B give its values.
-    # (wavetrail itself reports the FIML-corrected c3, as lavaan does with missing = "ml"; on
-    # these small samples the two differ, e.g. Orthodont robust RMSEA .096 against .136.)
-    need_lavaan()
-    d, t = PANELS[name]()
-    g = fit_growth(d, t, shape="linear", residuals="free", robust=True)
-    f = g.fit
-    ref = run_lavaan(tmp_path, d, growth_syntax(t, "linear", "free", list(d.columns), start=g.estimates),
-                     'sem(model, data = d, meanstructure = TRUE, estimator = "MLR")')
-    fm = ref["fm"]
-    out = rb.scaled_and_robust(f["chisq"], f["df"], f["scaling"], f["baseline_chisq"], f["baseline_df"],
-                               f["baseline_scaling"], f["n"], f["chisq"], f["scaling"], f["baseline_chisq"],
-                               f["baseline_scaling"])
-    for ours, theirs in PAIRS.items():
-        assert out[ours] == pytest.approx(fm[theirs], rel=1e-4, abs=1e-7), (ours, out[ours], fm[theirs])
-    assert f["rmsea_robust"] != pytest.approx(out["rmsea_robust"], rel=1e-3)  # the corrected c3 differs
+    d, _ = _orthodont()
+    spec = cfa_spec({"size": list(d.columns)})
+    with_means = fit(spec, d, robust=True)
+    without = fit(spec, d, robust=True, means=False)
+    assert with_means.fit["df"] == without.fit["df"] > 0
+    for k in rb.ROBUST_KEYS:
+        assert np.isfinite(with_means.fit[k]), k
+        assert without.fit[k] == pytest.approx(with_means.fit[k], rel=1e-10), k
