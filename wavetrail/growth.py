@@ -166,8 +166,9 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
         sandwich standard errors (observed information, casewise score outer product;
         FIML) and the scaled chi-square ``fit["chisq_scaled"]`` with its scaling factor
         ``fit["scaling"]`` and p-value ``fit["p_scaled"]`` (Yuan & Bentler 2000,
-        Sociological Methodology 30; the estimator lavaan calls MLR). Not with
-        individually varying time scores.
+        Sociological Methodology 30; the estimator lavaan calls MLR), and the scaled and
+        robust CFI, TLI and RMSEA (``cfi_scaled`` ... ``rmsea_robust_hi``, see
+        :mod:`wavetrail.sem.robust`). Not with individually varying time scores.
     bounded : bool
         ``True`` keeps the residual variances >= 0 and the growth factors' covariance
         matrix positive semi-definite (admissible ML, :mod:`wavetrail.sem.bounded`).

@@ -248,6 +248,11 @@ class Panel:
     def baseline(self, names: Sequence[str] | None = None) -> pd.DataFrame:
         """First-wave values, one row per person (index id).
 
+        A variable declared measured once (``waves: [first wave]``) takes, for a person
+        with no first-wave record, the value that person's later rows agree on (long files
+        repeat a time-invariant value on every row); otherwise a person without a
+        first-wave record has missing values.
+
         Parameters
         ----------
         names : list of str, optional
@@ -262,7 +267,29 @@ class Panel:
             raise DataError(f"variable(s) {unknown} are not in the codebook",
                             hint=_suggest(unknown[0], self.long.columns))
         first = self.long[self.long[self.wave] == self.waves[0]].set_index(self.id)
-        return first[names].reindex(self.ids())
+        out = first[names].reindex(self.ids())
+        return self._carry_back(out, first.index)
+
+    def _carry_back(self, out: pd.DataFrame, present: pd.Index) -> pd.DataFrame:
+        """Values of variables declared measured once (at the first wave) for people without a
+        first-wave record: long files repeat such a value on every row of a person, so the
+        value their later rows agree on is theirs; rows that disagree leave it missing."""
+        w0 = self.waves[0]
+        once = [n for n in out.columns if (v := self.codebook.variables.get(n)) is not None
+                and v.waves is not None and len(v.waves) == 1 and v.waves[0] == w0]
+        absent = out.index[~out.index.isin(present)]
+        if not once or len(absent) == 0:
+            return out
+        later = self.long[self.long[self.id].isin(absent)]
+        for n in once:
+            g = later.groupby(self.id, observed=True, sort=True)[n]
+            agree = g.nunique(dropna=True) == 1
+            values = g.first()[agree]
+            if len(values):
+                col = out[n].copy()
+                col.loc[values.index] = values
+                out[n] = col
+        return out
 
     def predictors(self, spec, outcome: str | None = None) -> pd.DataFrame:
         """Candidate predictors, one row per person (index id).

@@ -239,6 +239,7 @@ def robust_errors(res, stats, Y, at_bound=()):
     # (EM) estimate, A observed information, B casewise score outer product
     res.fit["scaling"] = res.fit["chisq_scaled"] = res.fit["p_scaled"] = np.nan
     df = res.fit.get("df", 0)
+    tr1 = np.nan
     if df > 0 and np.isfinite(res.fit.get("chisq", np.nan)) and res.saturated_mean is not None:
         try:
             tr0 = float(np.trace(np.linalg.solve(A[np.ix_(keep, keep)], Sk.T @ Sk)))
@@ -250,7 +251,35 @@ def robust_errors(res, stats, Y, at_bound=()):
             res.fit["scaling"] = float(c)
             res.fit["chisq_scaled"] = float(res.fit["chisq"] / c)
             res.fit["p_scaled"] = float(sps.chi2.sf(res.fit["chisq_scaled"], df))
+    _robust_indices(res, stats, rows, tr1, keep)
     return res
+
+
+def _robust_indices(res, stats, rows, tr1, keep):
+    """Scaled and robust CFI/TLI/RMSEA (``wavetrail.sem.robust``) into ``res.fit``; NaN where not available."""
+    from wavetrail.sem import robust as rb
+
+    f = res.fit
+    df, df_b = f.get("df", 0), f.get("baseline_df", 0)
+    c_b = t3 = c3 = t3_b = c3_b = np.nan
+    extra = []
+    usable = (df > 0 and df_b > 0 and np.isfinite(f.get("chisq", np.nan)) and np.isfinite(tr1)
+              and res.saturated_mean is not None)
+    if usable:
+        try:
+            c_b = rb.baseline_scaling(stats, rows, tr1, df_b)
+        except np.linalg.LinAlgError:
+            extra.append("the baseline model's information is singular: no scaled baseline chi-square")
+        try:
+            t3, c3, t3_b, c3_b = rb.corrected_statistics(res.spec, res.theta, res.saturated_mean,
+                                                         res.saturated_cov, stats, rows, df, df_b,
+                                                         free=keep)
+        except np.linalg.LinAlgError:
+            extra.append("the saturated model's information is singular: no robust fit indices")
+    f.update(rb.scaled_and_robust(f.get("chisq", np.nan), df, f.get("scaling", np.nan), f.get("baseline_chisq", np.nan),
+                                  df_b, c_b, f["n"], t3, c3, t3_b, c3_b))
+    res.notes += extra
+    f["note"] = "; ".join(x for x in [f.get("note", "")] + extra if x)
 
 
 def _h1_trace(mu, sigma, stats, rows):

@@ -20,7 +20,8 @@ log = logging.getLogger("wavetrail.growth")
 
 FIT_COLUMNS = ["outcome", "model", "estimation", "n", "loglik", "chisq", "df", "p", "cfi", "tli", "rmsea",
                "rmsea_lo", "rmsea_hi", "srmr", "srmr_corr", "aic", "bic", "sabic", "chisq_scaled", "scaling",
-               "p_scaled", "se_type", "converged", "admissible", "boundary", "note"]
+               "p_scaled", "cfi_scaled", "tli_scaled", "rmsea_scaled", "rmsea_scaled_lo", "rmsea_scaled_hi",
+               "cfi_robust", "tli_robust", "rmsea_robust", "rmsea_robust_lo", "rmsea_robust_hi", "se_type", "converged", "admissible", "boundary", "note"]
 EST_COLUMNS = ["outcome", "model", "parameter", "kind", "estimate", "se", "z", "p", "std"]
 #: (smaller, larger): the smaller model is nested in the larger one
 NESTED = [("linear", "quadratic"), ("linear", "basis")]
