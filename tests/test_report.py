@@ -660,7 +660,7 @@ def test_moderators_show_generalisation_untested_and_spread(tmp_path):
 
     root = make_project(tmp_path / "p", forest="absent")
     imp = pd.DataFrame({"predictor": ["chronotype", "sex", "siblings"], "importance": [0.0123, 0.00042, np.nan],
-                        "se": [0.0021, 0.00011, np.nan], "rank": [1, 2, np.nan], "tested": [40, 38, 0],
+                        "se": [0.0021, 0.00025, np.nan], "rank": [1, 2, np.nan], "tested": [40, 38, 0],
                         "candidate": [40, 41, 39], "untested": ["", "too few people in a category 3",
                                                                "too few people in a category 39"]})
     diff = pd.DataFrame({"predictor": ["chronotype"] * 3 + ["sex"] * 3,
@@ -676,7 +676,10 @@ def test_moderators_show_generalisation_untested_and_spread(tmp_path):
     assert "4 node model(s) in 3 tree(s) did not converge" in text
     rows = _cells(page, "importance")
     assert rows[0][3:5] == ["0.0123", "0.0021"]  # three significant digits, not 0.01 / 0.00
-    assert rows[1][3:5] == ["0.00042", "0.00011"]
+    assert rows[1][3:5] == ["0.00042", "0.00025"]
+    # 0.00042 - 1.96 x 0.00025 < 0: flagged; 0.0123 - 1.96 x 0.0021 > 0: not
+    assert rows[1][6].startswith("uncertain: the ±1.96 SE interval includes 0; could not be tested")
+    assert "uncertain" not in rows[0][6]
     assert rows[2][0] == F.MISSING and rows[2][3] == F.MISSING
     assert rows[2][6].startswith("never tested: too few people in a category")
     assert "Mainly a difference in spread rather than in average development" in text

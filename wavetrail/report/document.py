@@ -843,6 +843,9 @@ class Report:
                 note = "never tested: " + untested if untested else "never tested"
             else:
                 note = ("could not be tested at some nodes: " + untested) if untested else ""
+                se = pd.to_numeric(r.get("se"), errors="coerce")
+                if r["importance"] > 0 and pd.notna(se) and r["importance"] - 1.96 * se <= 0:
+                    note = "; ".join(x for x in ("uncertain: the ±1.96 SE interval includes 0", note) if x)
             rows.append([fmt_count(r["rank"]) if not pd.isna(r["rank"]) else MISSING,
                          self.study.label(r["predictor"]), str(r["predictor"]),
                          _sig(r["importance"]), _sig(r.get("se")), nodes, note])
