@@ -513,30 +513,44 @@ def _clean(panel: Panel):
     _, first_at = np.unique(person.astype(np.int64) * len(waves) + order_kept, return_index=True)
     del person, pos, keep
     take = kept[first_at]  # record positions of the long rows
-    base_id = ids_kept[first_at]
     base_order = order_kept[first_at]
+    # the usual file: every record is a long row, in order; then the long table shares the read
+    # columns that cleaning leaves as they are (through pandas, so copy-on-write keeps them apart)
+    whole = len(take) == len(rec) and bool(np.all(take == np.arange(len(take))))
+    id_column = rec[panel.id] if whole else None
+    base_id = id_column.to_numpy() if whole else ids_kept[first_at]
     del ids_kept, order_kept, kept, first_at
     wave_values = np.empty(len(waves), dtype=object)
     wave_values[:] = waves
-    base_wave = wave_values[base_order]
-    columns = {panel.id: base_id,
-               panel.wave: pd.Series(base_wave, dtype=_wave_dtype(cb.study.waves)).to_numpy()}
+    if _wave_dtype(cb.study.waves) == "int64":
+        wave_column = np.asarray(waves, dtype=np.int64)[base_order]
+    else:
+        wave_column = pd.Series(wave_values[base_order], dtype=object).to_numpy()
+    columns = {panel.id: id_column.reset_index(drop=True) if whole else base_id, panel.wave: wave_column}
     reasons = []
     for var in cb.file_variables():
         if var.name == panel.wave:
             continue
-        raw = rec[var.name].iloc[take] if var.name in rec.columns else pd.Series([np.nan] * len(take))
-        values, hit, is_code = _clean_values(raw.reset_index(drop=True), var)
-        columns[var.name] = values
-        if is_code.any():
-            idx = np.flatnonzero(is_code)
+        if var.name not in rec.columns:
+            raw = pd.Series([np.nan] * len(take))
+        elif whole:
+            raw = rec[var.name].reset_index(drop=True)
+        else:
+            raw = rec[var.name].iloc[take].reset_index(drop=True)
+        values, idx, codes = _cleaned_column(raw, var)
+        shared = isinstance(values, np.ndarray) and values.dtype == raw.dtype \
+            and np.may_share_memory(values, raw.to_numpy())
+        columns[var.name] = raw if shared else values
+        if len(idx):
+            base_wave = wave_values[base_order[idx]]
             reasons.append(pd.DataFrame({
                 "id": base_id[idx],
-                "wave": base_wave[idx],
+                "wave": base_wave,
                 "variable": var.name,
-                "code": map_column(hit.to_numpy()[idx], lambda c: str(_fmt_code(c))),
-                "reason": map_column(hit.to_numpy()[idx], lambda c: var.missing.get(c, "")),
+                "code": map_column(codes, lambda c: str(_fmt_code(c))),
+                "reason": map_column(codes, lambda c: var.missing.get(c, "")),
             }))
+        del raw, values, idx, codes
     for var in cb.data_variables():
         if var.derived:
             columns[var.name] = derive_values(columns[var.derived_from], columns[panel.wave], var.transform)[0]
@@ -548,10 +562,35 @@ def _clean(panel: Panel):
         missing = pd.concat(reasons, ignore_index=True)
     else:
         missing = pd.DataFrame({"id": [], "wave": [], "variable": [], "code": [], "reason": []})
-    files = rec[FILE].iloc[take].reset_index(drop=True)
+    files = rec[FILE] if whole else rec[FILE].iloc[take].reset_index(drop=True)
     origin = pd.DataFrame({FILE: files.to_numpy(dtype=object) if files.dtype == object else files.array,
-                           ROW: rec[ROW].to_numpy()[take]})
+                           ROW: rec[ROW].to_numpy() if whole else rec[ROW].to_numpy()[take]}, copy=False)
     return long, missing, origin
+
+
+def _cleaned_column(raw: pd.Series, var: Variable):
+    """The cleaned column of :func:`_clean_values`, the positions that held a declared missing
+    code and those codes (an object array of codebook keys).
+
+    A number column checked against number codes is cleaned in place of a float copy (no object
+    array per cell); a float column without any code met is handed on as read (no copy).
+    """
+    values = raw.to_numpy()
+    if var.type in ("integer", "number") and values.dtype.kind in "iuf":
+        found = missing_code_index(raw, var)
+        if found is not None:
+            idx = np.flatnonzero(found >= 0)
+            declared = np.empty(max(len(var.missing), 1), dtype=object)
+            declared[:len(var.missing)] = list(var.missing)
+            codes = declared[found[idx]]
+            del found
+            out = values.astype(float, copy=len(idx) > 0)
+            if len(idx):
+                out[idx] = np.nan
+            return out, idx, codes
+    values, hit, is_code = _clean_values(raw, var)
+    idx = np.flatnonzero(is_code)
+    return values, idx, hit.to_numpy()[idx]
 
 
 def _wave_dtype(waves) -> str | None:
