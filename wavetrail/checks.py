@@ -278,7 +278,7 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
     sub_order = sub["__order"].to_numpy()
     place = {w: i for i, w in enumerate(cb.study.waves)}
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
-    person, people = pd.factorize(sub[sid].to_numpy())  # one integer per person
+    person, n_people = _person_codes(sub[sid].to_numpy())  # one integer per person
     # the long table holds one row per distinct (id, wave) pair of these records: as many rows as
     # records means no pair repeats (no hashing of the pairs needed)
     if len(panel.long) != len(sub):
@@ -297,7 +297,7 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
         del keys, dup_all
     first_wave = cb.study.waves[0]
     # each person's first wave place: filled from the last place down, so the earliest wins
-    first_seen = np.full(len(people), len(cb.study.waves), dtype=np.int64)
+    first_seen = np.full(n_people, len(cb.study.waves), dtype=np.int64)
     for k in sorted(set(place.values()), reverse=True):
         first_seen[person[sub_order == k]] = k
     late = np.unique(first_seen[first_seen > 0])
@@ -534,6 +534,20 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
 # --------------------------------------------------------------------------- tables
 
 
+def _person_codes(ids: np.ndarray) -> tuple[np.ndarray, int]:
+    """One integer per person (in order of first appearance) and the number of people.
+
+    Sorted number ids (the long table's order) are numbered by runs, without hashing.
+    """
+    if ids.dtype.kind in "iu" and len(ids) > 1 and bool(np.all(ids[1:] >= ids[:-1])):
+        person = np.empty(len(ids), dtype=np.intp)
+        person[0] = 0
+        np.cumsum(ids[1:] != ids[:-1], out=person[1:])
+        return person, int(person[-1]) + 1
+    person, people = pd.factorize(ids, use_na_sentinel=False)
+    return person, len(people)
+
+
 def attrition(panel: Panel) -> pd.DataFrame:
     """People per wave.
 
@@ -547,12 +561,12 @@ def attrition(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     # people as integer codes, presence as one boolean vector per wave (set algebra on arrays)
-    person, people = pd.factorize(long[panel.id].to_numpy(), use_na_sentinel=False)
-    n_all = len(people)
+    person, n_all = _person_codes(long[panel.id].to_numpy())
+    wave_col = long[panel.wave].to_numpy()
     present = {}
     for w in panel.waves:
         has = np.zeros(n_all, dtype=bool)
-        has[person[(long[panel.wave] == w).to_numpy()]] = True
+        has[person[wave_col == w]] = True
         present[w] = has
     first = present[panel.waves[0]]
     n_first = int(first.sum())
@@ -587,23 +601,42 @@ def describe(panel: Panel) -> pd.DataFrame:
     for var in panel.codebook.data_variables():
         if var.identifier or var.type in ("text",) or var.name not in long.columns:
             continue
+        column = long[var.name]
+        numbers = column.to_numpy(dtype=float) if column.dtype.kind in "iuf" else None  # once per variable
         for w in panel.waves:
             if not var.measured_at(w):
                 continue
             if w not in in_wave:
                 in_wave[w] = (long[panel.wave] == w).to_numpy()
-            col = long[var.name][in_wave[w]]
-            row = {"variable": var.name, "wave": w, "n": int(col.notna().sum()),
-                   "missing": int(col.isna().sum()), "mean": np.nan, "sd": np.nan,
+            row = {"variable": var.name, "wave": w, "n": 0, "missing": 0, "mean": np.nan, "sd": np.nan,
                    "min": np.nan, "max": np.nan, "levels": ""}
-            if var.type in ("integer", "number"):
-                x = col.to_numpy(dtype=float)
-                x = x[np.isfinite(x)]
+            if var.type in ("integer", "number") and numbers is not None:
+                # on the array (no Series per wave): missing = NaN
+                x = numbers[in_wave[w]]
+                finite = np.isfinite(x)
+                row.update(n=int(np.count_nonzero(~np.isnan(x))), missing=int(np.count_nonzero(np.isnan(x))))
+                x = x[finite]
                 if len(x):
                     row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
                                sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
-            elif var.type == "category":
-                counts = col.value_counts(sort=False)
-                row["levels"] = "; ".join(f"{_show(k)}:{int(v)}" for k, v in counts.items())
+            elif var.type == "category" and isinstance(column.dtype, pd.CategoricalDtype):
+                # level counts from the codes, every level in level order (as value_counts(sort=False))
+                codes = column.array.codes[in_wave[w]]
+                counts = np.bincount(codes[codes >= 0], minlength=len(column.cat.categories))
+                row.update(n=int(np.count_nonzero(codes >= 0)), missing=int(np.count_nonzero(codes < 0)))
+                row["levels"] = "; ".join(f"{_show(k)}:{int(v)}"
+                                          for k, v in zip(column.cat.categories.tolist(), counts.tolist()))
+            else:
+                col = column[in_wave[w]]
+                row.update(n=int(col.notna().sum()), missing=int(col.isna().sum()))
+                if var.type in ("integer", "number"):
+                    x = col.to_numpy(dtype=float)
+                    x = x[np.isfinite(x)]
+                    if len(x):
+                        row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
+                                   sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
+                elif var.type == "category":
+                    counts = col.value_counts(sort=False)
+                    row["levels"] = "; ".join(f"{_show(k)}:{int(v)}" for k, v in counts.items())
             rows.append(row)
     return pd.DataFrame(rows, columns=["variable", "wave", "n", "missing", "mean", "sd", "min", "max", "levels"])
