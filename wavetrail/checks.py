@@ -597,37 +597,48 @@ def describe(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     rows = []
-    in_wave: dict = {}  # one mask per wave, made once for every variable
+    # the rows put in wave order once (stable: each wave's rows keep their order, so every sum runs as
+    # over a boolean selection); a wave's rows are then one slice of that order
+    wave_col = long[panel.wave].to_numpy()
+    by_wave = np.argsort(pd.factorize(wave_col)[0], kind="stable")
+    sorted_waves = wave_col[by_wave]
+    in_wave: dict = {}
     for var in panel.codebook.data_variables():
         if var.identifier or var.type in ("text",) or var.name not in long.columns:
             continue
         column = long[var.name]
-        numbers = column.to_numpy(dtype=float) if column.dtype.kind in "iuf" else None  # once per variable
+        numbers = codes = None
+        if var.type in ("integer", "number") and column.dtype.kind in "iuf":
+            numbers = column.to_numpy(dtype=float)[by_wave]
+        elif var.type == "category" and isinstance(column.dtype, pd.CategoricalDtype):
+            codes = column.array.codes[by_wave]
         for w in panel.waves:
             if not var.measured_at(w):
                 continue
             if w not in in_wave:
-                in_wave[w] = (long[panel.wave] == w).to_numpy()
+                at = np.flatnonzero(sorted_waves == w)
+                contiguous = len(at) == 0 or at[-1] - at[0] + 1 == len(at)
+                in_wave[w] = slice(int(at[0]), int(at[-1]) + 1) if len(at) and contiguous else \
+                    (slice(0, 0) if contiguous else np.sort(by_wave[at]))
+            part = in_wave[w]
             row = {"variable": var.name, "wave": w, "n": 0, "missing": 0, "mean": np.nan, "sd": np.nan,
                    "min": np.nan, "max": np.nan, "levels": ""}
-            if var.type in ("integer", "number") and numbers is not None:
-                # on the array (no Series per wave): missing = NaN
-                x = numbers[in_wave[w]]
-                finite = np.isfinite(x)
+            if numbers is not None and isinstance(part, slice):
+                x = numbers[part]  # missing = NaN
                 row.update(n=int(np.count_nonzero(~np.isnan(x))), missing=int(np.count_nonzero(np.isnan(x))))
-                x = x[finite]
+                x = x[np.isfinite(x)]
                 if len(x):
                     row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
                                sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
-            elif var.type == "category" and isinstance(column.dtype, pd.CategoricalDtype):
+            elif codes is not None and isinstance(part, slice):
                 # level counts from the codes, every level in level order (as value_counts(sort=False))
-                codes = column.array.codes[in_wave[w]]
-                counts = np.bincount(codes[codes >= 0], minlength=len(column.cat.categories))
-                row.update(n=int(np.count_nonzero(codes >= 0)), missing=int(np.count_nonzero(codes < 0)))
+                c = codes[part]
+                counts = np.bincount(c[c >= 0], minlength=len(column.cat.categories))
+                row.update(n=int(np.count_nonzero(c >= 0)), missing=int(np.count_nonzero(c < 0)))
                 row["levels"] = "; ".join(f"{_show(k)}:{int(v)}"
                                           for k, v in zip(column.cat.categories.tolist(), counts.tolist()))
             else:
-                col = column[in_wave[w]]
+                col = column.iloc[by_wave[part]] if isinstance(part, slice) else column.iloc[part]
                 row.update(n=int(col.notna().sum()), missing=int(col.isna().sum()))
                 if var.type in ("integer", "number"):
                     x = col.to_numpy(dtype=float)

@@ -615,16 +615,18 @@ def _cleaned_column(raw: pd.Series, var: Variable):
     array per cell); a float column without any code met is handed on as read (no copy).
     """
     values = raw.to_numpy()
-    if var.type in ("integer", "number") and values.dtype.kind in "iuf":
-        found = missing_code_index(raw, var)
-        if found is not None:
-            idx = np.flatnonzero(found >= 0)
-            kinds = found[idx]
-            del found
-            out = values.astype(float, copy=len(idx) > 0)
-            if len(idx):
-                out[idx] = np.nan
-            return out, idx, kinds
+    found = missing_code_index(raw, var)
+    if var.type in ("integer", "number") and values.dtype.kind in "iuf" and found is not None:
+        idx = np.flatnonzero(found >= 0)
+        kinds = found[idx]
+        del found
+        out = values.astype(float, copy=len(idx) > 0)
+        if len(idx):
+            out[idx] = np.nan
+        return out, idx, kinds
+    if found is not None and not (found >= 0).any():  # no code met: nothing to blank out
+        return _typed_values(raw, var), np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    del found
     values, hit, is_code = _clean_values(raw, var)
     idx = np.flatnonzero(is_code)
     place = {c: k for k, c in enumerate(var.missing)}
