@@ -600,7 +600,10 @@ def describe(panel: Panel) -> pd.DataFrame:
     # the rows put in wave order once (stable: each wave's rows keep their order, so every sum runs as
     # over a boolean selection); a wave's rows are then one slice of that order
     wave_col = long[panel.wave].to_numpy()
-    by_wave = np.argsort(pd.factorize(wave_col)[0], kind="stable")
+    wave_codes = pd.factorize(wave_col)[0]
+    if len(wave_codes) and wave_codes.max() < 2**15:  # small codes: numpy's stable sort is a radix sort
+        wave_codes = wave_codes.astype(np.int16)
+    by_wave = np.argsort(wave_codes, kind="stable")
     sorted_waves = wave_col[by_wave]
     in_wave: dict = {}
     for var in panel.codebook.data_variables():

@@ -36,7 +36,7 @@ MOMENT_PATH_MAX_P = 12
 #: moments at any p: per pattern p^4 / 4 products instead of the E^2 p of the entry pairs, plus one
 #: mapping to the parameters (k p^4) per evaluation, which many patterns repay (large panels with
 #: many items: every person a pattern of item non-response)
-MOMENT_PATH_MIN_CELLS = 1024
+MOMENT_PATH_MIN_CELLS = 512
 
 
 #: largest matrix size factorised by the element-wise loops of :func:`_spd_small`
