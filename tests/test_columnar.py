@@ -255,3 +255,84 @@ def test_missing_code_look_on_many_and_huge_numbers():
                          9.3e18, 1e19, -77, -97, 9997, 99_999, 7, 77.5]]).astype(float)
     with np.errstate(invalid="ignore"):
         assert looks_like_missing_code(v).tolist() == ref_looks_like_missing_code(v).tolist()
+
+
+# --------------------------------------------------------------------------- tidy panel from sorted records
+
+SORTED_CODEBOOK = """\
+study:
+  id: pid
+  wave: wave
+  waves: [1, 2, 3]
+  time_scores: [0, 1, 2]
+variables:
+  - {name: pid, type: integer}
+  - {name: it1, type: integer, range: [1, 5], missing: {-99: refused}, scale: mood}
+  - {name: it2, type: integer, range: [1, 5], missing: {-99: refused}, scale: mood}
+  - {name: it3, type: integer, range: [1, 5], missing: {-99: refused}, scale: mood}
+  - {name: sex, type: category, levels: {1: girl, 2: boy}, missing: {9: not said}}
+  - {name: hours, type: number}
+scales:
+  mood: {label: Mood}
+"""
+
+
+def _sorted_panel_frame(n_people=300, seed=5):
+    rng = np.random.default_rng(seed)
+    rows = [(p, w) for p in range(1, n_people + 1) for w in (1, 2, 3) if w == 1 or rng.random() < 0.8]
+    d = pd.DataFrame(rows, columns=["pid", "wave"])
+    for k in (1, 2, 3):
+        d[f"it{k}"] = rng.integers(1, 6, len(d))
+        d.loc[rng.random(len(d)) < 0.05, f"it{k}"] = -99
+        d.loc[rng.random(len(d)) < 0.01, f"it{k}"] = 7  # out of range
+    d["sex"] = rng.integers(1, 3, len(d))
+    d.loc[rng.random(len(d)) < 0.03, "sex"] = 9
+    d["hours"] = rng.gamma(2.0, 3.0, len(d)).round(1)
+    return d
+
+
+def test_records_in_order_and_shuffled_give_the_same_panel_and_findings(tmp_path):
+    """Sorted records take the run-based path (no hashing or sort of the (id, wave) pairs);
+    shuffled ones the sort; both must give the same long table, reasons and findings
+    (the file rows aside, which differ by construction)."""
+    from wavetrail.checks import describe, run_checks
+    from wavetrail.codebook import load_codebook
+    from wavetrail.panel import load_panel
+
+    (tmp_path / "cb.yaml").write_text(SORTED_CODEBOOK)
+    cb = load_codebook(tmp_path / "cb.yaml")
+    d = _sorted_panel_frame()
+    d.to_csv(tmp_path / "sorted.csv", index=False)
+    d.sample(frac=1.0, random_state=3).to_csv(tmp_path / "shuffled.csv", index=False)
+    a, b = load_panel([tmp_path / "sorted.csv"], cb), load_panel([tmp_path / "shuffled.csv"], cb)
+    pd.testing.assert_frame_equal(a.long, b.long)
+    pd.testing.assert_frame_equal(a.missing_reasons, b.missing_reasons)
+    assert len(a.missing_reasons) == int((d[["it1", "it2", "it3"]] == -99).sum().sum() + (d["sex"] == 9).sum())
+    fa, fb = run_checks(a).drop(columns="rows"), run_checks(b).drop(columns="rows")
+    pd.testing.assert_frame_equal(fa, fb)
+    assert set(fa["check"]) >= {"missing_code", "out_of_range"}
+    assert "duplicate_id" not in set(fa["check"])
+    pd.testing.assert_frame_equal(describe(a), describe(b))
+
+
+def test_long_table_shares_unchanged_read_columns_but_writes_stay_apart(tmp_path):
+    """Columns that cleaning leaves as read (the id; a number column without codes) are not
+    copied into the long table, and copy-on-write keeps a change to one out of the other."""
+    from wavetrail.codebook import load_codebook
+    from wavetrail.panel import load_panel
+
+    (tmp_path / "cb.yaml").write_text(SORTED_CODEBOOK)
+    d = _sorted_panel_frame()
+    d.to_csv(tmp_path / "p.csv", index=False)
+    panel = load_panel([tmp_path / "p.csv"], load_codebook(tmp_path / "cb.yaml"))
+    assert np.shares_memory(panel.long["hours"].to_numpy(), panel.records["hours"].to_numpy())
+    assert np.shares_memory(panel.long["pid"].to_numpy(), panel.records["pid"].to_numpy())
+    assert not np.shares_memory(panel.long["it1"].to_numpy(), panel.records["it1"].to_numpy())
+    first_hours, first_id = panel.records["hours"].iloc[0], panel.records["pid"].iloc[0]
+    panel.long.loc[0, "hours"] = -1.0
+    panel.long.loc[0, "pid"] = -5
+    assert panel.records["hours"].iloc[0] == first_hours and panel.records["pid"].iloc[0] == first_id
+    assert panel.long["hours"].iloc[0] == -1.0
+    # the code cells are blank in the long table and kept as read in the records
+    assert np.isnan(panel.long["it1"].to_numpy()[(d["it1"] == -99).to_numpy()]).all()
+    assert (panel.records["it1"].to_numpy()[(d["it1"] == -99).to_numpy()] == -99).all()

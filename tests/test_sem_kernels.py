@@ -190,3 +190,30 @@ def test_statistics_by_sorted_segments_equal_the_per_person_sums():
     ref = np.unique(obs[obs.any(axis=1)], axis=0)
     assert np.array_equal(masks, ref)
     assert (masks[idx[5:]] == obs[5:]).all()
+
+
+def test_information_over_moments_equals_entry_pairs_beyond_twelve_variables(monkeypatch):
+    """Above MOMENT_PATH_MAX_P variables, many patterns switch the information to the
+    saturated-moment accumulation; it must equal the entry-pair accumulation (a longitudinal
+    factor model with free loadings: 3 items x 6 waves = 18 variables, item non-response)."""
+    from wavetrail.invariance import invariance_spec
+
+    rng = np.random.default_rng(11)
+    n, items, waves = 600, 3, 6
+    eta = rng.normal(size=(n, waves)) + rng.normal(size=(n, 1))
+    Y = np.concatenate([(0.8 + 0.1 * j) * eta + rng.normal(0, 0.6, (n, waves)) for j in range(items)], axis=1)
+    Y = Y.reshape(n, items, waves).transpose(0, 2, 1).reshape(n, waves * items)  # wave-major, as the spec
+    Y[rng.random(Y.shape) < 0.15] = np.nan
+    spec = invariance_spec([f"i{j}" for j in range(items)], waves, "metric")
+    cm = spec.compile()
+    stats = SuffStats.from_data(Y)
+    assert stats.P > 50 and stats.p == 18
+    theta = start_values(spec, stats) * (1.0 + 0.05 * rng.normal(size=(1, cm.k)))
+    monkeypatch.setattr(lik, "MOMENT_PATH_MIN_CELLS", 10 ** 9)
+    ll_e, g_e, I_e = lik.evaluate(cm, theta, stats)
+    monkeypatch.setattr(lik, "MOMENT_PATH_MIN_CELLS", 0)
+    ll_m, g_m, I_m = lik.evaluate(cm, theta, stats)
+    assert np.isfinite(ll_e).all()
+    np.testing.assert_allclose(ll_m, ll_e, rtol=1e-12)
+    np.testing.assert_allclose(g_m, g_e, rtol=1e-9, atol=1e-9 * np.abs(g_e).max())
+    np.testing.assert_allclose(I_m, I_e, rtol=1e-9, atol=1e-11 * np.abs(I_e).max())  # summation order

@@ -45,7 +45,7 @@ import numpy as np
 import pandas as pd
 
 from wavetrail.codebook import Codebook, Variable, load_codebook
-from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, clean_values, derive_values, level_column, load_panel,
+from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, _categorical, clean_values, derive_values, load_panel,
                              match_missing, missing_code_index, text_column, wave_positions)
 
 __all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
@@ -119,12 +119,23 @@ class _Collector:
 
 
 def _where(rec: pd.DataFrame, mask) -> str:
-    idx = np.flatnonzero(np.asarray(mask, dtype=bool))[:MAX_ROWS]
+    """Up to MAX_ROWS ``file:row`` of the records in ``mask`` (a boolean mask, or sorted positions)."""
+    mask = np.asarray(mask)
+    idx = (np.flatnonzero(mask) if mask.dtype == bool else mask)[:MAX_ROWS]
     files, rows = rec[FILE].iloc[idx].tolist(), rec[ROW].iloc[idx].tolist()
     return "; ".join(f"{f}:{int(r)}" for f, r in zip(files, rows))
 
 
 def _examples(values, n=3) -> str:
+    """The first ``n`` distinct values, as shown in messages (a long Series: its head first)."""
+    if isinstance(values, pd.Series) and len(values) > 256:
+        head = _distinct_shown(values.iloc[:256], n)  # most columns show n distinct values early on
+        if len(head) == n:
+            return ", ".join(head)
+    return ", ".join(_distinct_shown(values, n))
+
+
+def _distinct_shown(values, n) -> list:
     seen = []
     for v in values:
         t = _show(v)
@@ -132,7 +143,7 @@ def _examples(values, n=3) -> str:
             seen.append(t)
         if len(seen) == n:
             break
-    return ", ".join(seen)
+    return seen
 
 
 def _show(v) -> str:
@@ -173,13 +184,11 @@ def run_checks(panel_or_paths, codebook: Codebook | str | None = None) -> pd.Dat
     waves = list(cb.study.waves)
     pos = wave_positions(rec[WAVE_RAW], waves)
     place = {w: i for i, w in enumerate(waves)}
-    wave_values = np.empty(len(waves) + 1, dtype=object)
-    wave_values[:-1] = waves
-    wave_values[-1] = None
-    wave = pd.Series(wave_values[pos], dtype=object)  # the codebook wave of each record (None: unknown)
-    # one mask per codebook wave (None: a wave not in study.waves), computed once for every check
+    # the place of each record's codebook wave (its last place; -1: a wave not in study.waves),
+    # computed once for every check; the wave itself is waves[__order] (see _record_waves)
     order = np.asarray([place[w] for w in waves] + [-1], dtype=np.int64)[pos]
-    rec = rec.assign(__wave=wave, __order=order)
+    del pos
+    rec = rec.assign(__order=order)
 
     _structure(panel, out)
     _ids_and_waves(panel, rec, out)
@@ -242,6 +251,15 @@ def _structure(panel: Panel, out: _Collector) -> None:
                         variable=name, rows=src.name)
 
 
+def _record_waves(rec: pd.DataFrame, cb: Codebook) -> pd.Series:
+    """The codebook wave of each record (None: a wave not in ``study.waves``), as objects."""
+    waves = list(cb.study.waves)
+    wave_values = np.empty(len(waves) + 1, dtype=object)
+    wave_values[:-1] = waves
+    wave_values[-1] = None
+    return pd.Series(wave_values[rec["__order"].to_numpy()], index=rec.index, dtype=object)
+
+
 def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
     sid, cb = panel.id, panel.codebook
     no_id = rec[sid].isna().to_numpy()
@@ -256,40 +274,52 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                 f"(e.g. {vals})", variable=panel.wave, count=int(bad_wave.sum()), rows=_where(rec, bad_wave))
     ok = ~no_id & ~bad_wave
     # only the columns used below; every record when all have an id and a known wave (no copy)
-    sub = rec if ok.all() else rec.loc[ok, [sid, "__wave", "__order", FILE, ROW]]
+    sub = rec if ok.all() else rec.loc[ok, [sid, "__order", FILE, ROW]]
+    sub_order = sub["__order"].to_numpy()
+    place = {w: i for i, w in enumerate(cb.study.waves)}
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
-    person, _ = pd.factorize(sub[sid].to_numpy())  # one integer per (id, wave order)
-    keys = pd.Series(person.astype(np.int64) * (len(cb.study.waves) + 1) + sub["__order"].to_numpy())
-    dup_all = keys.duplicated(keep=False).to_numpy()
-    if dup_all.any():
-        extra = keys.duplicated(keep="first").to_numpy()
-        for w in cb.study.waves:
-            in_w = (sub["__wave"] == w).to_numpy()
-            n = int((extra & in_w).sum())
-            if n:
-                out.add("duplicate_id", "error",
-                        f"{n} extra record(s) repeat an ({sid}, wave) pair at wave {w} (file rows in "
-                        "`rows`); only the first is used", variable=sid, wave=w, count=n,
-                        rows=_where(sub, dup_all & in_w))
+    person, n_people = _person_codes(sub[sid].to_numpy())  # one integer per person
+    # the long table holds one row per distinct (id, wave) pair of these records: as many rows as
+    # records means no pair repeats (no hashing of the pairs needed)
+    if len(panel.long) != len(sub):
+        keys = pd.Series(person.astype(np.int64) * (len(cb.study.waves) + 1) + sub_order)
+        dup_all = keys.duplicated(keep=False).to_numpy()
+        if dup_all.any():
+            extra = keys.duplicated(keep="first").to_numpy()
+            for w in cb.study.waves:
+                in_w = sub_order == place[w]
+                n = int((extra & in_w).sum())
+                if n:
+                    out.add("duplicate_id", "error",
+                            f"{n} extra record(s) repeat an ({sid}, wave) pair at wave {w} (file rows in "
+                            "`rows`); only the first is used", variable=sid, wave=w, count=n,
+                            rows=_where(sub, dup_all & in_w))
+        del keys, dup_all
     first_wave = cb.study.waves[0]
-    order = {w: i for i, w in enumerate(cb.study.waves)}
-    first_seen = pd.Series(sub["__order"].to_numpy()).groupby(sub[sid].to_numpy()).min()
-    late = first_seen[first_seen > 0]
-    if len(late):
-        for o, grp in late.groupby(late):
-            w = cb.study.waves[int(o)]
-            mask = sub[sid].isin(grp.index).to_numpy() & (sub["__wave"] == w).to_numpy()
-            out.add("late_entry", "warning",
-                    f"{len(grp)} id(s) first appear at wave {w}, not at wave {first_wave} "
-                    "(file rows in `rows`)", variable=sid, wave=w, count=len(grp),
-                    rows=_where(sub, mask))
+    # each person's first wave place: filled from the last place down, so the earliest wins
+    first_seen = np.full(n_people, len(cb.study.waves), dtype=np.int64)
+    for k in sorted(set(place.values()), reverse=True):
+        first_seen[person[sub_order == k]] = k
+    late = np.unique(first_seen[first_seen > 0])
+    for o in late.tolist():
+        w = cb.study.waves[int(o)]
+        who = first_seen == o
+        mask = who[person] & (sub_order == o)
+        out.add("late_entry", "warning",
+                f"{int(who.sum())} id(s) first appear at wave {w}, not at wave {first_wave} "
+                "(file rows in `rows`)", variable=sid, wave=w, count=int(who.sum()),
+                rows=_where(sub, mask))
 
 
 def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> None:
     raw = rec[var.name]
-    wave = rec["__wave"]
     order = rec["__order"].to_numpy()
-    empty = raw.isna().to_numpy()
+    waves = list(cb.study.waves)
+    place = {w: i for i, w in enumerate(waves)}  # a repeated wave: its last place
+    values = raw.to_numpy()
+    numeric = values.dtype.kind in "iuf"
+    empty = np.isnan(values) if values.dtype.kind == "f" else (
+        np.zeros(len(values), dtype=bool) if numeric else raw.isna().to_numpy())
     found = missing_code_index(raw, var)
     if found is None:  # a column mixing kinds of values: value by value
         hits = match_missing(raw, var)
@@ -297,83 +327,97 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
     else:
         code = found >= 0
     filled = ~empty & ~code
-    in_wave = {w: order == i for i, w in enumerate(cb.study.waves)}  # a repeated wave: its last place
+    del empty
 
-    def emit(check, severity, mask, message):
-        if not mask.any():
-            return
-        for w in list(cb.study.waves) + [None]:
-            in_w = (order < 0) if w is None else in_wave[w]
-            m = mask & in_w
-            n = int(m.sum())
-            if n:
-                vals = "values withheld: identifier" if var.identifier else _examples(raw[m])
-                out.add(check, severity, message(n, vals), variable=var.name, wave=w, count=n,
-                        rows=_where(rec, m))
+    def by_wave(at):
+        """The positions ``at`` (sorted) split by codebook wave, in the order findings are listed."""
+        o = order[at]
+        for w in waves + [None]:
+            sel = at[o < 0] if w is None else at[o == place[w]]
+            if len(sel):
+                yield w, sel
 
-    if code.any():
-        for w in cb.study.waves:
-            in_w = in_wave[w]
-            m = code & in_w
-            if m.any():
-                if found is not None:  # the codes met, in order of first appearance (as value_counts)
-                    ks, first_at, n_k = np.unique(found[m], return_index=True, return_counts=True)
-                    keys = list(var.missing)
-                    pairs = [(keys[k], n) for _, k, n in sorted(zip(first_at.tolist(), ks.tolist(),
-                                                                    n_k.tolist()))]
-                else:
-                    pairs = list(hits[m].value_counts(sort=False).items())
-                parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in pairs]
-                out.add("missing_code", "info", f"{int(m.sum())} value(s) set to missing: " + ", ".join(parts),
-                        variable=var.name, wave=w, count=int(m.sum()), rows=_where(rec, m))
+    def emit(check, severity, at, message):
+        """One finding per wave for the records at positions ``at`` (sorted)."""
+        for w, sel in by_wave(at):
+            n = len(sel)
+            vals = "values withheld: identifier" if var.identifier else _examples(raw.iloc[sel])
+            out.add(check, severity, message(n, vals), variable=var.name, wave=w, count=n,
+                    rows=_where(rec, sel))
+
+    at_code = np.flatnonzero(code)
+    if len(at_code):
+        for w, sel in by_wave(at_code):
+            if w is None:
+                continue
+            if found is not None:  # the codes met, in order of first appearance (as value_counts)
+                ks, first_at, n_k = np.unique(found[sel], return_index=True, return_counts=True)
+                keys = list(var.missing)
+                pairs = [(keys[k], n) for _, k, n in sorted(zip(first_at.tolist(), ks.tolist(),
+                                                                n_k.tolist()))]
+            else:
+                pairs = list(hits.iloc[sel].value_counts(sort=False).items())
+            parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in pairs]
+            out.add("missing_code", "info", f"{len(sel)} value(s) set to missing: " + ", ".join(parts),
+                    variable=var.name, wave=w, count=len(sel), rows=_where(rec, sel))
+    del at_code, code, found
 
     if var.waves is not None:
-        off = filled & wave.notna().to_numpy() & ~wave.isin(list(var.waves)).to_numpy()
+        # the codebook wave of a record is waves[order] (order < 0: none); listed = among var.waves
+        listed = np.append(pd.Series(np.asarray(waves + [None], dtype=object)[:-1], dtype=object)
+                           .isin(list(var.waves)).to_numpy(), True)
+        off = filled & ~listed[order]
         if off.any():
             _unexpected_waves(var, rec, off, out, cb)
 
     if var.type in ("integer", "number"):
-        num = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+        num = values.astype(float, copy=False) if numeric else pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
         bad = filled & np.isnan(num)
         if var.type == "integer":
             bad = bad | (filled & np.isfinite(num) & (num != np.round(num)))
-        emit("type_mismatch", "error", bad,
+        emit("type_mismatch", "error", np.flatnonzero(bad),
              lambda n, v: f"{n} value(s) are not {'whole numbers' if var.type == 'integer' else 'numbers'} "
                           f"(e.g. {v})")
-        ok = filled & np.isfinite(num)
-        codelike = looks_like_missing_code(num)
+        del bad
         if var.range is not None:
             lo, hi = var.range
+            with np.errstate(invalid="ignore"):
+                at = np.flatnonzero(filled & ((num < lo) | (num > hi)))  # outside the range (NaN never is)
+            x = num[at]
+            at = at[np.isfinite(x)]
+            x = num[at]
+            codelike = looks_like_missing_code(x)
             if hi < 9:  # a lone 9 on a short item is a classic "no answer" code
-                codelike = codelike | (num == 9)
-            outside = ok & ((num < lo) | (num > hi))
-            emit("suspected_missing_code", "error", outside & codelike,
+                codelike = codelike | (x == 9)
+            emit("suspected_missing_code", "error", at[codelike],
                  lambda n, v: f"{n} value(s) look like missing codes not declared under `missing` "
                               f"(e.g. {v} on a {lo}-{hi} item); declare them or correct the data")
-            emit("out_of_range", "error", outside & ~codelike,
+            emit("out_of_range", "error", at[~codelike],
                  lambda n, v: f"{n} value(s) outside the range [{lo}, {hi}] (e.g. {v})")
         else:
-            neg = ok & (num < 0) & codelike
-            if neg.any() and (ok & (num >= 0)).sum() > 0 and not (ok & (num < 0) & ~codelike).any():
-                emit("suspected_missing_code", "warning", neg,
+            ok = filled & np.isfinite(num)
+            at = np.flatnonzero(ok & (num < 0))
+            codelike = looks_like_missing_code(num[at])
+            if codelike.any() and (ok & (num >= 0)).any() and codelike.all():
+                emit("suspected_missing_code", "warning", at,
                      lambda n, v: f"{n} negative value(s) that look like missing codes (e.g. {v}) among "
                                   "otherwise non-negative values; declare them under `missing` or give a range")
     elif var.type == "category":
         codes = list(var.levels)
-        level = level_column(raw, codes)
-        unknown = filled & pd.isna(level)
-        num = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
-        codelike = looks_like_missing_code(num) & unknown
-        emit("suspected_missing_code", "error", codelike,
+        # the level of each cell, worked out once per distinct value (code -1: no level)
+        at = np.flatnonzero(filled & (_categorical(raw, codes, False).codes < 0))
+        num = pd.to_numeric(raw.iloc[at], errors="coerce").to_numpy(dtype=float)
+        codelike = looks_like_missing_code(num)
+        emit("suspected_missing_code", "error", at[codelike],
              lambda n, v: f"{n} value(s) look like missing codes not declared under `missing` (e.g. {v}); "
                           "declare them or correct the data")
-        emit("unknown_level", "error", unknown & ~codelike,
+        emit("unknown_level", "error", at[~codelike],
              lambda n, v: f"{n} value(s) are not among the levels {', '.join(map(_show, codes))} (e.g. {v})")
     elif var.type == "date":
         text = pd.Series(text_column(raw), index=raw.index, dtype=object)
         parsed = pd.to_datetime(text, errors="coerce", format="ISO8601")
         bad = filled & parsed.isna().to_numpy()
-        emit("type_mismatch", "error", bad,
+        emit("type_mismatch", "error", np.flatnonzero(bad),
              lambda n, v: f"{n} value(s) are not dates (YYYY-MM-DD) (e.g. {v})")
 
 
@@ -387,7 +431,8 @@ def _unexpected_waves(var: Variable, rec: pd.DataFrame, off: np.ndarray, out: _C
     sid = cb.study.id
     values, _ = clean_values(rec[var.name].reset_index(drop=True), var)
     values = pd.Series(np.asarray(values, dtype=object))
-    listed = ~off & rec["__wave"].isin(list(var.waves)).to_numpy() & values.notna().to_numpy()
+    wave = _record_waves(rec, cb)
+    listed = ~off & wave.isin(list(var.waves)).to_numpy() & values.notna().to_numpy()
     ref = pd.Series(values[listed].to_numpy(), index=rec.loc[listed, sid].astype(str).to_numpy())
     ref = ref[~ref.index.duplicated(keep="first")]
     mine = pd.Series(rec[sid].astype(str).to_numpy()).map(ref)
@@ -396,10 +441,10 @@ def _unexpected_waves(var: Variable, rec: pd.DataFrame, off: np.ndarray, out: _C
         & (values.astype(str).to_numpy() == mine.astype(str).to_numpy())
     differ = off & ~same
     listed_text = ", ".join(map(str, var.waves))
-    later = sorted({str(w) for w in rec.loc[off, "__wave"]})
+    later = sorted({str(w) for w in wave[off]})
 
     def one_wave(mask):
-        ws = list(dict.fromkeys(rec.loc[mask, "__wave"]))
+        ws = list(dict.fromkeys(wave[mask]))
         return ws[0] if len(ws) == 1 else None
 
     if same.any():
@@ -420,8 +465,8 @@ def _derived(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) ->
     """A derived variable: its source values outside the transform's domain, its range."""
     src = cb.variables[var.derived_from]
     cleaned, _ = clean_values(rec[src.name].reset_index(drop=True), src)
-    values, invalid = derive_values(cleaned, rec["__wave"].to_numpy(), var.transform)
-    wave = rec["__wave"]
+    wave = _record_waves(rec, cb)
+    values, invalid = derive_values(cleaned, wave.to_numpy(), var.transform)
     need = {"log": "above 0", "log1p": "above -1", "sqrt": "0 or above"}.get(var.transform, "")
     fix = {"log": "use `transform: log1p` if zeros are valid values, declare a code such as 0 under `missing` "
                   f"of {src.name} if it means 'no value', or correct the data",
@@ -489,6 +534,20 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
 # --------------------------------------------------------------------------- tables
 
 
+def _person_codes(ids: np.ndarray) -> tuple[np.ndarray, int]:
+    """One integer per person (in order of first appearance) and the number of people.
+
+    Sorted number ids (the long table's order) are numbered by runs, without hashing.
+    """
+    if ids.dtype.kind in "iu" and len(ids) > 1 and bool(np.all(ids[1:] >= ids[:-1])):
+        person = np.empty(len(ids), dtype=np.intp)
+        person[0] = 0
+        np.cumsum(ids[1:] != ids[:-1], out=person[1:])
+        return person, int(person[-1]) + 1
+    person, people = pd.factorize(ids, use_na_sentinel=False)
+    return person, len(people)
+
+
 def attrition(panel: Panel) -> pd.DataFrame:
     """People per wave.
 
@@ -502,12 +561,12 @@ def attrition(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     # people as integer codes, presence as one boolean vector per wave (set algebra on arrays)
-    person, people = pd.factorize(long[panel.id].to_numpy(), use_na_sentinel=False)
-    n_all = len(people)
+    person, n_all = _person_codes(long[panel.id].to_numpy())
+    wave_col = long[panel.wave].to_numpy()
     present = {}
     for w in panel.waves:
         has = np.zeros(n_all, dtype=bool)
-        has[person[(long[panel.wave] == w).to_numpy()]] = True
+        has[person[wave_col == w]] = True
         present[w] = has
     first = present[panel.waves[0]]
     n_first = int(first.sum())
@@ -538,27 +597,60 @@ def describe(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     rows = []
-    in_wave: dict = {}  # one mask per wave, made once for every variable
+    # the rows put in wave order once (stable: each wave's rows keep their order, so every sum runs as
+    # over a boolean selection); a wave's rows are then one slice of that order
+    wave_col = long[panel.wave].to_numpy()
+    wave_codes = pd.factorize(wave_col)[0]
+    if len(wave_codes) and wave_codes.max() < 2**15:  # small codes: numpy's stable sort is a radix sort
+        wave_codes = wave_codes.astype(np.int16)
+    by_wave = np.argsort(wave_codes, kind="stable")
+    sorted_waves = wave_col[by_wave]
+    in_wave: dict = {}
     for var in panel.codebook.data_variables():
         if var.identifier or var.type in ("text",) or var.name not in long.columns:
             continue
+        column = long[var.name]
+        numbers = codes = None
+        if var.type in ("integer", "number") and column.dtype.kind in "iuf":
+            numbers = column.to_numpy(dtype=float)[by_wave]
+        elif var.type == "category" and isinstance(column.dtype, pd.CategoricalDtype):
+            codes = column.array.codes[by_wave]
         for w in panel.waves:
             if not var.measured_at(w):
                 continue
             if w not in in_wave:
-                in_wave[w] = (long[panel.wave] == w).to_numpy()
-            col = long[var.name][in_wave[w]]
-            row = {"variable": var.name, "wave": w, "n": int(col.notna().sum()),
-                   "missing": int(col.isna().sum()), "mean": np.nan, "sd": np.nan,
+                at = np.flatnonzero(sorted_waves == w)
+                contiguous = len(at) == 0 or at[-1] - at[0] + 1 == len(at)
+                in_wave[w] = slice(int(at[0]), int(at[-1]) + 1) if len(at) and contiguous else \
+                    (slice(0, 0) if contiguous else np.sort(by_wave[at]))
+            part = in_wave[w]
+            row = {"variable": var.name, "wave": w, "n": 0, "missing": 0, "mean": np.nan, "sd": np.nan,
                    "min": np.nan, "max": np.nan, "levels": ""}
-            if var.type in ("integer", "number"):
-                x = col.to_numpy(dtype=float)
+            if numbers is not None and isinstance(part, slice):
+                x = numbers[part]  # missing = NaN
+                row.update(n=int(np.count_nonzero(~np.isnan(x))), missing=int(np.count_nonzero(np.isnan(x))))
                 x = x[np.isfinite(x)]
                 if len(x):
                     row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
                                sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
-            elif var.type == "category":
-                counts = col.value_counts(sort=False)
-                row["levels"] = "; ".join(f"{_show(k)}:{int(v)}" for k, v in counts.items())
+            elif codes is not None and isinstance(part, slice):
+                # level counts from the codes, every level in level order (as value_counts(sort=False))
+                c = codes[part]
+                counts = np.bincount(c[c >= 0], minlength=len(column.cat.categories))
+                row.update(n=int(np.count_nonzero(c >= 0)), missing=int(np.count_nonzero(c < 0)))
+                row["levels"] = "; ".join(f"{_show(k)}:{int(v)}"
+                                          for k, v in zip(column.cat.categories.tolist(), counts.tolist()))
+            else:
+                col = column.iloc[by_wave[part]] if isinstance(part, slice) else column.iloc[part]
+                row.update(n=int(col.notna().sum()), missing=int(col.isna().sum()))
+                if var.type in ("integer", "number"):
+                    x = col.to_numpy(dtype=float)
+                    x = x[np.isfinite(x)]
+                    if len(x):
+                        row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
+                                   sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
+                elif var.type == "category":
+                    counts = col.value_counts(sort=False)
+                    row["levels"] = "; ".join(f"{_show(k)}:{int(v)}" for k, v in counts.items())
             rows.append(row)
     return pd.DataFrame(rows, columns=["variable", "wave", "n", "missing", "mean", "sd", "min", "max", "levels"])

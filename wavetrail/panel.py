@@ -185,7 +185,13 @@ def wave_positions(raw, waves) -> np.ndarray:
     lookup: dict = {}
     for i, w in enumerate(waves):
         lookup[wave_key(w)] = i  # a later wave with the same key wins, as in a dict
-    return map_column(raw, lambda v: lookup.get(wave_key(v), -1)).astype(np.int64)
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    fact = factorize_column(values)
+    if fact is None:
+        return map_column(raw, lambda v: lookup.get(wave_key(v), -1)).astype(np.int64)
+    codes, uniq = fact  # one look-up per distinct value; a missing cell (code -1) is no wave
+    at = np.asarray([lookup.get(wave_key(v), -1) for v in uniq] + [-1], dtype=np.int64)
+    return at[codes]
 
 
 def _to_text(v):
@@ -405,7 +411,9 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
     wave_col = study.wave
     if wave_col in frame.columns:
         raw_wave = frame[wave_col]
-        keys = sorted({k for k in pd.unique(wave_keys(raw_wave)) if k is not None})
+        fact = factorize_column(raw_wave)  # the distinct wave values, each keyed once
+        distinct = pd.unique(wave_keys(raw_wave)) if fact is None else [wave_key(v) for v in fact[1]]
+        keys = sorted({k for k in distinct if k is not None})
         lookup = {wave_key(w): w for w in study.waves}
         waves = [lookup[k] for k in keys if k in lookup]
     elif n_files == len(study.waves) or len(study.waves) == 1:
@@ -531,39 +539,54 @@ def _clean(panel: Panel):
     order_of_pos = np.asarray([place[w] for w in waves], dtype=np.int64)
     # which records make the long table, in which order: worked out on (id, wave order) alone, then
     # each column taken once (no copy of the whole record table)
-    kept = np.flatnonzero(keep)
-    ids_kept = rec[panel.id].to_numpy()[kept]
-    order_kept = order_of_pos[pos[kept]]
+    every = bool(keep.all())
+    kept = np.arange(len(keep)) if every else np.flatnonzero(keep)
+    ids_kept = rec[panel.id].to_numpy() if every else rec[panel.id].to_numpy()[kept]
+    order_kept = order_of_pos[pos] if every else order_of_pos[pos[kept]]
     # one integer per (id, wave order), ids numbered in sorted order: the sorted distinct keys with
     # the first record of each are the long rows (a repeated pair keeps its first record), in order
-    person, _ = pd.factorize(ids_kept, sort=True)
-    _, first_at = np.unique(person.astype(np.int64) * len(waves) + order_kept, return_index=True)
-    del person, pos, keep
+    first_at = _sorted_pairs(ids_kept, order_kept, len(waves))
+    if first_at is None:
+        person, _ = pd.factorize(ids_kept, sort=True)
+        _, first_at = np.unique(person.astype(np.int64) * len(waves) + order_kept, return_index=True)
+        del person
+    del pos, keep
     take = kept[first_at]  # record positions of the long rows
-    base_id = ids_kept[first_at]
     base_order = order_kept[first_at]
+    # the usual file: every record is a long row, in order; then the long table shares the read
+    # columns that cleaning leaves as they are (through pandas, so copy-on-write keeps them apart)
+    whole = len(take) == len(rec) and bool(np.all(take == np.arange(len(take))))
+    id_column = rec[panel.id] if whole else None
+    base_id = id_column.to_numpy() if whole else ids_kept[first_at]
     del ids_kept, order_kept, kept, first_at
     wave_values = np.empty(len(waves), dtype=object)
     wave_values[:] = waves
-    base_wave = wave_values[base_order]
-    columns = {panel.id: base_id,
-               panel.wave: pd.Series(base_wave, dtype=_wave_dtype(cb.study.waves)).to_numpy()}
-    reasons = []
+    if _wave_dtype(cb.study.waves) == "int64":
+        wave_column = np.asarray(waves, dtype=np.int64)[base_order]
+    else:
+        wave_column = pd.Series(wave_values[base_order], dtype=object).to_numpy()
+    columns = {panel.id: id_column.reset_index(drop=True) if whole else base_id, panel.wave: wave_column}
+    reasons: list[tuple] = []  # per variable with codes met: ids, waves, (variable, code) numbers
+    reason_keys: list[tuple] = []
     for var in cb.file_variables():
         if var.name == panel.wave:
             continue
-        raw = rec[var.name].iloc[take] if var.name in rec.columns else pd.Series([np.nan] * len(take))
-        values, hit, is_code = _clean_values(raw.reset_index(drop=True), var)
-        columns[var.name] = values
-        if is_code.any():
-            idx = np.flatnonzero(is_code)
-            reasons.append(pd.DataFrame({
-                "id": base_id[idx],
-                "wave": base_wave[idx],
-                "variable": var.name,
-                "code": map_column(hit.to_numpy()[idx], lambda c: str(_fmt_code(c))),
-                "reason": map_column(hit.to_numpy()[idx], lambda c: var.missing.get(c, "")),
-            }))
+        if var.name not in rec.columns:
+            raw = pd.Series([np.nan] * len(take))
+        elif whole:
+            raw = rec[var.name].reset_index(drop=True)
+        else:
+            raw = rec[var.name].iloc[take].reset_index(drop=True)
+        values, idx, kinds = _cleaned_column(raw, var)
+        shared = isinstance(values, np.ndarray) and values.dtype == raw.dtype \
+            and np.may_share_memory(values, raw.to_numpy())
+        columns[var.name] = raw if shared else values
+        if len(idx):
+            # the reasons table holds text by (variable, code): numbered here, written out once below
+            first = len(reason_keys)
+            reason_keys.extend((var.name, str(_fmt_code(c)), var.missing.get(c, "")) for c in var.missing)
+            reasons.append((base_id[idx], wave_values[base_order[idx]], kinds + first))
+        del raw, values, idx, kinds
     for var in cb.data_variables():
         if var.derived:
             columns[var.name] = derive_values(columns[var.derived_from], columns[panel.wave], var.transform)[0]
@@ -572,13 +595,69 @@ def _clean(panel: Panel):
         if isinstance(col, pd.Categorical):
             long[name] = col
     if reasons:
-        missing = pd.concat(reasons, ignore_index=True)
+        which = np.concatenate([r[2] for r in reasons])
+        missing = pd.DataFrame({
+            "id": np.concatenate([r[0] for r in reasons]),
+            "wave": np.concatenate([r[1] for r in reasons]),
+            "variable": _text_take([k[0] for k in reason_keys], which),
+            "code": _text_take([k[1] for k in reason_keys], which),
+            "reason": _text_take([k[2] for k in reason_keys], which),
+        })
+        del which
     else:
         missing = pd.DataFrame({"id": [], "wave": [], "variable": [], "code": [], "reason": []})
-    files = rec[FILE].iloc[take].reset_index(drop=True)
+    files = rec[FILE] if whole else rec[FILE].iloc[take].reset_index(drop=True)
     origin = pd.DataFrame({FILE: files.to_numpy(dtype=object) if files.dtype == object else files.array,
-                           ROW: rec[ROW].to_numpy()[take]})
+                           ROW: rec[ROW].to_numpy() if whole else rec[ROW].to_numpy()[take]}, copy=False)
     return long, missing, origin
+
+
+def _text_take(distinct: list, at: np.ndarray):
+    """``[distinct[i] for i in at]`` as the column pandas makes of it (its text type for text), built by
+    one take from the few distinct values rather than a conversion per cell."""
+    values = np.empty(len(distinct), dtype=object)
+    values[:] = distinct
+    dtype = pd.Series(values).dtype  # the type pandas gives these values
+    if isinstance(dtype, pd.api.extensions.ExtensionDtype):
+        return pd.array(values, dtype=dtype).take(at)
+    return values[at]
+
+
+def _sorted_pairs(ids: np.ndarray, order: np.ndarray, n_waves: int) -> np.ndarray | None:
+    """``arange(n)`` when number ids come sorted and each (id, wave order) pair once, in order
+    (what the sort of the pairs would give, without sorting); None otherwise."""
+    if ids.dtype.kind not in "iu" or len(ids) < 2:
+        return None
+    step = ids[1:] != ids[:-1]
+    if not bool(np.all(ids[1:] >= ids[:-1])) or not bool(np.all(step | (order[1:] > order[:-1]))):
+        return None
+    return np.arange(len(ids))
+
+
+def _cleaned_column(raw: pd.Series, var: Variable):
+    """The cleaned column of :func:`_clean_values`, the positions that held a declared missing
+    code and which code each held (its place in ``var.missing``).
+
+    A number column checked against number codes is cleaned in place of a float copy (no object
+    array per cell); a float column without any code met is handed on as read (no copy).
+    """
+    values = raw.to_numpy()
+    found = missing_code_index(raw, var)
+    if var.type in ("integer", "number") and values.dtype.kind in "iuf" and found is not None:
+        idx = np.flatnonzero(found >= 0)
+        kinds = found[idx]
+        del found
+        out = values.astype(float, copy=len(idx) > 0)
+        if len(idx):
+            out[idx] = np.nan
+        return out, idx, kinds
+    if found is not None and not (found >= 0).any():  # no code met: nothing to blank out
+        return _typed_values(raw, var), np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    del found
+    values, hit, is_code = _clean_values(raw, var)
+    idx = np.flatnonzero(is_code)
+    place = {c: k for k, c in enumerate(var.missing)}
+    return values, idx, np.asarray([place[c] for c in hit.to_numpy()[idx]], dtype=np.int64)
 
 
 def _wave_dtype(waves) -> str | None:

@@ -246,8 +246,8 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
         if not np.any((first == 10) | (first == 13) | (first == 32) | (first == 9)):
             # no line empty or starting blank: every line holds a record (no per-line look needed)
             if first_rec is None:
-                for line in piece.split(b"\n", 2)[:min(2, len(nl))]:
-                    line = line.rstrip(b"\r")
+                for i in range(min(2, len(nl))):  # (not piece.split, which copies the rest of the piece)
+                    line = piece[int(starts[i]):int(nl[i])].rstrip(b"\r")
                     if header_bytes is None:
                         header_bytes = line
                     elif first_rec is None:

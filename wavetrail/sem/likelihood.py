@@ -32,6 +32,12 @@ LOG2PI = np.log(2.0 * np.pi)
 #: largest p for which the information is accumulated over the saturated moments
 MOMENT_PATH_MAX_P = 12
 
+#: from this many (model, pattern) cells on, the information is accumulated over the saturated
+#: moments at any p: per pattern p^4 / 4 products instead of the E^2 p of the entry pairs, plus one
+#: mapping to the parameters (k p^4) per evaluation, which many patterns repay (large panels with
+#: many items: every person a pattern of item non-response)
+MOMENT_PATH_MIN_CELLS = 512
+
 
 #: largest matrix size factorised by the element-wise loops of :func:`_spd_small`
 SMALL_P = 12
@@ -245,7 +251,7 @@ def evaluate(cm, theta, stats, grad=True, info=True, base=None):
     nB = stats.n
     if nB.shape[0] not in (1, B):
         raise ValueError(f"statistics hold {nB.shape[0]} samples but {B} parameter vectors were given")
-    via_moments = info and p <= MOMENT_PATH_MAX_P
+    via_moments = info and (p <= MOMENT_PATH_MAX_P or cells >= MOMENT_PATH_MIN_CELLS)
     mv = p * (p + 1) // 2
     acc = {"ll": np.zeros(B), "ok": np.ones(B, dtype=bool)}
     if grad:
