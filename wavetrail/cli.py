@@ -372,6 +372,9 @@ def _show_renamed(message, category, filename, lineno, file=None, line=None):
 
 def main(argv: list[str] | None = None) -> int:
     """Console entry point: run the app, turn WavetrailError into a message and exit code."""
+    global console, err_console
+    # fresh consoles per call, so the width (terminal or COLUMNS) is the one in force now
+    console, err_console = Console(highlight=False), Console(stderr=True, highlight=False)
     with warnings.catch_warnings():
         warnings.showwarning = _show_renamed
         return _main(argv)
