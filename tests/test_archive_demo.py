@@ -65,7 +65,11 @@ def test_demo_stand_in_rebuilds_end_to_end(archives):
     assert report.ok, report.summary
     statuses = _rebuild_statuses(report)
     assert statuses.pop("workflow") == "ok"
-    assert set(statuses.values()) == {"rebuilt on stand-in"}
+    # a figure drawn only when the data show something (the forest's, when it splits) may be
+    # absent on synthetic rows: a note, never for a table
+    notes = {k for k, v in statuses.items() if v == "note"}
+    assert all(k.startswith("results/write-up/figures/") for k in notes), sorted(notes)
+    assert set(statuses.values()) <= {"rebuilt on stand-in", "note"} and len(statuses) - len(notes) >= 40
     assert "stand-in: the outputs were rebuilt on the STAND-IN rows and not compared" in report.summary
 
 

@@ -97,3 +97,22 @@ def test_an_inadmissible_leaf_scores_under_its_parent():
     tree._scoring = None
     same = oob_drop(tree, model, Y[150:], X[150:], np.random.default_rng(1))
     assert np.isfinite(after).all() and after[0] == same[0] and after[0] != before[0]
+
+
+def test_a_subsample_too_small_to_split_is_not_fitted():
+    # 16 people over 11 waves: the default minimum node size (2 (p + 1) = 24) exceeds half of
+    # any subsample, so each tree is its root at the whole-sample estimate, with no fit
+    rng = np.random.default_rng(5)
+    times = [float(t) for t in range(11)]
+    n = 16
+    Y = rng.normal(10, 2, n)[:, None] + rng.normal(1, .3, n)[:, None] * np.array(times) + rng.normal(0, 1, (n, 11))
+    wide = pd.DataFrame(Y, columns=times)
+    pred = pd.DataFrame({"g": pd.Categorical(rng.integers(0, 2, n))}, index=wide.index)
+    forest = grow_forest(wide, pred, times, trees=20, seed=1)
+    roots = np.array([t.theta_[0] for t in forest.trees_])
+    assert all(t.n_leaves_ == 1 and t.nodes[0].get("unfitted") for t in forest.trees_)
+    assert np.allclose(roots, roots[0])  # one estimate, the whole sample's
+    imp = forest.importance()
+    assert np.isnan(imp["importance"].iloc[0]) and imp["untested"].iloc[0] == "node size 20"
+    gain, _ = forest.oob_gain(wide, pred)
+    assert gain["gain"].iloc[0] == 0.0

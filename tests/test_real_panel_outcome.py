@@ -15,6 +15,7 @@ both -219.605800634 for distance and 122.647196 for log distance.
 from __future__ import annotations
 
 import json
+import re
 import textwrap
 import warnings
 
@@ -102,7 +103,9 @@ def test_builds_to_the_report(built):
     assert "Outcome scores by wave" in html and "Single measures" in html
     assert "reliability applies to scales only" in html
     figure = (root / "results/write-up/figures/trajectories-distance.svg").read_text(encoding="utf-8")
-    assert "Pituitary to pterygomaxillary fissure distance (mm)" in figure  # the y axis: label and unit
+    # the y axis: label and unit (the axis label may wrap to the panel's height, one text line per row)
+    words = " ".join(re.findall(r">([^<>]+)</text>", figure))
+    assert "Pituitary to pterygomaxillary fissure distance (mm)" in " ".join(words.split())
     growth = (root / "results/growth/trajectories.svg").read_text(encoding="utf-8")
     assert "Log distance (log mm)" in growth
     for svg in [*(root / "results/write-up/figures").glob("*.svg"), root / "results/growth/trajectories.svg"]:

@@ -655,6 +655,23 @@ def test_moderators_say_could_not_test_and_no_split_possible(tmp_path):
     assert "forest.min_size (now 12)" in text and "reasons: node size" in text
 
 
+def test_too_few_people_for_any_split_say_so_and_point_at_a_chosen_predictor(tmp_path):
+    """16 people, minimum node size 24: a subsample of 10 can never hold two children of 24."""
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p", forest="absent")
+    imp = pd.DataFrame({"predictor": ["Diet"], "importance": [np.nan], "se": [np.nan], "rank": [np.nan],
+                        "tested": [0], "candidate": [500], "untested": ["node size 500"]})
+    ov = _overview(0.0, 0.0).assign(people=16, trees=500, min_size=24, trees_split=0)
+    report = open_report(root, _forest_tables(root, imp, ov),
+                         {"forest": {"enabled": True, "trees": 500}, "figures": "results/write-up/figures"})
+    text = " ".join(html.unescape(re.sub(r"<[^>]+>", " ", report.moderators().html)).split())
+    assert "each tree draws about 10 of the 16 people, fewer than the 48" in text
+    assert "not evidence of no association" in text and "growth.predictors" in text
+    assert "No tree split, so every tree is the single growth model" in text
+    assert "Out-of-bag log-likelihood" not in text  # no table of zeros
+
+
 def test_moderators_show_generalisation_untested_and_spread(tmp_path):
     from wavetrail.report import open_report
 

@@ -322,12 +322,22 @@ def build_tree(model, terms, X, info: PredictorInfo, rows, rng: np.random.Genera
     """Grow one tree on people ``rows`` (indices into ``terms.Y`` and ``X``).
 
     With ``strict=False`` (forests) a root model that does not converge even after
-    the retries makes the tree a single failed leaf at ``start`` instead of an error.
+    the retries makes the tree a single failed leaf at ``start`` instead of an error,
+    and a subsample smaller than twice the minimum node size (no split possible) is a
+    single leaf at ``start`` (marked ``unfitted``) without a fit.
     """
     rows = np.sort(np.asarray(rows, dtype=np.int64))
     kinds = info.kinds
     m_all = X.shape[1]
     counts = {key: np.zeros(m_all, dtype=np.int64) for key in COUNT_KEYS}
+    if not strict and start is not None and len(rows) < 2 * st.min_size and st.max_depth > 0:
+        # no split is possible in this subsample: the tree is its root, and fitting the root
+        # would change nothing but cost time; it keeps the whole-sample estimate it was given
+        counts["candidate"] += 1
+        counts["node size"] += 1
+        nodes = [_node(-1, 0, len(rows), np.asarray(start, dtype=float), float("nan"))]
+        nodes[0]["unfitted"] = True
+        return Tree(nodes, info, index=index, seed=seed, counts=counts)
     stats = terms.group_stats(rows, np.zeros(len(rows), dtype=np.int64), 1)
     theta, ll, conv = fit_robust(model, stats, None if start is None else np.asarray(start)[None, :])
     if not conv[0]:

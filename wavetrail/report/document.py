@@ -765,6 +765,11 @@ class Report:
         r = ov.iloc[0]
         gain, se = float(r["gain"]), float(r["se"])
         lo, hi = gain - 1.96 * se, gain + 1.96 * se
+        if int(r["trees_split"]) == 0:
+            return ("<h3>Does the forest generalise?</h3>"
+                    + _p(esc(f"No tree split, so every tree is the single growth model and there is no gain to "
+                             f"measure (forest: minimum node size {fmt_count(r['min_size'])}; 0 of "
+                             f"{fmt_count(r['trees'])} trees split).")))
         if np.isfinite(lo) and lo > 0:
             verdict = ("The forest predicts the trajectories of people it was not grown on better than the single "
                        "growth model: the predictors carry information about who develops differently.")
@@ -821,6 +826,17 @@ class Report:
                         reasons[why] = reasons.get(why, 0) + 1
         why = ", ".join(sorted(reasons)) or "node size"
         setting = (f"forest.min_size (now {size})" if size is not None else "forest.min_size")
+        people = int(ov.iloc[0]["people"]) if ov is not None and len(ov) else None
+        share = float(forest.get("sample_share", 0.632) or 0.632)
+        if people is not None and size is not None and round(share * people) < 2 * size:
+            drawn = int(round(share * people))
+            return (f"No split was possible: each tree draws about {fmt_count(drawn)} of the {fmt_count(people)} "
+                    f"people, fewer than the {fmt_count(2 * size)} that two children of the minimum node size "
+                    f"({size}, what the growth model needs) would hold, so none of the {fmt_count(len(imp))} "
+                    f"candidate predictors could be tested. This is not evidence of no association: with so few "
+                    f"people the forest cannot screen predictors. Test a predictor you chose in advance with a "
+                    f"conditional growth model (growth.predictors) instead, or turn the forest off "
+                    f"(forest.enabled: false).")
         return (f"No split was possible: none of the {fmt_count(len(imp))} candidate predictors could be tested at "
                 f"any node (reasons: {why}). This is not evidence of no association. Lower {setting} or raise "
                 f"forest.sample_share so that a tree's subsample can hold two children of the minimum size; for "
