@@ -45,6 +45,26 @@ def test_small_spd_inverse_equals_lapack_and_flags_indefinite():
     np.testing.assert_allclose(logdet[good], np.linalg.slogdet(S[good])[1], rtol=0, atol=1e-10)
 
 
+@pytest.mark.parametrize("n", [5, 40, 200])
+def test_small_batches_by_lapack_equal_the_loops_with_the_same_flags(n):
+    # below LOOPS_PER_ENTRY * q^2 matrices the factorisation goes through LAPACK (faster for few
+    # matrices); it must give the loops' numbers and flag the same matrices, singular ones included
+    rng = np.random.default_rng(1)
+    X = rng.normal(size=(n, 6, 9))
+    S = X @ np.swapaxes(X, -1, -2) / 9
+    S[1] = np.diag([1.0, 2.0, -1.0, 1.0, 1.0, 1.0])  # indefinite
+    S[2] = np.ones((6, 6))  # singular
+    S[3] = S[0].copy()
+    S[3][:, 5] = S[3][5, :] = S[3][4] * 1.0  # last row a copy of the one before: singular up to rounding
+    S[3][5, 5] = S[3][4, 4]
+    ld_a, W_a, ok_a = lik._spd_small(S)
+    ld_b, W_b, ok_b = lik._spd_small_lapack(S)
+    assert (ok_a == ok_b).all() and not ok_b[[1, 2, 3]].any() and ok_b[[0, 4]].all()
+    np.testing.assert_allclose(W_b[ok_b], W_a[ok_a], rtol=1e-9, atol=1e-10)
+    np.testing.assert_allclose(ld_b[ok_b], ld_a[ok_a], rtol=0, atol=1e-10)
+    assert np.isfinite(W_b).all() and np.isfinite(ld_b).all()
+
+
 def test_all_patterns_at_once_equal_pattern_by_pattern():
     t, Y = _panel()
     spec = growth_spec(t, "linear", "free")

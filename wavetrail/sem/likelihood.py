@@ -41,6 +41,10 @@ MOMENT_PATH_MIN_CELLS = 512
 
 #: largest matrix size factorised by the element-wise loops of :func:`_spd_small`
 SMALL_P = 12
+#: the loops pay only for batches of at least ``LOOPS_PER_ENTRY * q * q`` matrices; below,
+#: LAPACK is faster (measured, 2 cores: q = 4 crosses near 250 matrices, q = 6 near 400,
+#: q = 12 near 2,000; e.g. 10 matrices of 6 x 6: 46 us against 536 us)
+LOOPS_PER_ENTRY = 15
 
 
 def _chol_logdet_inv(S):
@@ -50,7 +54,9 @@ def _chol_logdet_inv(S):
     every output stays finite) and flagged in ``ok``.
     """
     if S.shape[-1] <= SMALL_P:
-        return _spd_small(S)
+        if S.shape[0] >= LOOPS_PER_ENTRY * S.shape[-1] ** 2:
+            return _spd_small(S)
+        return _spd_small_lapack(S)
     B, q = S.shape[0], S.shape[-1]
     try:
         L = np.linalg.cholesky(S)
@@ -70,6 +76,33 @@ def _chol_logdet_inv(S):
     Linv = np.linalg.inv(L)
     W = np.swapaxes(Linv, -1, -2) @ Linv
     return logdet, W, ok
+
+
+def _spd_small_lapack(S):
+    """:func:`_spd_small` by LAPACK for small batches, with the same test of positive
+    definiteness (every squared pivot above ``1e-12 * max(1, largest diagonal entry)``)."""
+    N, q = S.shape[0], S.shape[-1]
+    diag = np.diagonal(S, axis1=-2, axis2=-1)
+    tiny = 1e-12 * np.maximum(1.0, np.abs(diag).max(axis=-1))
+    finite = np.isfinite(S).all(axis=(-2, -1))
+    S = np.where(finite[:, None, None], S, np.eye(q))
+    try:
+        L = np.linalg.cholesky(S)
+        ok = finite & (np.diagonal(L, axis1=-2, axis2=-1) ** 2 > tiny[:, None]).all(axis=-1)
+    except np.linalg.LinAlgError:
+        L = np.zeros_like(S)
+        ok = finite.copy()
+        for b in range(N):  # rare: some matrix of the batch is not positive definite
+            try:
+                L[b] = np.linalg.cholesky(S[b])
+            except np.linalg.LinAlgError:
+                ok[b] = False
+        ok &= (np.diagonal(L, axis1=-2, axis2=-1) ** 2 > tiny[:, None]).all(axis=-1)
+    if not ok.all():
+        L[~ok] = np.eye(q)
+    logdet = 2.0 * np.log(np.diagonal(L, axis1=-2, axis2=-1)).sum(axis=-1)
+    Linv = np.linalg.inv(L)
+    return logdet, np.swapaxes(Linv, -1, -2) @ Linv, ok
 
 
 def _spd_small(S):

@@ -47,6 +47,9 @@ SCREEN_ITER = 8
 N_KEEP = 8
 #: Newton steps for every polished end after the first (continued while it is the best)
 SHORT_POLISH = 15
+#: step halvings per scoring step of the searched starts: a start no step of 1/256 improves
+#: stops there (its end still competes); the polish of the best ends has no such limit
+SCREEN_HALVINGS = 8
 _SETTING = object()  # a multistart argument left at the module setting above
 
 
@@ -181,15 +184,16 @@ def _screen(spec, stats, R, max_iter, base, screen_iter, n_keep):
 
     many = stats.take(np.zeros(len(R), dtype=int))
     if screen_iter is None or screen_iter >= max_iter or len(R) <= n_keep:
-        return fit_batch(spec, many, start=R, max_iter=max_iter, tol=TOL, base=base)
-    bf = fit_batch(spec, many, start=R, max_iter=screen_iter, tol=TOL, base=base)
+        return fit_batch(spec, many, start=R, max_iter=max_iter, tol=TOL, base=base, max_halvings=SCREEN_HALVINGS)
+    bf = fit_batch(spec, many, start=R, max_iter=screen_iter, tol=TOL, base=base, max_halvings=SCREEN_HALVINGS)
     ll = np.where(np.isfinite(bf.loglik), bf.loglik, -np.inf)
     go = np.argsort(-ll, kind="stable")[:n_keep]
     go = np.array(sorted(i for i in go if np.isfinite(ll[i]) and not bf.converged[i]), dtype=int)
     if len(go) == 0:
         return bf
     more = fit_batch(spec, stats.take(np.zeros(len(go), dtype=int)), start=bf.theta[go],
-                     max_iter=max_iter - screen_iter, tol=TOL, base=_take_base(base, go))
+                     max_iter=max_iter - screen_iter, tol=TOL, base=_take_base(base, go),
+                     max_halvings=SCREEN_HALVINGS)
     theta, loglik, conv = bf.theta.copy(), bf.loglik.copy(), bf.converged.copy()
     iters, dec = bf.iterations.copy(), bf.decrement.copy()
     theta[go], loglik[go], conv[go] = more.theta, more.loglik, more.converged
