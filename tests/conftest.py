@@ -19,3 +19,11 @@ def no_git_identity(bare_git, monkeypatch):
     for var in ("GIT_AUTHOR_NAME", "GIT_AUTHOR_EMAIL", "GIT_COMMITTER_NAME", "GIT_COMMITTER_EMAIL", "EMAIL"):
         monkeypatch.delenv(var, raising=False)
     return bare_git
+
+
+def pytest_collection_modifyitems(config, items):
+    """Files with slow end-to-end tests first (order within a file kept): the two workers
+    take them at the start, and the quick files fill the gaps instead of one worker running
+    the slowest files alone at the end."""
+    slow_files = {item.nodeid.split("::")[0] for item in items if item.get_closest_marker("slow")}
+    items.sort(key=lambda item: item.nodeid.split("::")[0] not in slow_files)
