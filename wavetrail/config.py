@@ -430,28 +430,28 @@ def check_names(config: dict, codebook, source: str | Path = CONFIG_FILE,
                 own = codebook.sources_of(target)
                 own |= {v.name for v in variables.values() if v.derived and v.derived_from in own}
                 pool -= own
+
+        def outside_pool(p) -> str:
+            if p not in variables:
+                return "is not a variable of the codebook"
+            if isinstance(predictors, list):
+                return "is not among forest.predictors"
+            return ("is not a candidate predictor of the forest (a first-wave variable outside the scales and "
+                    "the outcome's own raw variables, not an identifier, text or date)")
+
         for i, pair in enumerate(forest.get("interaction_pairs") or []):
             for j, p in enumerate(pair):
                 if p not in pool:
-                    what = ("is not among forest.predictors" if isinstance(predictors, list)
-                            else "is not a candidate predictor (a first-wave variable outside the scales "
-                                 "and the outcome's own raw variables, not an identifier, text or date)")
-                    if p not in variables:
-                        what = "is not a variable of the codebook"
                     problems.append((line("forest", "interaction_pairs", i, j),
-                                     f"forest.interaction_pairs[{i}] names {p!r}, which {what}{close(p, pool)}"))
+                                     f"forest.interaction_pairs[{i}] names {p!r}, which {outside_pool(p)}"
+                                     f"{close(p, pool)}"))
     if forest.get("enabled", True) and float(forest.get("holdout", 0) or 0) > 0:
         confirm = forest.get("confirm", 5)
         if isinstance(confirm, list):
             for i, p in enumerate(confirm):
                 if p not in pool:
-                    what = ("is not among forest.predictors" if isinstance(predictors, list)
-                            else "is not a candidate predictor of the forest (a first-wave variable outside the "
-                                 "scales and the outcome's own raw variables, not an identifier, text or date)")
-                    if p not in variables:
-                        what = "is not a variable of the codebook"
                     problems.append((line("forest", "confirm", i),
-                                     f"forest.confirm[{i}] names {p!r}, which {what}{close(p, pool)}"))
+                                     f"forest.confirm[{i}] names {p!r}, which {outside_pool(p)}{close(p, pool)}"))
     eligible_growth = [v.name for v in codebook.data_variables()
                        if not v.identifier and v.name not in (study.id, study.wave) and v.type not in ("text", "date")]
     for i, p in enumerate(growth.get("predictors") or []):

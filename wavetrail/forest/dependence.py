@@ -43,7 +43,7 @@ def tree_second(tree, model) -> np.ndarray:
     cached = getattr(tree, "_second", None)
     if cached is None:
         mu = tree_expected(tree, model)
-        scorer = tree.scoring_nodes(model) if hasattr(model, "admissible") else np.arange(len(tree.theta_))
+        scorer = tree.scoring_nodes(model)
         var = np.array([model.implied_variance(tree.theta_[j]) for j in scorer])
         cached = var + mu * mu
         tree._second = cached

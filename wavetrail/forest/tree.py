@@ -131,8 +131,8 @@ class Tree:
 
     def inadmissible_leaves(self, model) -> int:
         """Leaves that converged but whose estimate is not admissible (scored by an ancestor)."""
-        return int(sum(1 for i in self.leaves
-                       if not self.nodes[i].get("failed") and not model.admissible(self.theta_[i])))
+        scorer = self.scoring_nodes(model)
+        return int(sum(1 for i in self.leaves if scorer[i] != i and not self.nodes[i].get("failed")))
 
     @property
     def used_predictors(self) -> np.ndarray:
