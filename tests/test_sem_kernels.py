@@ -237,3 +237,75 @@ def test_information_over_moments_equals_entry_pairs_beyond_twelve_variables(mon
     np.testing.assert_allclose(ll_m, ll_e, rtol=1e-12)
     np.testing.assert_allclose(g_m, g_e, rtol=1e-9, atol=1e-9 * np.abs(g_e).max())
     np.testing.assert_allclose(I_m, I_e, rtol=1e-9, atol=1e-11 * np.abs(I_e).max())  # summation order
+
+
+def _em_step_by_pattern(stats, mu, sigma):
+    """One EM update written pattern by pattern: regression of the missing on the observed
+    entries (Little & Rubin 2019, Statistical Analysis with Missing Data, 3rd ed., ch. 11)."""
+    p = stats.p
+    T1, T2 = np.zeros(p), np.zeros((p, p))
+    for j, mask in enumerate(stats.masks):
+        n = stats.n[0, j]
+        o, u = np.nonzero(mask)[0], np.nonzero(~mask)[0]
+        s, C = stats.sums[0, j], stats.cross[0, j]
+        x_hat_sum = s.copy()
+        Ex = np.zeros((p, p))
+        Ex[np.ix_(o, o)] = C[np.ix_(o, o)]
+        if len(u):
+            B = np.linalg.solve(sigma[np.ix_(o, o)], sigma[np.ix_(o, u)]).T
+            c = mu[u] - B @ mu[o]
+            R = sigma[np.ix_(u, u)] - B @ sigma[np.ix_(o, u)]
+            x_hat_sum[u] = n * c + B @ s[o]
+            Ex[np.ix_(u, o)] = np.outer(c, s[o]) + B @ C[np.ix_(o, o)]
+            Ex[np.ix_(o, u)] = Ex[np.ix_(u, o)].T
+            Ex[np.ix_(u, u)] = (n * R + n * np.outer(c, c) + np.outer(c, B @ s[o]) + np.outer(B @ s[o], c)
+                                + B @ C[np.ix_(o, o)] @ B.T)
+        T1 += x_hat_sum
+        T2 += Ex
+    N = stats.n[0].sum()
+    m = T1 / N
+    return m, T2 / N - np.outer(m, m)
+
+
+def _loglik_by_pattern(stats, mu, sigma):
+    ll = 0.0
+    for j, mask in enumerate(stats.masks):
+        o = np.nonzero(mask)[0]
+        n, s, C = stats.n[0, j], stats.sums[0, j, o], stats.cross[0, j][np.ix_(o, o)]
+        S, m = sigma[np.ix_(o, o)], mu[o]
+        Sc = C - np.outer(s, m) - np.outer(m, s) + n * np.outer(m, m)
+        ll += -0.5 * (n * len(o) * np.log(2 * np.pi) + n * np.linalg.slogdet(S)[1] + np.trace(np.linalg.solve(S, Sc)))
+    return ll
+
+
+def test_batched_em_step_equals_the_pattern_by_pattern_update():
+    """The EM step and log-likelihood batched over patterns of equal observed size (a large
+    panel has thousands of patterns) equal the update written pattern by pattern."""
+    _, Y = _panel(n=600, waves=7, miss=0.3, seed=21)
+    stats = SuffStats.from_data(Y)
+    assert len(np.unique(stats.masks.sum(axis=1))) >= 5 and stats.masks.all(axis=1).any()
+    mean, cov, _ = stats.pairwise_moments()
+    mu, sigma = mean[0], cov[0] + 0.1 * np.eye(stats.p)
+    for _ in range(3):  # a few steps, so the comparison is not only at the start
+        mu_b, sig_b = sat._em_step(stats, 0, mu, sigma, stats.n[0].sum())
+        mu_r, sig_r = _em_step_by_pattern(stats, mu, sigma)
+        np.testing.assert_allclose(mu_b, mu_r, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(sig_b, 0.5 * (sig_r + sig_r.T), rtol=1e-11, atol=1e-12)
+        assert sat._loglik(stats, mu_b, sig_b) == pytest.approx(_loglik_by_pattern(stats, mu_b, sig_b), rel=1e-12)
+        mu, sigma = mu_b, sig_b
+
+
+def test_regular_complete_cases_answer_the_maximum_check_at_once(monkeypatch):
+    # with people who answer everything and a regular covariance among them, no pattern can
+    # lack a maximum; the same answer as the pattern-by-pattern search
+    _, Y = _panel(n=400, waves=10, miss=0.1, seed=8)
+    stats = SuffStats.from_data(Y)
+    assert sat._complete_cases_regular(stats)
+    with monkeypatch.context() as m:  # the search agrees
+        m.setattr(sat, "_complete_cases_regular", lambda *a: False)
+        assert sat.missing_maximum(stats) == ""
+    # a panel where nobody answers every wave takes the search
+    _, Y2 = _panel(n=400, waves=10, miss=0.1, seed=8)
+    Y2[np.isfinite(Y2).all(axis=1), 0] = np.nan
+    assert not sat._complete_cases_regular(SuffStats.from_data(Y2))
+    assert sat.missing_maximum(SuffStats.from_data(Y2)) == ""

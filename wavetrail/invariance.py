@@ -117,15 +117,16 @@ def invariance_spec(items: Sequence[str], n_waves: int, step: str, free_intercep
 
 
 def _wide(long: pd.DataFrame, items, waves, id_col, wave_col) -> pd.DataFrame:
-    from wavetrail.panel import wave_key
+    from wavetrail.panel import wave_key, wave_positions
 
     keys = [wave_key(w) for w in waves]
-    sub = long[[id_col, wave_col, *items]].copy()
-    sub["_w"] = sub[wave_col].map(wave_key)
-    sub = sub[sub["_w"].isin(keys)]
+    # position of each row's wave (one call of wave_key per distinct value, not per row)
+    pos = wave_positions(long[wave_col], waves)
+    sub = long[[id_col, *items]]
     parts = []
     for t, key in enumerate(keys):
-        part = sub[sub["_w"] == key].drop_duplicates(id_col).set_index(id_col)[list(items)]
+        rows = np.isin(pos, [i for i, k in enumerate(keys) if k == key])  # waves with the same key share rows
+        part = sub[rows].drop_duplicates(id_col).set_index(id_col)[list(items)]
         part.columns = [_obs(i, t) for i in items]
         parts.append(part)
     wide = pd.concat(parts, axis=1)

@@ -22,22 +22,64 @@ import numpy as np
 from wavetrail.sem.likelihood import LOG2PI, MOMENT_PATH_MAX_P
 
 
-def _loglik(stats, mu, sigma, b=0):
+class _Groups:
+    """The patterns of one sample grouped by their number of observed variables.
+
+    Each group holds, stacked over its ``G`` patterns, the observed and missing
+    indices ``o`` (G, q) and ``u`` (G, p - q), the counts, the observed sums
+    (G, q) and cross products (G, q, q), so that the EM step and the
+    log-likelihood run one batched linear-algebra call per group instead of one
+    Python iteration per pattern (a large panel has thousands of patterns).
+    ``flat_uo`` and ``flat_uu`` are the positions of the (missing, observed) and
+    (missing, missing) blocks in a raveled ``p x p`` matrix (for ``bincount``);
+    ``sums``/``cross`` are the totals of the observed entries (fixed over EM).
+    """
+
+    def __init__(self, stats, b=0):
+        self.p = p = stats.p
+        masks = stats.masks
+        n = stats.n[b]
+        keep = np.nonzero(n > 0)[0]
+        q_of = masks[keep].sum(axis=1)
+        self.sums = stats.sums[b, keep].sum(axis=0)
+        self.cross = stats.cross[b, keep].sum(axis=0)
+        self.groups = []
+        for q in np.unique(q_of):
+            js = keep[q_of == q]
+            m = masks[js]
+            o = np.nonzero(m)[1].reshape(len(js), q)
+            u = np.nonzero(~m)[1].reshape(len(js), p - q)
+            so = np.take_along_axis(stats.sums[b, js], o, axis=1)
+            cross = stats.cross[b, js]
+            coo = cross[np.arange(len(js))[:, None, None], o[:, :, None], o[:, None, :]]
+            flat_uo = (u[:, :, None] * p + o[:, None, :]).ravel()
+            flat_uu = (u[:, :, None] * p + u[:, None, :]).ravel()
+            self.groups.append((int(q), n[js].astype(float), o, u, so, coo, flat_uo, flat_uu))
+
+
+def _gather(mat, rows, cols):
+    """``mat[rows_g][:, cols_g]`` for every g: (G, len(rows), len(cols))."""
+    return mat[rows[:, :, None], cols[:, None, :]]
+
+
+def _loglik(stats, mu, sigma, b=0, groups=None):
+    groups = groups or _Groups(stats, b)
     ll = 0.0
-    for j, mask in enumerate(stats.masks):
-        n = stats.n[b, j]
-        if n <= 0:
+    for q, n, o, _, so, coo, _, _ in groups.groups:
+        if q == 0:
             continue
-        o = np.nonzero(mask)[0]
-        S = sigma[np.ix_(o, o)]
+        S = _gather(sigma, o, o)
         m = mu[o]
-        s = stats.sums[b, j, o]
-        C = stats.cross[b, j][np.ix_(o, o)]
         sign, logdet = np.linalg.slogdet(S)
-        if sign <= 0:
+        if (sign <= 0).any():
             return -np.inf
-        Sc = C - np.outer(s, m) - np.outer(m, s) + n * np.outer(m, m)
-        ll += -0.5 * (n * len(o) * LOG2PI + n * logdet + np.trace(np.linalg.solve(S, Sc)))
+        ms = m[:, :, None] * so[:, None, :]
+        Sc = coo - ms - ms.transpose(0, 2, 1) + n[:, None, None] * (m[:, :, None] * m[:, None, :])
+        try:
+            tr = np.trace(np.linalg.solve(S, Sc), axis1=1, axis2=2)
+        except np.linalg.LinAlgError:
+            return -np.inf
+        ll += float(np.sum(-0.5 * (n * q * LOG2PI + n * logdet + tr)))
     return float(ll)
 
 
@@ -71,6 +113,8 @@ def missing_maximum(stats, b=0):
     still guard against other degenerate cases.)
     """
     masks = stats.masks
+    if _complete_cases_regular(stats, b):
+        return ""
     for j, mask in enumerate(masks):
         if stats.n[b, j] <= 0:
             continue
@@ -96,40 +140,70 @@ def missing_maximum(stats, b=0):
     return ""
 
 
-def _em_step(stats, b, mu, sigma, N):
-    """One EM update of (mu, sigma) from the pattern sufficient statistics."""
+def _complete_cases_regular(stats, b=0):
+    """True when the people who observe every variable have a regular sample covariance.
+
+    Their scatter matrix is a principal part of the scatter of the people covering
+    any pattern (a superset of people, about its own mean), so every pattern's
+    covering people then have a positive definite covariance as well, and the
+    pattern-by-pattern search of :func:`missing_maximum` has nothing to find. This
+    answers at once for the usual panel, where many people answer everything.
+    """
+    full = np.nonzero(stats.masks.all(axis=1) & (stats.n[b] > 0))[0]
+    if len(full) == 0:
+        return False
+    k = full[0]
+    n = float(stats.n[b, k])
+    if n <= stats.p:
+        return False
+    m = stats.sums[b, k] / n
+    S = stats.cross[b, k] / n - np.outer(m, m)
+    d = np.sqrt(np.maximum(np.diag(S), 0))
+    if (d <= 1e-12 * max(np.abs(m).max(), 1.0)).any():
+        return False
+    return bool(np.linalg.eigvalsh(S / np.outer(d, d))[0] > SINGULAR)
+
+
+def _em_step(stats, b, mu, sigma, N, groups=None):
+    """One EM update of (mu, sigma) from the pattern sufficient statistics.
+
+    For a pattern with observed ``o`` and missing ``u`` the E-step completes each
+    row by the regression ``x_u = c + B x_o`` (``B = S_uo S_oo^-1``,
+    ``c = mu_u - B mu_o``, residual covariance ``R = S_uu - B S_ou``): the expected
+    sums of the missing entries are ``n c + B s_o``, the expected cross products
+    ``c s_o' + B C_oo`` on (u, o) and ``n R + n c c' + c (B s_o)' + (B s_o) c' +
+    B C_oo B'`` on (u, u). The observed entries add their own sums, which do not
+    change over the iterations. Batched over the patterns of a group; the blocks
+    are added into ``p x p`` by ``bincount`` on their raveled positions.
+    """
+    groups = groups or _Groups(stats, b)
     p = stats.p
-    T1 = np.zeros(p)
-    T2 = np.zeros((p, p))
-    for j, mask in enumerate(stats.masks):
-        n = stats.n[b, j]
-        if n <= 0:
+    T1 = groups.sums.copy()
+    T2 = groups.cross.ravel().copy()
+    for q, n, o, u, so, coo, flat_uo, flat_uu in groups.groups:
+        r = p - q
+        if r == 0:
             continue
-        o = np.nonzero(mask)[0]
-        u = np.nonzero(~mask)[0]
-        s = stats.sums[b, j]
-        C = stats.cross[b, j]
-        if len(u) == 0:
-            T1 += s
-            T2 += C
+        if q == 0:
+            T1 += n.sum() * mu
+            T2 += n.sum() * (sigma + np.outer(mu, mu)).ravel()
             continue
-        Soo = sigma[np.ix_(o, o)]
-        Bmat = np.linalg.solve(Soo, sigma[np.ix_(o, u)]).T  # (u, o) regression of u on o
-        c = mu[u] - Bmat @ mu[o]
-        resid = sigma[np.ix_(u, u)] - Bmat @ sigma[np.ix_(o, u)]
-        so = s[o]
-        Coo = C[np.ix_(o, o)]
-        su = n * c + Bmat @ so  # expected sum of missing entries
-        Cuo = np.outer(c, so) + Bmat @ Coo
-        Cuu = n * resid + n * np.outer(c, c) + np.outer(c, so @ Bmat.T) + np.outer(Bmat @ so, c) + Bmat @ Coo @ Bmat.T
-        T1[o] += so
-        T1[u] += su
-        T2[np.ix_(o, o)] += Coo
-        T2[np.ix_(u, o)] += Cuo
-        T2[np.ix_(o, u)] += Cuo.T
-        T2[np.ix_(u, u)] += Cuu
+        Sou = _gather(sigma, o, u)
+        Bt = np.linalg.solve(_gather(sigma, o, o), Sou)  # (G, q, r): B' of each pattern
+        B = Bt.transpose(0, 2, 1)
+        c = mu[u] - (B @ mu[o][:, :, None])[:, :, 0]
+        Bs = (B @ so[:, :, None])[:, :, 0]
+        np.add.at(T1, u.ravel(), (n[:, None] * c + Bs).ravel())
+        BC = B @ coo
+        Cuo = c[:, :, None] * so[:, None, :] + BC
+        cBs = c[:, :, None] * Bs[:, None, :]
+        Cuu = (n[:, None, None] * (_gather(sigma, u, u) - B @ Sou + c[:, :, None] * c[:, None, :])
+               + cBs + cBs.transpose(0, 2, 1) + BC @ Bt)
+        uo = np.bincount(flat_uo, weights=Cuo.ravel(), minlength=p * p)
+        T2 += uo + uo.reshape(p, p).T.ravel()
+        T2 += np.bincount(flat_uu, weights=Cuu.ravel(), minlength=p * p)
     mu = T1 / N
-    sigma = T2 / N - np.outer(mu, mu)
+    sigma = T2.reshape(p, p) / N - np.outer(mu, mu)
     return mu, 0.5 * (sigma + sigma.T)
 
 
@@ -196,13 +270,14 @@ def _collapsed(sigma):
 def _squarem(stats, b, mu, sigma, N, max_iter, tol):
     """EM with SQUAREM extrapolation (two EM steps and one extrapolated point per cycle)."""
     p = stats.p
+    groups = _Groups(stats, b)
     x = _pack(mu, sigma)
-    ll_old = _loglik(stats, mu, sigma, b)
+    ll_old = _loglik(stats, mu, sigma, b, groups)
 
     def F(x):
-        return _pack(*_em_step(stats, b, *_unpack(x, p), N))
+        return _pack(*_em_step(stats, b, *_unpack(x, p), N, groups))
 
-    it, ok = 0, False
+    it = 0
     while it < max_iter:
         x1 = F(x)
         x2 = F(x1)
@@ -217,12 +292,17 @@ def _squarem(stats, b, mu, sigma, N, max_iter, tol):
             try:
                 y = F(y)  # one EM step from the extrapolated point keeps it stable
                 it += 1
-                if _loglik(stats, *_unpack(y, p), b) >= _loglik(stats, *_unpack(x2, p), b):
-                    cand = y
+                ll_y = _loglik(stats, *_unpack(y, p), b, groups)
+                ll_2 = _loglik(stats, *_unpack(x2, p), b, groups)
+                if ll_y >= ll_2:
+                    cand, ll = y, ll_y
+                else:
+                    ll = ll_2
             except np.linalg.LinAlgError:
-                pass
+                ll = _loglik(stats, *_unpack(x2, p), b, groups)
+        else:
+            ll = _loglik(stats, *_unpack(x2, p), b, groups)
         mu, sigma = _unpack(cand, p)
-        ll = _loglik(stats, mu, sigma, b)
         x = cand
         if not np.isfinite(ll) or _collapsed(sigma):
             return Saturated(mu, sigma, np.nan, it, False, "the saturated model's covariance collapses while "
