@@ -222,18 +222,19 @@ def _bridge_lm(Sw: np.ndarray, Z: np.ndarray):
     n, m = Z.shape
     order = np.argsort(Z, axis=0, kind="stable")  # NaN sorts last
     zs = np.take_along_axis(Z, order, axis=0)
-    obs = ~np.isnan(zs)
-    n_obs = obs.sum(axis=0)
-    ordered = Sw[order] * obs[:, :, None]  # (n, m, k)
-    c = np.cumsum(ordered, axis=0)
-    total = c[-1]  # (m, k)
-    i = np.arange(1, n + 1, dtype=float)[:, None]
-    nobs = np.maximum(n_obs, 1).astype(float)[None, :]
-    t = i / nobs
-    b = c - t[:, :, None] * total[None, :, :]
-    num = np.einsum("imk,imk->im", b, b)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        lm = num / (nobs * t * (1.0 - t))
+    n_obs = (~np.isnan(zs)).sum(axis=0)
+    nobs = np.maximum(n_obs, 1).astype(float)
+    i = np.arange(1, n + 1, dtype=float)
+    lm = np.empty((n, m))
+    # one predictor at a time, in place: an (n, k) array instead of several (n, m, k) ones
+    for j in range(m):
+        c = Sw[order[:, j]]
+        c[n_obs[j]:] = 0.0  # people missing the predictor (sorted last) add nothing
+        np.cumsum(c, axis=0, out=c)
+        t = i / nobs[j]
+        c -= t[:, None] * c[-1]  # the bridge: left sums minus their share of the total
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lm[:, j] = np.einsum("ik,ik->i", c, c) / (nobs[j] * t * (1.0 - t))
     return lm, zs, n_obs
 
 

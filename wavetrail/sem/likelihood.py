@@ -509,8 +509,10 @@ def casewise(cm, theta, Y, scores=True, base=None):
     n, k = Y.shape[0], cm.k
     ll = np.zeros(n)
     sc = np.zeros((n, k))
+    by_pattern = np.argsort(idx, kind="stable")  # rows of pattern j: one slice of this order
+    ends = np.searchsorted(idx[by_pattern], np.arange(len(masks) + 1), side="left")
     for j, mask in enumerate(masks):
-        rows = np.nonzero(idx == j)[0]
+        rows = by_pattern[ends[j]:ends[j + 1]]
         o = np.nonzero(mask)[0]
         q = len(o)
         logdet, W, ok = _chol_logdet_inv(sigma[o][:, o][None])
