@@ -50,6 +50,10 @@ SHORT_POLISH = 15
 #: step halvings per scoring step of the searched starts: a start no step of 1/256 improves
 #: stops there (its end still competes); the polish of the best ends has no such limit
 SCREEN_HALVINGS = 8
+#: a later end whose screened log-likelihood lies more than this many units per person below
+#: the best polished maximum is not polished: Newton steps from there cannot change the answer
+#: (distinct local maxima of growth and factor models lie well under 0.1 per person apart)
+FAR_BELOW_PER_PERSON = 0.5
 _SETTING = object()  # a multistart argument left at the module setting above
 
 
@@ -222,7 +226,9 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
 
     Polishing: the best screened end gets up to 100 Newton steps, each further distinct
     end ``SHORT_POLISH``, continued to 100 only while it is above every maximum found; an
-    end still short of convergence then is counted, but not as a converged maximum.
+    end still short of convergence then is counted, but not as a converged maximum. An end
+    screened more than ``FAR_BELOW_PER_PERSON`` log-likelihood units per person below the
+    best polished maximum is counted unpolished (and does not call for the second round).
 
     Two ends count as the same maximum when their log-likelihoods differ by less than
     ``same_tol * max(1, |loglik|)``.
@@ -245,6 +251,8 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
     final = np.zeros(0)
     conv = np.zeros(0, dtype=bool)
     polished: set[int] = set()
+    far_below: set[int] = set()  # ends left unpolished, far below the best maximum
+    far = FAR_BELOW_PER_PERSON * float(np.asarray(stats.total).ravel()[0])
     ends: list[Polished] = []
     for rnd, rows in enumerate(rounds):
         R = np.vstack(rows)
@@ -269,6 +277,9 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
                 continue
             polished.add(i)
             top = max((e.loglik for e in ends), default=-np.inf)
+            if ends and np.isfinite(top) and top - ll[i] > far:
+                far_below.add(i)
+                continue
             # the first end is polished fully; later ones get a short budget, continued
             # only while they are above every maximum found so far (a new best)
             r = polish(cm, theta[i], stats, base=base, tol=tol, max_iter=100 if not ends else SHORT_POLISH)
@@ -283,11 +294,12 @@ def multistart(spec, stats, starts, n_random=8, seed=0, max_iter=30, n_polish=6,
         if rnd == 0 and len(rounds) > 1:
             # every finite end of the round is represented by a polished one (same screened
             # log-likelihood to 1e-4), every polished end converged, and all reached one maximum
-            pol = np.array(sorted(polished), dtype=int)
-            fin = np.nonzero(np.isfinite(ll))[0]
+            pol = np.array(sorted(polished - far_below), dtype=int)
+            top = max((e.loglik for e in ends), default=-np.inf)
+            fin = np.nonzero(np.isfinite(ll) & ~(top - ll > far))[0]
             covered = all(np.any(np.abs(ll[i] - ll[pol]) <= 1e-4 * np.maximum(1.0, np.abs(ll[pol]))) for i in fin)
             got = final[pol]
-            if len(fin) >= 3 and covered and conv[pol].all() and \
+            if np.isfinite(ll).sum() >= 3 and covered and conv[pol].all() and \
                     got.max() - got.min() <= max(same_tol * max(1.0, abs(got.max())), 1e-3):
                 break
     if not ends:
