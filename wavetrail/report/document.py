@@ -799,7 +799,7 @@ class Report:
             verdict = ("The forest does not predict the trajectories of people it was not grown on measurably better "
                        "than the single growth model: the rankings below may reflect noise.")
         rows = [[fmt_count(r["people"]), fmt_number(r["loglik_forest"], 1), fmt_number(r["loglik_single"], 1),
-                 fmt_number(gain, 1), fmt_number(se, 1), f"{fmt_number(lo, 1)} to {fmt_number(hi, 1)}",
+                 fmt_number(gain, 1), fmt_number(se, 1), f"{fmt_number(lo, 1)}\u00a0to\u00a0{fmt_number(hi, 1)}",  # one line
                  _sig(r["gain_per_person"], 3)]]
         html = "<h3>Does the forest generalise?</h3>" + _p(esc(verdict))
         html += self._table(Table("Out-of-bag log-likelihood: forest against the single growth model",

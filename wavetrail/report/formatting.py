@@ -248,8 +248,6 @@ class Table:
 
     def _cls(self, j: int, value: str | None = None) -> str:
         names = (["wt-num"] if j in self.numeric else []) + (["wt-hash"] if j in self.mono else [])
-        if j in self.numeric and value is not None and str(value).startswith("["):
-            names.append("wt-ci")  # an interval may wrap after its comma on a narrow page
         return f' class="{" ".join(names)}"' if names else ""
 
 
