@@ -260,7 +260,7 @@ WRAPPED_INTERVALS = r"""
   const out = [];
   for (const td of document.querySelectorAll('main td')) {
     const t = td.textContent.trim();
-    if (!/^\[.*\]$/.test(t) && !/^[\u2212\-]?[\d.,]+ to [\u2212\-]?[\d.,]+$/.test(t)) continue;
+    if (!/^\[.*\]$/.test(t) && !/^[\u2212\-]?[\d.,]+\sto\s[\u2212\-]?[\d.,]+$/.test(t)) continue;
     const range = document.createRange();
     range.selectNodeContents(td);
     const tops = new Set(Array.from(range.getClientRects()).filter(b => b.width > 0).map(b => Math.round(b.top)));
