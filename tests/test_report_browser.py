@@ -253,6 +253,24 @@ def raw_floats(text: str) -> list[str]:
     return [x for x in found if len(x.split(".")[1]) >= 5 and len(x.replace(".", "").lstrip("0")) >= 5]
 
 
+#: table cells holding an interval (``[.030, .061]``, ``-0.5 to 0.9``) laid out on more than one
+#: line: [text, number of lines]
+WRAPPED_INTERVALS = r"""
+(() => {
+  const out = [];
+  for (const td of document.querySelectorAll('main td')) {
+    const t = td.textContent.trim();
+    if (!/^\[.*\]$/.test(t) && !/^[\u2212\-]?[\d.,]+\sto\s[\u2212\-]?[\d.,]+$/.test(t)) continue;
+    const range = document.createRange();
+    range.selectNodeContents(td);
+    const tops = new Set(Array.from(range.getClientRects()).filter(b => b.width > 0).map(b => Math.round(b.top)));
+    if (tops.size > 1) out.push([t, tops.size]);
+  }
+  return out;
+})()
+"""
+
+
 def layout_problems(browser: Browser, page: Path) -> list[str]:
     """Everything that sticks out of the content column or overlaps, on screen and on an A4 page."""
     problems = []
@@ -266,6 +284,8 @@ def layout_problems(browser: Browser, page: Path) -> list[str]:
         problems += [f"{media} {width}px: {it['what']} reaches {it['over']:.0f}px past the content column"
                      for it in found["items"] if it["over"] > 0.5]
         problems += [f"{media} {width}px: {a!r} overlaps {b!r}" for a, b in found["overlaps"]]
+        problems += [f"{media} {width}px: the interval {cell!r} wraps onto {lines} lines"
+                     for cell, lines in browser.evaluate(WRAPPED_INTERVALS)]
         if found["docWidth"] > found["viewport"]:
             problems.append(f"{media} {width}px: the page scrolls sideways ({found['docWidth']}px)")
     return problems
@@ -388,6 +408,16 @@ def autism_report(tmp_path_factory):
     page = root / "results/write-up/report.html"
     assert page.is_file(), result
     return root, page
+
+
+def test_the_layout_check_sees_an_interval_on_two_lines(browser, tmp_path):
+    # control: an interval cell squeezed into 60 px with normal wrapping is reported
+    page = tmp_path / "narrow.html"
+    page.write_text('<!DOCTYPE html><html><body><main class="wt-page"><table><tr>'
+                    '<td style="width:60px;max-width:60px;white-space:normal">[\u22120.53, 0.92]</td>'
+                    '</tr></table></main></body></html>', encoding="utf-8")
+    problems = layout_problems(browser, page)
+    assert any("wraps onto 2 lines" in p for p in problems), problems
 
 
 def test_demo_report_fits_the_page_on_screen_and_on_paper(browser, demo_report):

@@ -220,6 +220,8 @@ def _structure(panel: Panel, out: _Collector) -> None:
                     f"(to say so, add `waves: [{first}]` to its entry, codebook {cb.where(name)})",
                     variable=name, wave=first, count=int(src.table.frame[name].notna().sum()), rows=src.name)
         for col in src.unknown:
+            if col in cb.study.left_out:  # declared as not a variable (a row index)
+                continue
             if col in cb.variables and cb.variables[col].derived:
                 var = cb.variables[col]
                 out.add("derived_in_file", "error",

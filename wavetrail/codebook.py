@@ -61,6 +61,8 @@ class Study:
     title: str | None = None
     #: unit of the time scores (``years``, ``months``), None when the codebook does not say
     time_unit: str | None = None
+    #: columns of the data files that are not variables (row index, notes): no step reads them
+    left_out: tuple = ()
 
     def wide_column(self, name: str, wave) -> str:
         """The wide-file column of variable ``name`` at ``wave``."""
@@ -452,7 +454,8 @@ def _build(data: dict, lines: _LineIndex, path: Path | None, where: str) -> Code
                     hint="list the waves in time order under study.waves and give each a later time score")
     study = Study(id=str(s["id"]), waves=waves, wave=s.get("wave"), wide=s.get("wide"),
                   time_scores=tuple(float(t) for t in time_scores) if time_scores is not None else None,
-                  title=s.get("title"), time_unit=s.get("time_unit"))
+                  title=s.get("title"), time_unit=s.get("time_unit"),
+                  left_out=tuple(str(c) for c in s.get("left_out") or ()))
 
     variables: dict[str, Variable] = {}
     for i, v in enumerate(data["variables"]):

@@ -130,11 +130,15 @@ def time_scores_for(waves: list) -> tuple[list, list, str, bool]:
             first = values[0]
             scores = [_num(v - first) for v in values]
             return ordered, scores, f"calendar years counted from {_num(first)}, spacing kept", False
-        scores = [_num(v) for v in values]
-        note = "the wave labels themselves, spacing kept"
-        if values[0] != 0:
-            note += ("; time 0 is label 0, so the intercept is the expected value there: "
-                     f"subtract {_num(values[0])} from each to put it at the first wave")
+        first = values[0]
+        if first == 0:
+            return ordered, [_num(v) for v in values], "the wave labels themselves, spacing kept", False
+        # counted from the first label: the intercept is the level at the first wave, not at
+        # label 0 (day 0 of days 152-258 is far outside the data, and such a distant origin
+        # makes the growth factors nearly collinear: no standard errors, a lower maximum found)
+        scores = [_num(round(v - first, 10)) for v in values]
+        note = (f"the wave labels counted from the first ({_num(first)} -> 0), spacing kept, so the intercept "
+                f"is the level at the first wave; to put time 0 at label 0 instead, use the labels themselves")
         return ordered, scores, note, False
     labels = [parse_wave_label(w) for w in waves]
     kinds = {lab.kind for lab in labels}
@@ -553,6 +557,9 @@ def draft_text(tables, *, id=None, wave=None, waves=None) -> str:
     unit = time_unit_for(labels) if waves is None and not time_guess else None
     if unit:
         out.append(f"  time_unit: {unit}" + _review("read from the wave labels; the figures' time axis names it"))
+    if lay.row_numbers:
+        out.append(f"  left_out: {_y(list(lay.row_numbers))}"
+                   + _review("numbers the rows 1, 2, 3, ...: a row index, not a measurement; read by no step"))
     if lay.kind == "single" and lay.wave_guess:
         out.append(f"  # {GUESS_MARK}: {lay.wave_note}; check it, then delete this comment")
     out.append("variables:")
@@ -623,9 +630,6 @@ def draft_text(tables, *, id=None, wave=None, waves=None) -> str:
             series = pd.to_numeric(series.where(~series.astype(str).str.strip().isin(letters)), errors="coerce")
         out += draft_variable(name, series, labels_.get(name, ""), value_labels.get(name, {}), um, vwaves,
                               note=note)
-    if lay.row_numbers:
-        out.append(f"# left out: {', '.join(lay.row_numbers)} (numbers the rows 1, 2, 3, ...: a row index, "
-                   "not a measurement)")
     out.append("# scales:  (name each scale here and set `scale:` on its items)")
     out.append("#   my_scale: {label: My scale, min_share: 0.8}")
     return "\n".join(out) + "\n"
@@ -702,8 +706,11 @@ def draft_variable(name, series, label, value_labels, user_missing, var_waves, n
         if len(uniq) and all(_is_date(v) for v in uniq[:50]):
             lines.append("    type: date")
         elif 0 < len(uniq) <= MAX_TEXT_LEVELS and len(text) >= 2 * len(uniq):
+            order, why = level_order(text)
             lines.append("    type: category" + _review("guessed from few distinct values"))
-            lines.append(f"    levels: {_y({u: u for u in uniq})}")
+            lines.append(f"    levels: {_y({u: u for u in order})}"
+                         + _review(f"the first level, {order[0]!r}, is the reference of comparisons ({why}); "
+                                   "to change it, put another level first"))
         else:
             lines.append("    type: text")
     if missing or guessed:
@@ -720,6 +727,51 @@ def draft_variable(name, series, label, value_labels, user_missing, var_waves, n
     if any(part in str(name).lower() for part in _IDENTIFYING) and not numeric:
         lines.append("    identifier: true" + _review("looks like a direct identifier"))
     return lines
+
+
+#: level names that usually mark the comparison group (compared case-insensitively)
+REFERENCE_WORDS = ("control", "controls", "placebo", "none", "no", "never", "normal", "untreated",
+                   "usual care", "standard", "standard care", "reference", "baseline", "absent",
+                   "negative", "healthy", "sham", "waitlist", "wait list", "not treated")
+#: level names with an order of their own (each tuple from lowest to highest)
+ORDERED_WORDS = (("none", "low", "medium", "high"), ("none", "low", "moderate", "high"),
+                 ("low", "middle", "high"), ("low", "mid", "high"), ("no", "yes"),
+                 ("never", "rarely", "sometimes", "often", "always"), ("small", "medium", "large"),
+                 ("mild", "moderate", "severe"))
+
+
+def level_order(values: pd.Series) -> tuple[list, str]:
+    """The drafted order of a text category's levels and why its first level comes first.
+
+    The first level is the reference of every comparison (conditional growth models, the
+    forest's dependence tables), so it is chosen, in this order: the order of level names
+    that have one (``low``, ``medium``, ``high``; ``no``, ``yes``; ``never`` ... ``always``);
+    a level whose name marks a comparison group (:data:`REFERENCE_WORDS`: ``control``,
+    ``placebo``, ``none`` ...), the others following alphabetically; else the most frequent
+    level (ties: the one seen first), the others following alphabetically.
+
+    >>> level_order(pd.Series(["ozone", "ozone", "control"]))
+    (['control', 'ozone'], 'a usual name of a comparison group')
+    >>> level_order(pd.Series(["high", "low", "low", "medium"]))[0]
+    ['low', 'medium', 'high']
+    >>> level_order(pd.Series(["b", "a", "b"]))
+    (['b', 'a'], 'the most frequent level')
+    """
+    text = values.dropna().astype(str)
+    uniq = sorted(set(text))
+    lower = {u.strip().lower(): u for u in uniq}
+    if len(lower) == len(uniq):
+        for seq in ORDERED_WORDS:
+            if set(lower) <= set(seq) and len(lower) >= 2:
+                return [lower[w] for w in seq if w in lower], "the order of the level names"
+    for word in REFERENCE_WORDS:
+        if word in lower:
+            ref = lower[word]
+            return [ref] + [u for u in uniq if u != ref], "a usual name of a comparison group"
+    counts = text.value_counts(sort=False)
+    first_seen = {v: i for i, v in enumerate(dict.fromkeys(text.tolist()))}
+    ref = min(uniq, key=lambda u: (-int(counts[u]), first_seen[u]))
+    return [ref] + [u for u in uniq if u != ref], "the most frequent level"
 
 
 def _is_date(text: str) -> bool:

@@ -26,7 +26,7 @@ import pandas as pd
 from wavetrail.report import inputs as _in
 from wavetrail.report.inputs import _code
 from wavetrail.report.formatting import (
-    MISSING, Table, esc, fmt_bool, fmt_chisq, fmt_count, fmt_interval, fmt_number, fmt_p, fmt_percent,
+    MISSING, Table, esc, fmt_bool, fmt_chisq, fmt_count, fmt_estimate, fmt_interval, fmt_number, fmt_p, fmt_percent,
     fmt_small, fmt_unit,
 )
 
@@ -225,7 +225,8 @@ class Report:
         elif len(imp) and pd.to_numeric(imp["importance"], errors="coerce").isna().all():
             facts.append(("Moderator forest", "no split was possible (no predictor could be tested)"))
         elif _found_nothing(imp):
-            facts.append(("Moderator forest", "no predictor was selected for a split"))
+            facts.append(("Moderator forest", "some trees split, but no predictor improved the out-of-bag fit"
+                          if self._trees_split() else "no predictor was selected for a split"))
         else:
             top = imp.sort_values(["rank", "predictor"]).iloc[0]
             facts.append(("Top moderator (exploratory)", f"{self.study.label(top['predictor'])}"))
@@ -633,7 +634,8 @@ class Report:
             key = key if isinstance(key, tuple) else (key,)
             title = " \u2014 ".join([self.study.scale_label(key[0])] + [str(k) for k in key[1:]]) if len(key) > 1 else str(key[0])
             waves = {str(w) for w in self.study.waves}
-            rows = [[_parameter_text(str(r.get("parameter")), waves), fmt_number(r.get("estimate")), fmt_number(r.get("se")),
+            rows = [[_parameter_text(str(r.get("parameter")), waves), fmt_estimate(r.get("estimate")),
+                     fmt_estimate(r.get("se")),
                      fmt_number(r.get("z")), fmt_p(r.get("p")), fmt_number(r.get("std"))] for _, r in part.iterrows()]
             html.append(self._table(Table(f"Estimates of the {title} model",
                                           ["Parameter", "Estimate", "SE", "z", "p", "Std."], rows,
@@ -739,11 +741,20 @@ class Report:
             alpha = forest.get("alpha")
             level = f" at \u03b1 = {fmt_unit(alpha, 2)}" if alpha is not None else ""
             untested = imp.loc[values.isna(), "predictor"].tolist()
-            text = (f"The forest of {fmt_count(forest['trees']) + ' ' if forest.get('trees') else ''}trees found no split: "
-                    f"no tested predictor was associated with differences in the growth trajectories strongly "
-                    f"enough to pass the split test{level}, so there are no expected trajectories or interactions "
-                    f"to show. In this sample the growth model fits everyone alike as far as the tested "
-                    f"predictors can tell.")
+            trees = f"{fmt_count(forest['trees']) + ' ' if forest.get('trees') else ''}trees"
+            split = self._trees_split()
+            if split:
+                text = (f"{fmt_count(split)} of the forest's {trees} split at least once{level}, but no predictor "
+                        f"has a positive permutation importance: permuting it did not lower the out-of-bag fit, so "
+                        f"the splits did not carry over to the people the trees did not draw, as splits found by "
+                        f"chance would not. There are no expected trajectories or interactions to show; in this "
+                        f"sample the tested predictors do not tell apart who develops differently.")
+            else:
+                text = (f"The forest of {trees} found no split: "
+                        f"no tested predictor was associated with differences in the growth trajectories strongly "
+                        f"enough to pass the split test{level}, so there are no expected trajectories or "
+                        f"interactions to show. In this sample the growth model fits everyone alike as far as the "
+                        f"tested predictors can tell.")
             if untested:
                 text += (f" {fmt_count(len(untested))} predictor(s) could never be tested and are not evidence of "
                          f"no association: {', '.join(self.study.label(n) for n in untested[:10])}"
@@ -756,6 +767,14 @@ class Report:
         out += ["<h3>Interactions between predictors</h3>", self._interactions(), self._pair_table()]
         out.append(self._confirmation())
         return Fragment("".join(out), "moderators")
+
+    def _trees_split(self) -> int:
+        """How many trees split at least once (results/forest/overview.csv), 0 when unknown."""
+        ov = self.tables.get("forest_overview")
+        if ov is None or not len(ov) or "trees_split" not in ov.columns:
+            return 0
+        value = pd.to_numeric(ov["trees_split"], errors="coerce").iloc[0]
+        return 0 if pd.isna(value) else int(value)
 
     def _forest_overview(self) -> str:
         """Does the forest generalise (out-of-bag gain), and how many node fits failed."""
@@ -780,7 +799,7 @@ class Report:
             verdict = ("The forest does not predict the trajectories of people it was not grown on measurably better "
                        "than the single growth model: the rankings below may reflect noise.")
         rows = [[fmt_count(r["people"]), fmt_number(r["loglik_forest"], 1), fmt_number(r["loglik_single"], 1),
-                 fmt_number(gain, 1), fmt_number(se, 1), f"{fmt_number(lo, 1)} to {fmt_number(hi, 1)}",
+                 fmt_number(gain, 1), fmt_number(se, 1), f"{fmt_number(lo, 1)}\u00a0to\u00a0{fmt_number(hi, 1)}",  # one line
                  _sig(r["gain_per_person"], 3)]]
         html = "<h3>Does the forest generalise?</h3>" + _p(esc(verdict))
         html += self._table(Table("Out-of-bag log-likelihood: forest against the single growth model",

@@ -54,6 +54,35 @@ def fmt_number(x, digits: int = 2) -> str:
     return _sign(text)
 
 
+_SUPERSCRIPT = str.maketrans("-0123456789", "\u207b\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079")
+
+
+def fmt_estimate(x, digits: int = 2, significant: int = 3) -> str:
+    """An estimate or standard error: ``digits`` decimals, or ``significant`` digits below 0.1.
+
+    Growth parameters in small time units are small (a slope of 0.0137 per day, a slope
+    variance of 0.000013): two decimals would print them as 0.00. Below 0.1 in absolute
+    value the number keeps ``significant`` significant digits, written out down to 0.0001
+    and as a power of ten below that.
+
+    >>> [fmt_estimate(v) for v in (143.0251, -1.5, 0.0136891, -0.000632, 1.31e-05, 0.0)]
+    ['143.03', '−1.50', '0.0137', '−0.000632', '1.31 × 10⁻⁵', '0.00']
+    """
+    if _is_missing(x):
+        return MISSING
+    x = float(x)
+    if math.isinf(x) or x == 0 or abs(x) >= 0.1:
+        return fmt_number(x, digits)
+    exponent = math.floor(math.log10(abs(x)))
+    if exponent >= -4:
+        decimals = significant - 1 - exponent
+        return fmt_number(round(x, decimals), decimals)
+    mant = f"{x / 10.0 ** exponent:.{significant - 1}f}"
+    if mant.lstrip("-") == "10." + "0" * (significant - 1):  # rounding reached the next power
+        mant, exponent = ("-" if x < 0 else "") + "1." + "0" * (significant - 1), exponent + 1
+    return _sign(mant) + " \u00d7 10" + str(exponent).translate(_SUPERSCRIPT)
+
+
 def fmt_unit(x, digits: int = 3) -> str:
     """A statistic bounded by 1 in absolute value, without the leading zero (``.952``).
 
@@ -219,8 +248,6 @@ class Table:
 
     def _cls(self, j: int, value: str | None = None) -> str:
         names = (["wt-num"] if j in self.numeric else []) + (["wt-hash"] if j in self.mono else [])
-        if j in self.numeric and value is not None and str(value).startswith("["):
-            names.append("wt-ci")  # an interval may wrap after its comma on a narrow page
         return f' class="{" ".join(names)}"' if names else ""
 
 

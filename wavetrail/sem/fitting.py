@@ -446,7 +446,18 @@ def observed_information(cm, theta, stats, base=None, numeric=False):
         if I is not None:
             return I
     k = cm.k
-    h = 1e-5 * np.maximum(np.abs(theta), 1.0)
+    # step relative to each parameter's own scale: its size, or its standard error from the
+    # expected information when that is below 1 (a slope variance per day of 1e-5 would be
+    # moved by its own size with a step of 1e-5)
+    floor = np.ones(k)
+    try:
+        info = evaluate(cm, theta[None], stats, grad=False, info=True, base=base)[1][0]
+        d = np.diag(info)
+        ok = np.isfinite(d) & (d > 0)
+        floor[ok] = np.minimum(1.0, 1.0 / np.sqrt(d[ok]))
+    except (np.linalg.LinAlgError, ValueError, TypeError):
+        pass
+    h = 1e-5 * np.maximum(np.abs(theta), floor)
     per = max(1, int(4e6 // max(1, k * cm.p * cm.p)))
     rows = np.vstack([theta + np.diag(h), theta - np.diag(h)])
     grads = []
@@ -466,10 +477,18 @@ def _vcov(cm, theta, stats, se_from, drop=()):
     out = np.full((cm.k, cm.k), np.nan)
     try:
         Ik = I[np.ix_(keep, keep)]
-        ev = np.linalg.eigvalsh(Ik)
+        # singularity judged on the information scaled to unit diagonal, so that the units of
+        # the parameters (a slope per day next to an intercept) do not decide it: growth in
+        # days gives variances of 1e-5 beside 0.4 and a raw condition number past 1e10
+        d = np.diag(Ik)
+        if not np.all(np.isfinite(Ik)) or np.any(d <= 0):
+            raise np.linalg.LinAlgError
+        s = 1.0 / np.sqrt(d)
+        scaled = Ik * s[:, None] * s[None, :]
+        ev = np.linalg.eigvalsh(scaled)
         if ev[0] <= 1e-10 * max(abs(ev[-1]), 1e-300):
             raise np.linalg.LinAlgError
-        out[np.ix_(keep, keep)] = np.linalg.inv(Ik)
+        out[np.ix_(keep, keep)] = np.linalg.inv(scaled) * s[:, None] * s[None, :]
         return out
     except np.linalg.LinAlgError:
         return out

@@ -223,16 +223,6 @@ def _level_labels(job, names) -> dict[str, dict[str, str]]:
 
 
 
-def _time_unit(job) -> str | None:
-    """The codebook's unit of the time scores (``study.time_unit``), None when it names none."""
-    from wavetrail.codebook import load_codebook
-
-    try:
-        return load_codebook(job.path(job.input["codebook"])).study.time_unit
-    except KeyError:
-        return None
-
-
 def _label_of(labels: dict, name: str, level) -> str:
     return labels.get(name, {}).get(code_text(level), str(level))
 
@@ -427,41 +417,22 @@ def pair_table(forest, predictors: pd.DataFrame, chosen, inter: pd.DataFrame, la
 
 
 def _figures(job, imp: pd.DataFrame, dep: pd.DataFrame, names: list[str]) -> None:
-    import matplotlib.pyplot as plt
+    """The importance and expected-trajectory figures, drawn as the report draws them: panels,
+    ticks and the outcome axis named by codebook labels, the time axis by wave, time score
+    and ``study.time_unit``."""
+    from wavetrail.codebook import load_codebook
+    from wavetrail.figures import save_figure
+    from wavetrail.report.plots import dependence_figure, importance_figure
+    from wavetrail.stages.growth import outcome_axis_label
 
-    from wavetrail.figures import LINESTYLES, MARKERS, PALETTE, save_figure, style
-
-    with style():
-        fig, ax = plt.subplots(figsize=(6.0, 0.3 * len(imp) + 1.2))
-        y = np.arange(len(imp))[::-1]
-        se = imp["se"].fillna(0.0).to_numpy()
-        ax.barh(y, imp["importance"], xerr=se, color=PALETTE[0], ecolor="#000000", capsize=2)
-        ax.set_yticks(y, imp["predictor"].tolist())
-        ax.set_xlabel("mean drop in out-of-bag log-likelihood per person (error bars: 1 SE)")
-        ax.axvline(0.0, color="#000000", linewidth=0.8)
-        save_figure(fig, Path(job.path(job.output["importance_figure"])).with_suffix(""), imp)
-
-        unit = _time_unit(job)
-        n = max(1, len(names))
-        cols = min(3, n)
-        rows = int(np.ceil(n / cols))
-        fig, axes = plt.subplots(rows, cols, figsize=(3.2 * cols, 2.6 * rows), squeeze=False,
-                                 sharey=True)
-        for a in axes.ravel()[n:]:
-            a.set_visible(False)
-        for a, name in zip(axes.ravel(), names):
-            sub = dep[dep["predictor"] == name]
-            for i, (level, g) in enumerate(sub.groupby("level", sort=False)):
-                colour = PALETTE[i % len(PALETTE)]
-                a.plot(g["time"], g["expected"], color=colour,
-                       linestyle=LINESTYLES[i % len(LINESTYLES)], marker=MARKERS[i % len(MARKERS)],
-                       label=str(g["label"].iloc[0]) if "label" in g else str(level))
-                if "sd" in g:
-                    # spread of individual trajectories: expected +- 1 SD
-                    a.fill_between(g["time"], g["expected"] - g["sd"], g["expected"] + g["sd"],
-                                   color=colour, alpha=0.12, linewidth=0)
-            a.set_title(name)
-            a.set_xlabel(f"time score ({unit})" if unit else "time score")
-            a.legend(fontsize=7, frameon=False)
-        axes[0, 0].set_ylabel("expected score")
-        save_figure(fig, Path(job.path(job.output["trajectories_figure"])).with_suffix(""), dep)
+    codebook = load_codebook(job.path(job.input["codebook"]))
+    labels = {name: var.label for name, var in codebook.variables.items() if var.label}
+    waves = list(codebook.study.waves)
+    times = list(codebook.study.time_scores or range(len(waves)))
+    outcome = _outcome(job, _settings(job), codebook)
+    fig, data = importance_figure(imp, labels)
+    save_figure(fig, Path(job.path(job.output["importance_figure"])).with_suffix(""), data)
+    fig, data = dependence_figure(dep, names, labels, waves=waves, times=times,
+                                  unit=codebook.study.time_unit,
+                                  ylabel="Expected " + outcome_axis_label(codebook, outcome))
+    save_figure(fig, Path(job.path(job.output["trajectories_figure"])).with_suffix(""), data)
