@@ -246,8 +246,24 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     if search is True or (search == "auto" and (shape == "basis" or residuals == "free")):
         starts = nested_starts(spec, data[wave_cols + cov_names], time_scores, shape, residuals, cov_names,
                                wave_cols)
+    # time scores far from (0, 1, 2, ...) (days, ages) make the search badly scaled: the model is
+    # fitted first on time counted from the first wave in steps of the mean spacing, and its
+    # estimates, carried back to these time scores (the same model, reparametrised), start the fit
+    start, retimed_bounded = None, None
+    shift = standard_time(time_scores, shape)
+    if shift is not None:
+        a, b = shift
+        standard = fit_growth(wide, [(float(t) - a) / b for t in time_scores], shape=shape, residuals=residuals,
+                              covariates=covariates, se_from=se_from, where=where, max_iter=max_iter,
+                              search=search, seed=seed, bounded=bounded)
+        free_fit = standard.unrestricted if standard.unrestricted is not None else standard
+        start = retime(spec.param_names, free_fit.theta, a, b, shape)
+        if starts:
+            starts = [start] + list(starts)
+        if standard.fit.get("estimation") == "bounded" and standard.unrestricted is not None:
+            retimed_bounded = standard
     res = sem_fit(spec, data[wave_cols + cov_names], se_from=se_from, where=where, max_iter=max_iter,
-                  search=search, starts=starts, seed=seed, robust=robust)
+                  search=search, starts=starts, seed=seed, robust=robust, start=start)
     g = GrowthFit(res, shape, residuals, time_scores, wave_cols)
     g.fit["estimation"] = "unrestricted"
     g.fit["boundary"] = ""
@@ -258,7 +274,19 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     g.fit["unrestricted_loglik"] = g.fit["loglik"]
     if res.admissible and res.converged:
         return g  # the unrestricted maximum is admissible: it is the bounded maximum too
-    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, se_from, where, robust)
+    known = None
+    if retimed_bounded is not None:
+        # the admissible set is the same on both time scales (A Psi A' is PSD when Psi is), so the
+        # admissible maximum found on the standard scale, carried back, is the one on this scale
+        from wavetrail.sem.bounded import BoundedResult
+
+        sf = retimed_bounded.fit
+        known = BoundedResult(theta=retime(spec.param_names, retimed_bounded.theta, *shift, shape),
+                              loglik=float(sf["loglik"]), converged=bool(sf["converged"]),
+                              boundary=[x for x in str(sf.get("boundary") or "").split("; ") if x],
+                              pgrad=float("nan"), n_starts=int(sf.get("starts") or 1),
+                              maxima=[float(sf["loglik"])] * max(1, int(sf.get("maxima") or 1)))
+    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, se_from, where, robust, known=known)
     out = GrowthFit(b, shape, residuals, time_scores, wave_cols)
     out.fit["estimation"] = "bounded"
     out.fit["boundary"] = b.fit["boundary"]
@@ -267,8 +295,71 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     return out
 
 
-def _fit_bounded(spec, data, unrestricted, starts, seed, se_from, where, robust=False):
-    """Admissible maximum (variances >= 0, growth-factor covariance PSD) as a SemFit."""
+#: growth factors whose loadings are powers of time, in loading order
+_POWER_FACTORS = {"linear": ("intercept", "slope"), "quadratic": ("intercept", "slope", "quadratic")}
+
+
+def standard_time(time_scores, shape) -> tuple[float, float] | None:
+    """``(a, b)`` when time scores ``t`` are far from ``0, 1, 2, ...``, else None.
+
+    ``s = (t - a) / b`` counts time from the first wave (``a``) in units of the mean
+    spacing (``b``). Only for shapes whose loadings are powers of time (linear,
+    quadratic): there a new origin and unit of time reparametrise the same model.
+    """
+    if shape not in _POWER_FACTORS:
+        return None
+    t = np.asarray(time_scores, dtype=float)
+    if len(t) < 2 or not np.all(np.isfinite(t)):
+        return None
+    a, b = float(t[0]), float(t[-1] - t[0]) / (len(t) - 1)
+    if b <= 0:
+        return None
+    if abs(a) <= 0.5 * b and 0.5 <= b <= 2.0:
+        return None  # already near (0, 1, 2, ...)
+    return a, b
+
+
+def retime(names, theta_s, a, b, shape) -> np.ndarray:
+    """Estimates of a growth model on time ``s = (t - a) / b`` carried to time ``t``.
+
+    The growth factors on ``t`` are ``A`` times those on ``s`` (``1, s, s^2`` written in
+    powers of ``t``): means (and regression intercepts) ``A alpha``, regressions on
+    covariates ``A B``, covariances ``A Psi A'``; residual variances and the covariates'
+    own moments do not change.
+    """
+    factors = _POWER_FACTORS[shape]
+    A = np.array([[1.0, -a / b], [0.0, 1.0 / b]])
+    if len(factors) == 3:
+        A = np.array([[1.0, -a / b, a * a / (b * b)], [0.0, 1.0 / b, -2.0 * a / (b * b)],
+                      [0.0, 0.0, 1.0 / (b * b)]])
+    pos = {name: i for i, name in enumerate(names)}
+    theta = np.asarray(theta_s, dtype=float).copy()
+    out = theta.copy()
+    k = len(factors)
+    mean = np.array([theta[pos[f"mean({f})"]] for f in factors])
+    out[[pos[f"mean({f})"] for f in factors]] = A @ mean
+    psi = np.zeros((k, k))
+    for i, f in enumerate(factors):
+        for j in range(i, k):
+            name = f"var({f})" if i == j else f"cov({f},{factors[j]})"
+            psi[i, j] = psi[j, i] = theta[pos[name]]
+    psi = A @ psi @ A.T
+    for i, f in enumerate(factors):
+        for j in range(i, k):
+            out[pos[f"var({f})" if i == j else f"cov({f},{factors[j]})"]] = psi[i, j]
+    covs = sorted({n[len("regress(intercept,"):-1] for n in names if n.startswith("regress(intercept,")})
+    for c in covs:
+        rows = [pos[f"regress({f},{c})"] for f in factors]
+        out[rows] = A @ theta[rows]
+    return out
+
+
+def _fit_bounded(spec, data, unrestricted, starts, seed, se_from, where, robust=False, known=None):
+    """Admissible maximum (variances >= 0, growth-factor covariance PSD) as a SemFit.
+
+    ``known``: a :class:`wavetrail.sem.bounded.BoundedResult` already found (on another
+    time scale), summarised here instead of searching again.
+    """
     from wavetrail.sem.bounded import fit_bounded
     from wavetrail.sem.fitting import check_data, data_matrix, robust_errors, summarise
     from wavetrail.sem.stats import SuffStats
@@ -277,7 +368,8 @@ def _fit_bounded(spec, data, unrestricted, starts, seed, se_from, where, robust=
     notes = check_data(spec, Y, where)
     stats = SuffStats.from_data(Y)
     block = [spec.latent.index(f) for f in spec.latent if not f.endswith("_cov")]
-    r = fit_bounded(spec, stats, block, [unrestricted.theta, spec.start(stats)[0]] + list(starts), seed=seed)
+    r = known if known is not None else \
+        fit_bounded(spec, stats, block, [unrestricted.theta, spec.start(stats)[0]] + list(starts), seed=seed)
     cm = spec.compile()
     at = [a for a, name in enumerate(cm.names) if name in r.boundary]
     if not r.converged:
