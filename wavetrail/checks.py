@@ -39,14 +39,13 @@ identifier                 info      a direct identifier: never written out
 
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 import pandas as pd
 
 from wavetrail.codebook import Codebook, Variable, load_codebook
-from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, _categorical, clean_values, derive_values, load_panel,
-                             match_missing, missing_code_index, text_column, wave_positions)
+from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, _categorical, clean_values, code_positions, derive_values,
+                             load_panel, match_missing, text_column, wave_positions)
 
 __all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
            "looks_like_missing_code"]
@@ -186,7 +185,10 @@ def run_checks(panel_or_paths, codebook: Codebook | str | None = None) -> pd.Dat
     place = {w: i for i, w in enumerate(waves)}
     # the place of each record's codebook wave (its last place; -1: a wave not in study.waves),
     # computed once for every check; the wave itself is waves[__order] (see _record_waves)
-    order = np.asarray([place[w] for w in waves] + [-1], dtype=np.int64)[pos]
+    if [place[w] for w in waves] == list(range(len(waves))):  # distinct waves: the place is the order
+        order = pos
+    else:
+        order = np.asarray([place[w] for w in waves] + [-1], dtype=np.int64)[pos]
     del pos
     rec = rec.assign(__order=order)
 
@@ -296,19 +298,50 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                             rows=_where(sub, dup_all & in_w))
         del keys, dup_all
     first_wave = cb.study.waves[0]
-    # each person's first wave place: filled from the last place down, so the earliest wins
-    first_seen = np.full(n_people, len(cb.study.waves), dtype=np.int64)
-    for k in sorted(set(place.values()), reverse=True):
-        first_seen[person[sub_order == k]] = k
+    starts = _run_starts(sub[sid].to_numpy(), sub_order)
+    if starts is not None:
+        # sorted number ids, each (id, wave) once in wave order: a person's first record is their
+        # earliest wave, and the only record of theirs at that wave
+        first_seen = sub_order[starts].astype(np.int64)
+    else:
+        # each person's first wave place: filled from the last place down, so the earliest wins
+        first_seen = np.full(n_people, len(cb.study.waves), dtype=np.int64)
+        for k in sorted(set(place.values()), reverse=True):
+            first_seen[person[sub_order == k]] = k
     late = np.unique(first_seen[first_seen > 0])
     for o in late.tolist():
         w = cb.study.waves[int(o)]
         who = first_seen == o
-        mask = who[person] & (sub_order == o)
+        mask = starts[who] if starts is not None else who[person] & (sub_order == o)
         out.add("late_entry", "warning",
                 f"{int(who.sum())} id(s) first appear at wave {w}, not at wave {first_wave} "
                 "(file rows in `rows`)", variable=sid, wave=w, count=int(who.sum()),
                 rows=_where(sub, mask))
+
+
+def _run_starts(ids: np.ndarray, order: np.ndarray) -> np.ndarray | None:
+    """Where each person's records start, when number ids come sorted with each (id, wave) once in
+    wave order (the people in order of first appearance); None otherwise."""
+    if ids.dtype.kind not in "iu" or len(ids) < 2:
+        return None
+    step = ids[1:] != ids[:-1]
+    if not (bool(np.all(ids[1:] >= ids[:-1])) and bool(np.all(step | (order[1:] > order[:-1])))):
+        return None
+    starts = np.empty(int(np.count_nonzero(step)) + 1, dtype=np.int64)
+    starts[0] = 0
+    starts[1:] = np.flatnonzero(step) + 1
+    return starts
+
+
+def _whole_numbers(num: np.ndarray, block: int = 1 << 16) -> bool:
+    """True when every finite value of ``num`` is a whole number (looked at in blocks: no
+    full-length temporaries)."""
+    for start in range(0, len(num), block):
+        x = num[start:start + block]
+        with np.errstate(invalid="ignore"):
+            if np.any(np.isfinite(x) & (x != np.round(x))):
+                return False
+    return True
 
 
 def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> None:
@@ -320,13 +353,14 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
     numeric = values.dtype.kind in "iuf"
     empty = np.isnan(values) if values.dtype.kind == "f" else (
         np.zeros(len(values), dtype=bool) if numeric else raw.isna().to_numpy())
-    found = missing_code_index(raw, var)
+    found = code_positions(raw, var)  # (positions, code place) of the cells holding a declared code
     if found is None:  # a column mixing kinds of values: value by value
         hits = match_missing(raw, var)
-        code = hits.notna().to_numpy()
+        at_code = np.flatnonzero(hits.notna().to_numpy())
     else:
-        code = found >= 0
-    filled = ~empty & ~code
+        at_code, code_kind = found
+    filled = ~empty
+    filled[at_code] = False
     del empty
 
     def by_wave(at):
@@ -345,13 +379,12 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
             out.add(check, severity, message(n, vals), variable=var.name, wave=w, count=n,
                     rows=_where(rec, sel))
 
-    at_code = np.flatnonzero(code)
     if len(at_code):
         for w, sel in by_wave(at_code):
             if w is None:
                 continue
             if found is not None:  # the codes met, in order of first appearance (as value_counts)
-                ks, first_at, n_k = np.unique(found[sel], return_index=True, return_counts=True)
+                ks, first_at, n_k = np.unique(code_kind[np.searchsorted(at_code, sel)], return_index=True, return_counts=True)
                 keys = list(var.missing)
                 pairs = [(keys[k], n) for _, k, n in sorted(zip(first_at.tolist(), ks.tolist(),
                                                                 n_k.tolist()))]
@@ -360,7 +393,7 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
             parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in pairs]
             out.add("missing_code", "info", f"{len(sel)} value(s) set to missing: " + ", ".join(parts),
                     variable=var.name, wave=w, count=len(sel), rows=_where(rec, sel))
-    del at_code, code, found
+    del at_code, found
 
     if var.waves is not None:
         # the codebook wave of a record is waves[order] (order < 0: none); listed = among var.waves
@@ -372,8 +405,9 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
 
     if var.type in ("integer", "number"):
         num = values.astype(float, copy=False) if numeric else pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
-        bad = filled & np.isnan(num)
-        if var.type == "integer":
+        # a number column read as numbers: every filled cell is a number (filled excludes NaN)
+        bad = np.zeros(len(num), dtype=bool) if numeric else filled & np.isnan(num)
+        if var.type == "integer" and not (numeric and _whole_numbers(num)):
             bad = bad | (filled & np.isfinite(num) & (num != np.round(num)))
         emit("type_mismatch", "error", np.flatnonzero(bad),
              lambda n, v: f"{n} value(s) are not {'whole numbers' if var.type == 'integer' else 'numbers'} "
@@ -518,17 +552,22 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
         if len(scale.items) < MIN_STRAIGHT_ITEMS:
             continue
         # column by column (no 2-D copy of the items): every item answered and all answers equal
+        # (the first answer finite and every other equal to it)
         cols = [long[item].to_numpy(dtype=float) for item in scale.items]
-        complete = np.logical_and.reduce([np.isfinite(c) for c in cols])
-        same = complete & (functools.reduce(np.maximum, cols) == functools.reduce(np.minimum, cols))
+        same = np.isfinite(cols[0])
+        for c in cols[1:]:
+            same &= c == cols[0]
+        at = np.flatnonzero(same)  # the few straight-lined rows, split by wave below
+        del same
+        wave_at = long[panel.wave].iloc[at].reset_index(drop=True)
         for w in panel.waves:
-            m = same & (long[panel.wave] == w).to_numpy()
-            n = int(m.sum())
+            sel = at[(wave_at == w).to_numpy()]
+            n = len(sel)
             if n:
                 out.add("straight_lining", "warning",
                         f"{n} people gave the same answer to all {len(scale.items)} items of {name} "
                         "(file rows in `rows`)", variable=name, wave=w, count=n,
-                        rows=_where(panel.origin, m))
+                        rows=_where(panel.origin, sel))
 
 
 # --------------------------------------------------------------------------- tables
@@ -540,7 +579,7 @@ def _person_codes(ids: np.ndarray) -> tuple[np.ndarray, int]:
     Sorted number ids (the long table's order) are numbered by runs, without hashing.
     """
     if ids.dtype.kind in "iu" and len(ids) > 1 and bool(np.all(ids[1:] >= ids[:-1])):
-        person = np.empty(len(ids), dtype=np.intp)
+        person = np.empty(len(ids), dtype=np.int32 if len(ids) < 2**31 else np.intp)
         person[0] = 0
         np.cumsum(ids[1:] != ids[:-1], out=person[1:])
         return person, int(person[-1]) + 1
