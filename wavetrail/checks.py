@@ -44,8 +44,8 @@ import numpy as np
 import pandas as pd
 
 from wavetrail.codebook import Codebook, Variable, load_codebook
-from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, _categorical, clean_values, code_positions, derive_values,
-                             load_panel, match_missing, text_column, wave_positions)
+from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, _categorical, _small_int_lookup, clean_values, code_positions,
+                             derive_values, load_panel, match_missing, text_column, wave_positions)
 
 __all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
            "looks_like_missing_code"]
@@ -280,10 +280,13 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
     sub_order = sub["__order"].to_numpy()
     place = {w: i for i, w in enumerate(cb.study.waves)}
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
-    person, n_people = _person_codes(sub[sid].to_numpy())  # one integer per person
+    starts = _run_starts(sub[sid].to_numpy(), sub_order)
+    repeats = len(panel.long) != len(sub)
+    # one integer per person: not needed for sorted records without a repeated pair
+    person, n_people = _person_codes(sub[sid].to_numpy()) if starts is None or repeats else (None, len(starts))
     # the long table holds one row per distinct (id, wave) pair of these records: as many rows as
     # records means no pair repeats (no hashing of the pairs needed)
-    if len(panel.long) != len(sub):
+    if repeats:
         keys = pd.Series(person.astype(np.int64) * (len(cb.study.waves) + 1) + sub_order)
         dup_all = keys.duplicated(keep=False).to_numpy()
         if dup_all.any():
@@ -298,7 +301,6 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                             rows=_where(sub, dup_all & in_w))
         del keys, dup_all
     first_wave = cb.study.waves[0]
-    starts = _run_starts(sub[sid].to_numpy(), sub_order)
     if starts is not None:
         # sorted number ids, each (id, wave) once in wave order: a person's first record is their
         # earliest wave, and the only record of theirs at that wave
@@ -603,7 +605,20 @@ def attrition(panel: Panel) -> pd.DataFrame:
     person, n_all = _person_codes(long[panel.id].to_numpy())
     wave_col = long[panel.wave].to_numpy()
     present = {}
+    place = {}
+    for k, w in enumerate(panel.waves):
+        place.setdefault(w, k)
+    at = _small_int_lookup(wave_col, lambda v: place.get(v, -1), np.int64) if len(place) == len(panel.waves) \
+        and all(type(w) is int for w in panel.waves) else None
+    if at is not None:  # integer waves: each row's wave place by one look-up, presence by one scatter
+        has_all = np.zeros((len(panel.waves) + 1, n_all), dtype=bool)  # (the last row: no listed wave)
+        has_all[at, person] = True
+        del at
+        for k, w in enumerate(panel.waves):
+            present[w] = has_all[k]
     for w in panel.waves:
+        if w in present:
+            continue
         has = np.zeros(n_all, dtype=bool)
         has[person[wave_col == w]] = True
         present[w] = has
@@ -636,14 +651,8 @@ def describe(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     rows = []
-    # the rows put in wave order once (stable: each wave's rows keep their order, so every sum runs as
-    # over a boolean selection); a wave's rows are then one slice of that order
+    # each wave's rows (in table order, so every sum runs as over a boolean selection), found once
     wave_col = long[panel.wave].to_numpy()
-    wave_codes = pd.factorize(wave_col)[0]
-    if len(wave_codes) and wave_codes.max() < 2**15:  # small codes: numpy's stable sort is a radix sort
-        wave_codes = wave_codes.astype(np.int16)
-    by_wave = np.argsort(wave_codes, kind="stable")
-    sorted_waves = wave_col[by_wave]
     in_wave: dict = {}
     for var in panel.codebook.data_variables():
         if var.identifier or var.type in ("text",) or var.name not in long.columns:
@@ -651,28 +660,25 @@ def describe(panel: Panel) -> pd.DataFrame:
         column = long[var.name]
         numbers = codes = None
         if var.type in ("integer", "number") and column.dtype.kind in "iuf":
-            numbers = column.to_numpy(dtype=float)[by_wave]
+            numbers = column.to_numpy(dtype=float)
         elif var.type == "category" and isinstance(column.dtype, pd.CategoricalDtype):
-            codes = column.array.codes[by_wave]
+            codes = column.array.codes
         for w in panel.waves:
             if not var.measured_at(w):
                 continue
             if w not in in_wave:
-                at = np.flatnonzero(sorted_waves == w)
-                contiguous = len(at) == 0 or at[-1] - at[0] + 1 == len(at)
-                in_wave[w] = slice(int(at[0]), int(at[-1]) + 1) if len(at) and contiguous else \
-                    (slice(0, 0) if contiguous else np.sort(by_wave[at]))
+                in_wave[w] = np.flatnonzero(wave_col == w)
             part = in_wave[w]
             row = {"variable": var.name, "wave": w, "n": 0, "missing": 0, "mean": np.nan, "sd": np.nan,
                    "min": np.nan, "max": np.nan, "levels": ""}
-            if numbers is not None and isinstance(part, slice):
+            if numbers is not None:
                 x = numbers[part]  # missing = NaN
                 row.update(n=int(np.count_nonzero(~np.isnan(x))), missing=int(np.count_nonzero(np.isnan(x))))
                 x = x[np.isfinite(x)]
                 if len(x):
                     row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
                                sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
-            elif codes is not None and isinstance(part, slice):
+            elif codes is not None:
                 # level counts from the codes, every level in level order (as value_counts(sort=False))
                 c = codes[part]
                 counts = np.bincount(c[c >= 0], minlength=len(column.cat.categories))
@@ -680,7 +686,7 @@ def describe(panel: Panel) -> pd.DataFrame:
                 row["levels"] = "; ".join(f"{_show(k)}:{int(v)}"
                                           for k, v in zip(column.cat.categories.tolist(), counts.tolist()))
             else:
-                col = column.iloc[by_wave[part]] if isinstance(part, slice) else column.iloc[part]
+                col = column.iloc[part]
                 row.update(n=int(col.notna().sum()), missing=int(col.isna().sum()))
                 if var.type in ("integer", "number"):
                     x = col.to_numpy(dtype=float)

@@ -618,7 +618,11 @@ def _clean(panel: Panel):
     wave_values = np.empty(len(waves), dtype=object)
     wave_values[:] = waves
     if _wave_dtype(cb.study.waves) == "int64":
-        wave_column = np.asarray(waves, dtype=np.int64)[base_order]
+        raw_wave = rec[WAVE_RAW]
+        if whole and raw_wave.dtype == np.int64 and _waves_as_read(raw_wave.to_numpy(), waves):
+            wave_column = raw_wave.reset_index(drop=True)  # every record's wave as read: shared, not copied
+        else:
+            wave_column = np.asarray(waves, dtype=np.int64)[base_order]
     else:
         wave_column = pd.Series(wave_values[base_order], dtype=object).to_numpy()
     columns = {panel.id: id_column.reset_index(drop=True) if whole else base_id, panel.wave: wave_column}
@@ -666,6 +670,19 @@ def _clean(panel: Panel):
     origin = pd.DataFrame({FILE: files.to_numpy(dtype=object) if files.dtype == object else files.array,
                            ROW: rec[ROW].to_numpy() if whole else rec[ROW].to_numpy()[take]}, copy=False)
     return long, missing, origin
+
+
+def _waves_as_read(raw: np.ndarray, waves: list) -> bool:
+    """True when every distinct value of an integer wave column is the codebook wave it stands for
+    (so the tidy wave column equals the column as read)."""
+    distinct = _distinct_values(raw)
+    if distinct is None:
+        return False
+    lookup: dict = {}
+    for w in waves:
+        lookup[wave_key(w)] = w  # a later wave with the same key wins, as in wave_positions
+    return all(type(v) is int and type(lookup.get(wave_key(v))) is int and lookup.get(wave_key(v)) == v
+               for v in distinct)
 
 
 def _text_take(distinct: list, at: np.ndarray):
