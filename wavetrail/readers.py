@@ -18,6 +18,7 @@ import csv
 import io
 import os
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -215,17 +216,23 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
         return None
     sep = delimiter.encode()
     bom = first_bytes.startswith(b"\xef\xbb\xbf")
-    counted = _count_plain_lines(path, bom) if head[0].strip() and head[1].strip() else None
-    frame = None
-    if counted is not None:
-        n_lines, n_quotes = counted
+    frame = counted = None
+    if head[0].strip() and head[1].strip():
         header_bytes, first_rec = head[0].encode("utf-8"), head[1].encode("utf-8")
-        header = _header_fields(header_bytes, first_rec, n_quotes, delimiter)
+        header = _header_fields(header_bytes, first_rec, header_bytes.count(b'"'), delimiter)
         if header is None:
             return None
-        frame = _parse_columns(path, delimiter, header)
+        # the lines are counted in a second thread while pandas parses (both mostly outside the GIL)
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            counting = pool.submit(_count_plain_lines, path, bom)
+            frame = _parse_columns(path, delimiter, header)
+            counted = counting.result()
+        if counted is not None and counted[1] != header_bytes.count(b'"'):
+            return None  # a quote after the header
         if frame is None:
             return None
+    if counted is not None:
+        n_lines, _ = counted
         if len(frame) == n_lines - 1:
             # pandas skips blank lines and, without quotes, makes at most one record of a line: as many
             # records as lines after the header means every one of them is a record
@@ -287,7 +294,7 @@ def _count_plain_lines(path: Path, bom: bool) -> tuple[int, int] | None:
                 cr_open = False
             if b'"' in block:
                 n_quotes += block.count(b'"')
-            n_nl += block.count(b"\n")
+            n_nl += int(np.count_nonzero(np.frombuffer(block, dtype=np.uint8) == 10))  # (numpy lets go of the GIL)
             last = block[-1:]
     if cr_open:
         return None
