@@ -336,3 +336,115 @@ def test_long_table_shares_unchanged_read_columns_but_writes_stay_apart(tmp_path
     # the code cells are blank in the long table and kept as read in the records
     assert np.isnan(panel.long["it1"].to_numpy()[(d["it1"] == -99).to_numpy()]).all()
     assert (panel.records["it1"].to_numpy()[(d["it1"] == -99).to_numpy()] == -99).all()
+
+
+def _plain_file(path, n=600, seed=4, last_gaps=False):
+    """A plain long file (ASCII, no quotes): the one-pass line count applies."""
+    rng = np.random.default_rng(seed)
+    lines = ["pid,wave,it,sex,hours"]
+    for i in range(n):
+        hours = "" if last_gaps and rng.random() < 0.1 else f"{rng.gamma(2.0, 3.0):.1f}"
+        lines.append(f"{i // 3 + 1},{i % 3 + 1},{rng.choice(['1', '2', '-99', ''])},{rng.integers(1, 3)},{hours}")
+    return lines
+
+
+@pytest.mark.parametrize("damage", ["none", "crlf", "trailing_blank", "blank_middle", "space_line", "bom",
+                                    "no_final_newline", "leading_blank", "short", "short_gaps", "long",
+                                    "lone_cr", "late_quote", "tab_line"])
+def test_one_pass_line_count_equals_the_line_scan(tmp_path, monkeypatch, damage):
+    """Plain files are counted in one pass (records = lines 2, 3, ... when pandas finds one record per line);
+    any blank or odd line sends the file to the line scan. Either way the rows, values and the refusals
+    are those of the line-by-line parser."""
+    lines = _plain_file(tmp_path, last_gaps=damage == "short_gaps")
+    end = "\n"
+    if damage == "crlf":
+        end = "\r\n"
+    elif damage == "blank_middle":
+        lines[100:100] = [""]
+    elif damage == "space_line":
+        lines[100:100] = ["   "]
+    elif damage == "tab_line":
+        lines[100:100] = ["\t \t"]
+    elif damage == "leading_blank":
+        lines[0:0] = [""]
+    elif damage in ("short", "short_gaps"):
+        lines[300] = lines[300].rsplit(",", 1)[0]
+    elif damage == "long":
+        lines[300] = lines[300] + ",1"
+    elif damage == "lone_cr":
+        lines[300] = lines[300] + "\r" + lines[301]
+        del lines[301]
+    elif damage == "late_quote":
+        pid, _, rest = lines[301].split(",", 2)
+        lines[301] = f'{pid},"2",{rest}'  # a quoted wave deep in the file
+    data = end.join(lines) + ("" if damage == "no_final_newline" else end)
+    if damage == "trailing_blank":
+        data += "\n\n"
+    raw = data.encode()
+    if damage == "bom":
+        raw = b"\xef\xbb\xbf" + raw
+    path = tmp_path / "plain.csv"
+    path.write_bytes(raw)
+    scans = []
+    real_scan = readers._scan_lines
+    monkeypatch.setattr(readers, "_scan_lines", lambda *a: scans.append(1) or real_scan(*a))
+    monkeypatch.setattr(readers, "FAST_BYTES", 0)
+    monkeypatch.setattr(readers, "_SCAN_BYTES", 1000)  # blocks end mid-line (and mid-\r\n)
+    fast = readers._read_delimited_columnar(path, None)
+    if damage in ("none", "crlf", "bom", "no_final_newline", "short_gaps"):
+        assert not scans  # counted in one pass, no line scan
+    monkeypatch.setattr(readers, "FAST_BYTES", 1 << 40)
+    try:
+        slow = readers.read_table(path)
+    except readers.DataError as exc:
+        assert fast is None, exc
+        assert damage in ("short", "short_gaps", "long")
+        return
+    if fast is None:  # refused by the columnar reader, read by the line parser (a lone \r, a quote)
+        assert damage in ("lone_cr", "late_quote")
+        return
+    assert fast.rows.tolist() == slow.rows.tolist()
+    assert fast.rows.dtype == np.int64
+    assert list(fast.frame.columns) == list(slow.frame.columns)
+    for c in slow.frame:
+        assert fast.frame[c].dtype == slow.frame[c].dtype, c
+        same(fast.frame[c].astype(object), slow.frame[c].astype(object))
+    if damage == "blank_middle":
+        assert fast.rows[98:101].tolist() == [100, 102, 103]  # the blank line 101 holds no record
+
+
+def test_code_positions_equal_the_dense_code_index():
+    """Declared codes as sorted positions and code places: what missing_code_index marks, first code first."""
+    from wavetrail.panel import code_positions, missing_code_index
+
+    for name, raw in columns().items():
+        for var in VARIABLES + [Variable(name="z", type="number", missing={2**53: "a", 2**53 + 1: "b", -99: "c"})]:
+            dense = missing_code_index(raw, var)
+            sparse = code_positions(raw, var)
+            if dense is None:
+                assert sparse is None, (name, var.name)
+                continue
+            idx, kinds = sparse
+            assert idx.tolist() == np.flatnonzero(dense >= 0).tolist(), (name, var.name)
+            assert kinds.tolist() == dense[idx].tolist(), (name, var.name)
+    big = pd.Series(np.array([2**53, 1, 2**53 + 1, -99], dtype=np.int64))  # 2**53 + 1 equals 2**53 as a float
+    var = Variable(name="z", type="number", missing={2**53: "a", 2**53 + 1: "b", -99: "c"})
+    idx, kinds = code_positions(big, var)
+    assert idx.tolist() == [0, 2, 3] and kinds.tolist() == [0, 0, 2]
+
+
+@pytest.mark.parametrize("values", [[3, 1, 2, 2, 7, 1], [0, 5, 5, 0], [-4, -1, 2, -4], [2**40, 1, 2]])
+def test_integer_table_look_ups_equal_the_per_value_functions(values):
+    from wavetrail.panel import _categorical, _distinct_values, factorize_column
+
+    raw = pd.Series(np.asarray(values, dtype=np.int64))
+    waves = [1, 2, 3, 5]
+    lookup = {wave_key(w): i for i, w in enumerate(waves)}
+    assert wave_positions(raw, waves).tolist() == [lookup.get(wave_key(v), -1) for v in values]
+    assert wave_positions(raw, waves).dtype == np.int64
+    assert _distinct_values(raw) == factorize_column(raw)[1]
+    assert sorted(_distinct_values(raw)) == sorted(set(values))
+    for codes in ([1, 2], [2, 1, 3], ["1", 5]):
+        cat = _categorical(raw, codes, ordered=False)
+        expected = pd.Categorical([level_of(v, codes) for v in values], categories=codes)
+        assert cat.codes.tolist() == expected.codes.tolist() and cat.codes.dtype == expected.codes.dtype

@@ -39,14 +39,13 @@ identifier                 info      a direct identifier: never written out
 
 from __future__ import annotations
 
-import functools
 
 import numpy as np
 import pandas as pd
 
 from wavetrail.codebook import Codebook, Variable, load_codebook
-from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, _categorical, clean_values, derive_values, load_panel,
-                             match_missing, missing_code_index, text_column, wave_positions)
+from wavetrail.panel import (FILE, ROW, WAVE_RAW, Panel, _categorical, _small_int_lookup, clean_values, code_positions,
+                             derive_values, load_panel, match_missing, text_column, wave_positions)
 
 __all__ = ["run_checks", "describe", "attrition", "FINDING_COLUMNS", "SEVERITIES", "has_errors",
            "looks_like_missing_code"]
@@ -186,7 +185,10 @@ def run_checks(panel_or_paths, codebook: Codebook | str | None = None) -> pd.Dat
     place = {w: i for i, w in enumerate(waves)}
     # the place of each record's codebook wave (its last place; -1: a wave not in study.waves),
     # computed once for every check; the wave itself is waves[__order] (see _record_waves)
-    order = np.asarray([place[w] for w in waves] + [-1], dtype=np.int64)[pos]
+    if [place[w] for w in waves] == list(range(len(waves))):  # distinct waves: the place is the order
+        order = pos
+    else:
+        order = np.asarray([place[w] for w in waves] + [-1], dtype=np.int64)[pos]
     del pos
     rec = rec.assign(__order=order)
 
@@ -280,10 +282,13 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
     sub_order = sub["__order"].to_numpy()
     place = {w: i for i, w in enumerate(cb.study.waves)}
     # (id as text, wave): ids are all numbers or all text here, so the id itself compares the same
-    person, n_people = _person_codes(sub[sid].to_numpy())  # one integer per person
+    starts = _run_starts(sub[sid].to_numpy(), sub_order)
+    repeats = len(panel.long) != len(sub)
+    # one integer per person: not needed for sorted records without a repeated pair
+    person, n_people = _person_codes(sub[sid].to_numpy()) if starts is None or repeats else (None, len(starts))
     # the long table holds one row per distinct (id, wave) pair of these records: as many rows as
     # records means no pair repeats (no hashing of the pairs needed)
-    if len(panel.long) != len(sub):
+    if repeats:
         keys = pd.Series(person.astype(np.int64) * (len(cb.study.waves) + 1) + sub_order)
         dup_all = keys.duplicated(keep=False).to_numpy()
         if dup_all.any():
@@ -298,19 +303,49 @@ def _ids_and_waves(panel: Panel, rec: pd.DataFrame, out: _Collector) -> None:
                             rows=_where(sub, dup_all & in_w))
         del keys, dup_all
     first_wave = cb.study.waves[0]
-    # each person's first wave place: filled from the last place down, so the earliest wins
-    first_seen = np.full(n_people, len(cb.study.waves), dtype=np.int64)
-    for k in sorted(set(place.values()), reverse=True):
-        first_seen[person[sub_order == k]] = k
+    if starts is not None:
+        # sorted number ids, each (id, wave) once in wave order: a person's first record is their
+        # earliest wave, and the only record of theirs at that wave
+        first_seen = sub_order[starts].astype(np.int64)
+    else:
+        # each person's first wave place: filled from the last place down, so the earliest wins
+        first_seen = np.full(n_people, len(cb.study.waves), dtype=np.int64)
+        for k in sorted(set(place.values()), reverse=True):
+            first_seen[person[sub_order == k]] = k
     late = np.unique(first_seen[first_seen > 0])
     for o in late.tolist():
         w = cb.study.waves[int(o)]
         who = first_seen == o
-        mask = who[person] & (sub_order == o)
+        mask = starts[who] if starts is not None else who[person] & (sub_order == o)
         out.add("late_entry", "warning",
                 f"{int(who.sum())} id(s) first appear at wave {w}, not at wave {first_wave} "
                 "(file rows in `rows`)", variable=sid, wave=w, count=int(who.sum()),
                 rows=_where(sub, mask))
+
+
+def _run_starts(ids: np.ndarray, order: np.ndarray) -> np.ndarray | None:
+    """Where each person's records start, when number ids come sorted with each (id, wave) once in
+    wave order (the people in order of first appearance); None otherwise."""
+    if ids.dtype.kind not in "iu" or len(ids) < 2:
+        return None
+    step = ids[1:] != ids[:-1]
+    if not (bool(np.all(ids[1:] >= ids[:-1])) and bool(np.all(step | (order[1:] > order[:-1])))):
+        return None
+    starts = np.empty(int(np.count_nonzero(step)) + 1, dtype=np.int64)
+    starts[0] = 0
+    starts[1:] = np.flatnonzero(step) + 1
+    return starts
+
+
+def _whole_numbers(num: np.ndarray, block: int = 1 << 16) -> bool:
+    """True when every finite value of ``num`` is a whole number (looked at in blocks: no
+    full-length temporaries)."""
+    for start in range(0, len(num), block):
+        x = num[start:start + block]
+        with np.errstate(invalid="ignore"):
+            if np.any(np.isfinite(x) & (x != np.round(x))):
+                return False
+    return True
 
 
 def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> None:
@@ -322,13 +357,14 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
     numeric = values.dtype.kind in "iuf"
     empty = np.isnan(values) if values.dtype.kind == "f" else (
         np.zeros(len(values), dtype=bool) if numeric else raw.isna().to_numpy())
-    found = missing_code_index(raw, var)
+    found = code_positions(raw, var)  # (positions, code place) of the cells holding a declared code
     if found is None:  # a column mixing kinds of values: value by value
         hits = match_missing(raw, var)
-        code = hits.notna().to_numpy()
+        at_code = np.flatnonzero(hits.notna().to_numpy())
     else:
-        code = found >= 0
-    filled = ~empty & ~code
+        at_code, code_kind = found
+    filled = ~empty
+    filled[at_code] = False
     del empty
 
     def by_wave(at):
@@ -347,13 +383,12 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
             out.add(check, severity, message(n, vals), variable=var.name, wave=w, count=n,
                     rows=_where(rec, sel))
 
-    at_code = np.flatnonzero(code)
     if len(at_code):
         for w, sel in by_wave(at_code):
             if w is None:
                 continue
             if found is not None:  # the codes met, in order of first appearance (as value_counts)
-                ks, first_at, n_k = np.unique(found[sel], return_index=True, return_counts=True)
+                ks, first_at, n_k = np.unique(code_kind[np.searchsorted(at_code, sel)], return_index=True, return_counts=True)
                 keys = list(var.missing)
                 pairs = [(keys[k], n) for _, k, n in sorted(zip(first_at.tolist(), ks.tolist(),
                                                                 n_k.tolist()))]
@@ -362,7 +397,7 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
             parts = [f"{_show(c)} {var.missing[c]} ({int(n)})" for c, n in pairs]
             out.add("missing_code", "info", f"{len(sel)} value(s) set to missing: " + ", ".join(parts),
                     variable=var.name, wave=w, count=len(sel), rows=_where(rec, sel))
-    del at_code, code, found
+    del at_code, found
 
     if var.waves is not None:
         # the codebook wave of a record is waves[order] (order < 0: none); listed = among var.waves
@@ -374,8 +409,9 @@ def _values(var: Variable, rec: pd.DataFrame, out: _Collector, cb: Codebook) -> 
 
     if var.type in ("integer", "number"):
         num = values.astype(float, copy=False) if numeric else pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
-        bad = filled & np.isnan(num)
-        if var.type == "integer":
+        # a number column read as numbers: every filled cell is a number (filled excludes NaN)
+        bad = np.zeros(len(num), dtype=bool) if numeric else filled & np.isnan(num)
+        if var.type == "integer" and not (numeric and _whole_numbers(num)):
             bad = bad | (filled & np.isfinite(num) & (num != np.round(num)))
         emit("type_mismatch", "error", np.flatnonzero(bad),
              lambda n, v: f"{n} value(s) are not {'whole numbers' if var.type == 'integer' else 'numbers'} "
@@ -520,17 +556,22 @@ def _straight_lining(panel: Panel, out: _Collector) -> None:
         if len(scale.items) < MIN_STRAIGHT_ITEMS:
             continue
         # column by column (no 2-D copy of the items): every item answered and all answers equal
+        # (the first answer finite and every other equal to it)
         cols = [long[item].to_numpy(dtype=float) for item in scale.items]
-        complete = np.logical_and.reduce([np.isfinite(c) for c in cols])
-        same = complete & (functools.reduce(np.maximum, cols) == functools.reduce(np.minimum, cols))
+        same = np.isfinite(cols[0])
+        for c in cols[1:]:
+            same &= c == cols[0]
+        at = np.flatnonzero(same)  # the few straight-lined rows, split by wave below
+        del same
+        wave_at = long[panel.wave].iloc[at].reset_index(drop=True)
         for w in panel.waves:
-            m = same & (long[panel.wave] == w).to_numpy()
-            n = int(m.sum())
+            sel = at[(wave_at == w).to_numpy()]
+            n = len(sel)
             if n:
                 out.add("straight_lining", "warning",
                         f"{n} people gave the same answer to all {len(scale.items)} items of {name} "
                         "(file rows in `rows`)", variable=name, wave=w, count=n,
-                        rows=_where(panel.origin, m))
+                        rows=_where(panel.origin, sel))
 
 
 # --------------------------------------------------------------------------- tables
@@ -542,7 +583,7 @@ def _person_codes(ids: np.ndarray) -> tuple[np.ndarray, int]:
     Sorted number ids (the long table's order) are numbered by runs, without hashing.
     """
     if ids.dtype.kind in "iu" and len(ids) > 1 and bool(np.all(ids[1:] >= ids[:-1])):
-        person = np.empty(len(ids), dtype=np.intp)
+        person = np.empty(len(ids), dtype=np.int32 if len(ids) < 2**31 else np.intp)
         person[0] = 0
         np.cumsum(ids[1:] != ids[:-1], out=person[1:])
         return person, int(person[-1]) + 1
@@ -566,7 +607,20 @@ def attrition(panel: Panel) -> pd.DataFrame:
     person, n_all = _person_codes(long[panel.id].to_numpy())
     wave_col = long[panel.wave].to_numpy()
     present = {}
+    place = {}
+    for k, w in enumerate(panel.waves):
+        place.setdefault(w, k)
+    at = _small_int_lookup(wave_col, lambda v: place.get(v, -1), np.int64) if len(place) == len(panel.waves) \
+        and all(type(w) is int for w in panel.waves) else None
+    if at is not None:  # integer waves: each row's wave place by one look-up, presence by one scatter
+        has_all = np.zeros((len(panel.waves) + 1, n_all), dtype=bool)  # (the last row: no listed wave)
+        has_all[at, person] = True
+        del at
+        for k, w in enumerate(panel.waves):
+            present[w] = has_all[k]
     for w in panel.waves:
+        if w in present:
+            continue
         has = np.zeros(n_all, dtype=bool)
         has[person[wave_col == w]] = True
         present[w] = has
@@ -599,14 +653,8 @@ def describe(panel: Panel) -> pd.DataFrame:
     """
     long = panel.long
     rows = []
-    # the rows put in wave order once (stable: each wave's rows keep their order, so every sum runs as
-    # over a boolean selection); a wave's rows are then one slice of that order
+    # each wave's rows (in table order, so every sum runs as over a boolean selection), found once
     wave_col = long[panel.wave].to_numpy()
-    wave_codes = pd.factorize(wave_col)[0]
-    if len(wave_codes) and wave_codes.max() < 2**15:  # small codes: numpy's stable sort is a radix sort
-        wave_codes = wave_codes.astype(np.int16)
-    by_wave = np.argsort(wave_codes, kind="stable")
-    sorted_waves = wave_col[by_wave]
     in_wave: dict = {}
     for var in panel.codebook.data_variables():
         if var.identifier or var.type in ("text",) or var.name not in long.columns:
@@ -614,28 +662,25 @@ def describe(panel: Panel) -> pd.DataFrame:
         column = long[var.name]
         numbers = codes = None
         if var.type in ("integer", "number") and column.dtype.kind in "iuf":
-            numbers = column.to_numpy(dtype=float)[by_wave]
+            numbers = column.to_numpy(dtype=float)
         elif var.type == "category" and isinstance(column.dtype, pd.CategoricalDtype):
-            codes = column.array.codes[by_wave]
+            codes = column.array.codes
         for w in panel.waves:
             if not var.measured_at(w):
                 continue
             if w not in in_wave:
-                at = np.flatnonzero(sorted_waves == w)
-                contiguous = len(at) == 0 or at[-1] - at[0] + 1 == len(at)
-                in_wave[w] = slice(int(at[0]), int(at[-1]) + 1) if len(at) and contiguous else \
-                    (slice(0, 0) if contiguous else np.sort(by_wave[at]))
+                in_wave[w] = np.flatnonzero(wave_col == w)
             part = in_wave[w]
             row = {"variable": var.name, "wave": w, "n": 0, "missing": 0, "mean": np.nan, "sd": np.nan,
                    "min": np.nan, "max": np.nan, "levels": ""}
-            if numbers is not None and isinstance(part, slice):
+            if numbers is not None:
                 x = numbers[part]  # missing = NaN
                 row.update(n=int(np.count_nonzero(~np.isnan(x))), missing=int(np.count_nonzero(np.isnan(x))))
                 x = x[np.isfinite(x)]
                 if len(x):
                     row.update(mean=float(x.mean()), min=float(x.min()), max=float(x.max()),
                                sd=float(x.std(ddof=1)) if len(x) > 1 else np.nan)
-            elif codes is not None and isinstance(part, slice):
+            elif codes is not None:
                 # level counts from the codes, every level in level order (as value_counts(sort=False))
                 c = codes[part]
                 counts = np.bincount(c[c >= 0], minlength=len(column.cat.categories))
@@ -643,7 +688,7 @@ def describe(panel: Panel) -> pd.DataFrame:
                 row["levels"] = "; ".join(f"{_show(k)}:{int(v)}"
                                           for k, v in zip(column.cat.categories.tolist(), counts.tolist()))
             else:
-                col = column.iloc[by_wave[part]] if isinstance(part, slice) else column.iloc[part]
+                col = column.iloc[part]
                 row.update(n=int(col.notna().sum()), missing=int(col.isna().sum()))
                 if var.type in ("integer", "number"):
                     x = col.to_numpy(dtype=float)

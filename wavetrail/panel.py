@@ -130,18 +130,49 @@ def factorize_column(raw) -> tuple[np.ndarray, list] | None:
     return None
 
 
-def _factorize_small_ints(values: np.ndarray, span: int = 1 << 20):
-    """Codes and distinct values of integers spanning fewer than ``span`` values (else None)."""
+def _small_int_index(values: np.ndarray, span: int = 1 << 20):
+    """``(index, base, present)`` for integers spanning fewer than ``span`` values (else None):
+    ``index`` = ``values - base`` as array positions (the values themselves when none is negative
+    and the largest is below ``span``: no subtraction), ``present[i]`` = ``base + i`` occurs."""
     lo, hi = int(values.min()), int(values.max())
     if hi - lo >= span:
         return None
-    offset = (values - lo).astype(np.intp, copy=False) if lo >= 0 or values.dtype.kind == "i" else None
-    if offset is None:
+    if lo >= 0 and hi < span and values.dtype.kind == "i" and values.dtype.itemsize == np.dtype(np.intp).itemsize:
+        base, index = 0, values
+    elif lo >= 0 or values.dtype.kind == "i":
+        base, index = lo, (values - lo).astype(np.intp, copy=False)
+    else:
         return None
-    present = np.bincount(offset, minlength=hi - lo + 1) > 0
+    present = np.bincount(index, minlength=hi - base + 1) > 0
+    return index, base, present
+
+
+def _factorize_small_ints(values: np.ndarray, span: int = 1 << 20):
+    """Codes and distinct values of integers spanning fewer than ``span`` values (else None)."""
+    found = _small_int_index(values, span)
+    if found is None:
+        return None
+    index, base, present = found
     code_of = np.cumsum(present) - 1
-    uniq = (np.flatnonzero(present) + lo).astype(values.dtype)
-    return code_of[offset].astype(np.int64, copy=False), uniq
+    uniq = (np.flatnonzero(present) + base).astype(values.dtype)
+    return code_of[index].astype(np.int64, copy=False), uniq
+
+
+def _small_int_lookup(values: np.ndarray, func, dtype) -> np.ndarray | None:
+    """``func(v)`` of every cell of an integer column, by one table look-up per cell: ``func``
+    runs once per distinct value (as a Python int, what :func:`factorize_column` passes). None
+    for other columns or a wide span of values."""
+    if values.dtype.kind not in "iu" or not len(values):
+        return None
+    found = _small_int_index(values)
+    if found is None:
+        return None
+    index, base, present = found
+    table = np.zeros(len(present), dtype=dtype)
+    distinct = np.flatnonzero(present)
+    for i, v in zip(distinct.tolist(), (distinct + base).astype(values.dtype).tolist()):
+        table[i] = func(v)
+    return table[index]
 
 
 def map_column(raw, func) -> np.ndarray:
@@ -186,6 +217,9 @@ def wave_positions(raw, waves) -> np.ndarray:
     for i, w in enumerate(waves):
         lookup[wave_key(w)] = i  # a later wave with the same key wins, as in a dict
     values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    direct = _small_int_lookup(values, lambda v: lookup.get(wave_key(v), -1), np.int64)
+    if direct is not None:  # integer waves: one look-up per cell, no codes in between
+        return direct
     fact = factorize_column(values)
     if fact is None:
         return map_column(raw, lambda v: lookup.get(wave_key(v), -1)).astype(np.int64)
@@ -411,8 +445,8 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
     wave_col = study.wave
     if wave_col in frame.columns:
         raw_wave = frame[wave_col]
-        fact = factorize_column(raw_wave)  # the distinct wave values, each keyed once
-        distinct = pd.unique(wave_keys(raw_wave)) if fact is None else [wave_key(v) for v in fact[1]]
+        distinct = _distinct_values(raw_wave)  # the distinct wave values, each keyed once
+        distinct = pd.unique(wave_keys(raw_wave)) if distinct is None else [wave_key(v) for v in distinct]
         keys = sorted({k for k in distinct if k is not None})
         lookup = {wave_key(w): w for w in study.waves}
         waves = [lookup[k] for k in keys if k in lookup]
@@ -444,6 +478,19 @@ def _map_long(table: RawTable, codebook: Codebook, index: int, n_files: int):
         columns[col] = frame[col].to_numpy()
     # the record table shares the read columns (no copy, no 2-D block of all of them)
     return src, pd.DataFrame(columns, copy=False)
+
+
+def _distinct_values(raw) -> list | None:
+    """The distinct values of a column as :func:`factorize_column` lists them (None where it gives None);
+    integers in a short span from one count per value, without codes per cell."""
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    if values.dtype.kind in "iu" and len(values):
+        found = _small_int_index(values)
+        if found is not None:
+            _, base, present = found
+            return (np.flatnonzero(present) + base).astype(values.dtype).tolist()
+    fact = factorize_column(values)
+    return None if fact is None else fact[1]
 
 
 def _file_column(name: str, n: int) -> pd.Categorical:
@@ -540,29 +587,42 @@ def _clean(panel: Panel):
     # which records make the long table, in which order: worked out on (id, wave order) alone, then
     # each column taken once (no copy of the whole record table)
     every = bool(keep.all())
-    kept = np.arange(len(keep)) if every else np.flatnonzero(keep)
+    kept = None if every else np.flatnonzero(keep)  # None: every record
     ids_kept = rec[panel.id].to_numpy() if every else rec[panel.id].to_numpy()[kept]
-    order_kept = order_of_pos[pos] if every else order_of_pos[pos[kept]]
+    if np.array_equal(order_of_pos, np.arange(len(waves))):  # distinct waves: the order is the place
+        order_kept = pos if every else pos[kept]
+    else:
+        order_kept = order_of_pos[pos] if every else order_of_pos[pos[kept]]
     # one integer per (id, wave order), ids numbered in sorted order: the sorted distinct keys with
     # the first record of each are the long rows (a repeated pair keeps its first record), in order
-    first_at = _sorted_pairs(ids_kept, order_kept, len(waves))
-    if first_at is None:
+    first_at = None  # None: the kept records as they come (sorted number ids, each pair once)
+    if not _sorted_pairs(ids_kept, order_kept):
         person, _ = pd.factorize(ids_kept, sort=True)
         _, first_at = np.unique(person.astype(np.int64) * len(waves) + order_kept, return_index=True)
         del person
     del pos, keep
-    take = kept[first_at]  # record positions of the long rows
-    base_order = order_kept[first_at]
+    if first_at is None:
+        take = kept  # record positions of the long rows (None: every record, in order)
+        base_order = order_kept
+        whole = every
+    else:
+        take = first_at if every else kept[first_at]
+        base_order = order_kept[first_at]
+        whole = len(take) == len(rec) and bool(np.all(take == np.arange(len(take))))
     # the usual file: every record is a long row, in order; then the long table shares the read
     # columns that cleaning leaves as they are (through pandas, so copy-on-write keeps them apart)
-    whole = len(take) == len(rec) and bool(np.all(take == np.arange(len(take))))
     id_column = rec[panel.id] if whole else None
-    base_id = id_column.to_numpy() if whole else ids_kept[first_at]
+    base_id = id_column.to_numpy() if whole else (ids_kept if first_at is None else ids_kept[first_at])
+    n_long = len(rec) if whole else len(take)
     del ids_kept, order_kept, kept, first_at
     wave_values = np.empty(len(waves), dtype=object)
     wave_values[:] = waves
     if _wave_dtype(cb.study.waves) == "int64":
-        wave_column = np.asarray(waves, dtype=np.int64)[base_order]
+        raw_wave = rec[WAVE_RAW]
+        if whole and raw_wave.dtype == np.int64 and _waves_as_read(raw_wave.to_numpy(), waves):
+            wave_column = raw_wave.reset_index(drop=True)  # every record's wave as read: shared, not copied
+        else:
+            wave_column = np.asarray(waves, dtype=np.int64)[base_order]
     else:
         wave_column = pd.Series(wave_values[base_order], dtype=object).to_numpy()
     columns = {panel.id: id_column.reset_index(drop=True) if whole else base_id, panel.wave: wave_column}
@@ -572,7 +632,7 @@ def _clean(panel: Panel):
         if var.name == panel.wave:
             continue
         if var.name not in rec.columns:
-            raw = pd.Series([np.nan] * len(take))
+            raw = pd.Series([np.nan] * n_long)
         elif whole:
             raw = rec[var.name].reset_index(drop=True)
         else:
@@ -612,6 +672,19 @@ def _clean(panel: Panel):
     return long, missing, origin
 
 
+def _waves_as_read(raw: np.ndarray, waves: list) -> bool:
+    """True when every distinct value of an integer wave column is the codebook wave it stands for
+    (so the tidy wave column equals the column as read)."""
+    distinct = _distinct_values(raw)
+    if distinct is None:
+        return False
+    lookup: dict = {}
+    for w in waves:
+        lookup[wave_key(w)] = w  # a later wave with the same key wins, as in wave_positions
+    return all(type(v) is int and type(lookup.get(wave_key(v))) is int and lookup.get(wave_key(v)) == v
+               for v in distinct)
+
+
 def _text_take(distinct: list, at: np.ndarray):
     """``[distinct[i] for i in at]`` as the column pandas makes of it (its text type for text), built by
     one take from the few distinct values rather than a conversion per cell."""
@@ -623,15 +696,13 @@ def _text_take(distinct: list, at: np.ndarray):
     return values[at]
 
 
-def _sorted_pairs(ids: np.ndarray, order: np.ndarray, n_waves: int) -> np.ndarray | None:
-    """``arange(n)`` when number ids come sorted and each (id, wave order) pair once, in order
-    (what the sort of the pairs would give, without sorting); None otherwise."""
+def _sorted_pairs(ids: np.ndarray, order: np.ndarray) -> bool:
+    """True when number ids come sorted and each (id, wave order) pair once, in order (the sort
+    of the pairs would keep every record where it is; no need to sort)."""
     if ids.dtype.kind not in "iu" or len(ids) < 2:
-        return None
+        return False
     step = ids[1:] != ids[:-1]
-    if not bool(np.all(ids[1:] >= ids[:-1])) or not bool(np.all(step | (order[1:] > order[:-1]))):
-        return None
-    return np.arange(len(ids))
+    return bool(np.all(ids[1:] >= ids[:-1])) and bool(np.all(step | (order[1:] > order[:-1])))
 
 
 def _cleaned_column(raw: pd.Series, var: Variable):
@@ -642,18 +713,16 @@ def _cleaned_column(raw: pd.Series, var: Variable):
     array per cell); a float column without any code met is handed on as read (no copy).
     """
     values = raw.to_numpy()
-    found = missing_code_index(raw, var)
-    if var.type in ("integer", "number") and values.dtype.kind in "iuf" and found is not None:
-        idx = np.flatnonzero(found >= 0)
-        kinds = found[idx]
-        del found
+    hits = code_positions(raw, var)
+    if var.type in ("integer", "number") and values.dtype.kind in "iuf" and hits is not None:
+        idx, kinds = hits
         out = values.astype(float, copy=len(idx) > 0)
         if len(idx):
             out[idx] = np.nan
         return out, idx, kinds
-    if found is not None and not (found >= 0).any():  # no code met: nothing to blank out
+    if hits is not None and not len(hits[0]):  # no code met: nothing to blank out
         return _typed_values(raw, var), np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
-    del found
+    del hits
     values, hit, is_code = _clean_values(raw, var)
     idx = np.flatnonzero(is_code)
     place = {c: k for k, c in enumerate(var.missing)}
@@ -730,6 +799,33 @@ def match_missing(raw: pd.Series, var: Variable) -> pd.Series:
     declared[:-1] = list(var.missing)
     declared[-1] = None
     return pd.Series(declared[found], index=raw.index, dtype=object)
+
+
+def code_positions(raw, var: Variable) -> tuple[np.ndarray, np.ndarray] | None:
+    """The cells holding a declared missing code, sorted, and the place in ``var.missing`` of
+    the code each holds: :func:`missing_code_index` without a full-length array (few cells hold
+    codes). None when the column mixes kinds of values."""
+    if not var.missing:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    if values.dtype.kind in "iuf" and all(isinstance(c, (int, float)) and not isinstance(c, bool)
+                                          for c in var.missing):
+        # numbers against number codes, compared as floats; a cell equal to two codes takes the first
+        hits = [np.flatnonzero(values == float(code)) for code in var.missing]
+        if len(hits) == 1:
+            return hits[0].astype(np.int64, copy=False), np.zeros(len(hits[0]), dtype=np.int64)
+        idx = np.concatenate(hits).astype(np.int64, copy=False)
+        kinds = np.repeat(np.arange(len(hits), dtype=np.int64), [len(h) for h in hits])
+        by_cell = np.argsort(idx, kind="stable")  # ties keep the code order
+        idx, kinds = idx[by_cell], kinds[by_cell]
+        first = np.ones(len(idx), dtype=bool)
+        first[1:] = idx[1:] != idx[:-1]
+        return idx[first], kinds[first]
+    found = missing_code_index(raw, var)
+    if found is None:
+        return None
+    idx = np.flatnonzero(found >= 0)
+    return idx, found[idx]
 
 
 def missing_code_index(raw: pd.Series, var: Variable) -> np.ndarray | None:
@@ -824,6 +920,19 @@ def _typed_values(raw: pd.Series, var: Variable):
 
 def _categorical(raw: pd.Series, codes: list, ordered: bool) -> pd.Categorical:
     """``pd.Categorical([level_of(v, codes) for v in raw], codes, ordered)``, per distinct value."""
+    values = raw.to_numpy() if isinstance(raw, (pd.Series, pd.Index)) else np.asarray(raw)
+    if values.dtype.kind in "iu" and len(values):
+        found = _small_int_index(values)  # integers in a short span: a table of level codes, one look-up per cell
+        if found is not None:
+            index, base, present = found
+            distinct = np.flatnonzero(present)
+            levels = np.empty(len(distinct), dtype=object)
+            for i, v in enumerate((distinct + base).astype(values.dtype).tolist()):
+                levels[i] = level_of(v, codes)
+            per_unique = pd.Categorical(levels, categories=codes, ordered=ordered)
+            table = np.full(len(present), -1, dtype=per_unique.codes.dtype)
+            table[distinct] = per_unique.codes
+            return pd.Categorical.from_codes(table[index], dtype=per_unique.dtype)
     fact = factorize_column(raw)
     if fact is None:
         return pd.Categorical(level_column(raw, codes), categories=codes, ordered=ordered)

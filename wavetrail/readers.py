@@ -18,6 +18,7 @@ import csv
 import io
 import os
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -190,11 +191,15 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
 
     Covers the common large file: UTF-8, ``\\n`` or ``\\r\\n`` line ends, no
     quotes after the header, every line with the header's number of fields,
-    distinct named header fields. The file is scanned piece by piece (line
-    ends, blank lines, delimiters, quotes, UTF-8) and then parsed from its
-    path by pandas' C parser, so its bytes are never held whole. Returns None
-    for anything else (the caller then parses line by line, which also words
-    every error message).
+    distinct named header fields. The file is parsed from its path by pandas'
+    C parser, so its bytes are never held whole. Record line numbers: a plain
+    file (ASCII, no quote after the header, a ``\\r`` only before ``\\n``) is
+    counted in one pass (line ends); when pandas gives one record per line
+    after the header, the records are lines 2, 3, ...; a missing value in the
+    last column (where a short line would show) has the delimiters counted.
+    Anything else is scanned piece by piece (line ends, blank lines,
+    delimiters, quotes, UTF-8). Returns None for anything else (the caller
+    then parses line by line, which also words every error message).
     """
     with open(path, "rb") as fh:
         first_bytes = fh.read(4 * _HEAD_CHARS + 3)
@@ -210,8 +215,128 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
     if len(delimiter) != 1 or delimiter in ('"', "\n", "\r", " "):
         return None
     sep = delimiter.encode()
-    d = ord(delimiter)
     bom = first_bytes.startswith(b"\xef\xbb\xbf")
+    frame = counted = None
+    if head[0].strip() and head[1].strip():
+        header_bytes, first_rec = head[0].encode("utf-8"), head[1].encode("utf-8")
+        header = _header_fields(header_bytes, first_rec, header_bytes.count(b'"'), delimiter)
+        if header is None:
+            return None
+        # the lines are counted in a second thread while pandas parses (both mostly outside the GIL)
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            counting = pool.submit(_count_plain_lines, path, bom)
+            frame = _parse_columns(path, delimiter, header)
+            counted = counting.result()
+        if counted is not None and counted[1] != header_bytes.count(b'"'):
+            return None  # a quote after the header
+        if frame is None:
+            return None
+    if counted is not None:
+        n_lines, _ = counted
+        if len(frame) == n_lines - 1:
+            # pandas skips blank lines and, without quotes, makes at most one record of a line: as many
+            # records as lines after the header means every one of them is a record
+            if len(frame) and frame[header[-1]].isna().to_numpy().any():
+                # a short line ends in a missing value: the delimiters tell (each record holds
+                # len(header) - 1; no line is longer, pandas refuses those)
+                if _count_byte(path, sep) - header_bytes.count(sep) != len(frame) * (len(header) - 1):
+                    return None
+            rows = np.arange(2, n_lines + 1, dtype=np.int64)
+            return _columnar_table(path, delimiter, header, frame, rows)
+        # a blank line somewhere: the line scan below numbers the records
+    scanned = _scan_lines(path, bom, sep)
+    if scanned is None:
+        return None
+    line_no, header_bytes, first_rec, n_quotes, n_seps = scanned
+    header = _header_fields(header_bytes, first_rec, n_quotes, delimiter)
+    if header is None:
+        return None
+    rows = line_no[1:]
+    if n_seps - header_bytes.count(sep) != len(rows) * (len(header) - 1):
+        return None  # a short or long line: the line-by-line parse names it
+    if frame is None or list(frame.columns) != header:
+        frame = _parse_columns(path, delimiter, header)
+        if frame is None:
+            return None
+    if len(frame) != len(rows):
+        return None
+    return _columnar_table(path, delimiter, header, frame, rows)
+
+
+def _count_plain_lines(path: Path, bom: bool) -> tuple[int, int] | None:
+    """Lines and quotes of a plain file in one pass: ASCII, no NUL, no line break Python's
+    ``str.splitlines`` takes besides ``\\n`` and ``\\r\\n``, every ``\\r`` before a ``\\n``.
+    None for any other file (then :func:`_scan_lines` looks line by line)."""
+    n_nl = n_quotes = 0
+    cr_open = False  # the last block ended in \r: the next must start with \n
+    last = b"\n"
+    with open(path, "rb") as fh:
+        k = 0
+        while True:
+            block = fh.read(_SCAN_BYTES)
+            if not block:
+                break
+            if k == 0 and bom:
+                block = block[3:]
+            k += 1
+            if not block:
+                continue
+            if cr_open and block[:1] != b"\n":
+                return None
+            if not block.isascii() or b"\x00" in block or any(b in block for b in _ODD_BREAKS[:5]):
+                return None
+            if b"\r" in block:
+                n_cr = block.count(b"\r")
+                cr_open = block.endswith(b"\r")
+                if n_cr != block.count(b"\r\n") + cr_open:
+                    return None
+            else:
+                cr_open = False
+            if b'"' in block:
+                n_quotes += block.count(b'"')
+            n_nl += int(np.count_nonzero(np.frombuffer(block, dtype=np.uint8) == 10))  # (numpy lets go of the GIL)
+            last = block[-1:]
+    if cr_open:
+        return None
+    return n_nl + (last != b"\n"), n_quotes
+
+
+def _count_byte(path: Path, byte: bytes) -> int:
+    """How often ``byte`` (ASCII, so never part of a byte order mark) occurs in the file."""
+    n = 0
+    with open(path, "rb") as fh:
+        while True:
+            block = fh.read(_SCAN_BYTES)
+            if not block:
+                return n
+            n += block.count(byte)
+
+
+def _header_fields(header_bytes: bytes, first_rec: bytes, n_quotes: int, delimiter: str) -> list | None:
+    """The header's field names when the file suits the columnar reader (else None): no quote
+    after the header, distinct named fields, the first record with as many fields as the header."""
+    if n_quotes != header_bytes.count(b'"'):
+        return None
+    header_text = header_bytes.decode("utf-8")
+    try:
+        header = [h.strip() for h in next(csv.reader([header_text], delimiter=delimiter, strict=True))]
+    except (csv.Error, StopIteration):
+        return None
+    if len(header) < 2 or "" in header or len(set(header)) != len(header):
+        return None
+    # every record holds len(header) - 1 delimiters: the first one checked alone (it sets how many
+    # fields the C parser expects, which then refuses longer lines); the callers check the sum over
+    # all of them where a short line could hide (no line longer, so none shorter)
+    if first_rec.count(delimiter.encode()) != len(header) - 1:
+        return None
+    return header
+
+
+def _scan_lines(path: Path, bom: bool, sep: bytes):
+    """Line numbers of the lines holding a record or the header, the header and first record
+    lines, and the counts of quotes and delimiters, scanned piece by piece; None for a file the
+    columnar reader does not take (NUL, odd line breaks, a lone ``\\r``, not UTF-8)."""
+    d = sep[0]
     # per line: whether it holds a record (more than blank space, or a delimiter)
     filled: list[np.ndarray] = []
     header_bytes = first_rec = None
@@ -280,34 +405,24 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
     if header_bytes is None or first_rec is None:
         return None
     line_no = np.flatnonzero(np.concatenate(filled)) + 1  # 1-based numbers of the lines that hold a record or the header
-    del filled
-    if n_quotes != header_bytes.count(b'"'):
-        return None
-    header_text = header_bytes.decode("utf-8")
-    try:
-        header = [h.strip() for h in next(csv.reader([header_text], delimiter=delimiter, strict=True))]
-    except (csv.Error, StopIteration):
-        return None
-    if len(header) < 2 or "" in header or len(set(header)) != len(header):
-        return None
-    rows = line_no[1:]
-    # every record holds len(header) - 1 delimiters: the first one checked alone (it sets how many
-    # fields the C parser expects, which then refuses longer lines), then the sum over all of them
-    # (no line longer, so none shorter)
-    if first_rec.count(sep) != len(header) - 1:
-        return None
-    if n_seps - header_bytes.count(sep) != len(rows) * (len(header) - 1):
-        return None  # a short or long line: the line-by-line parse names it
+    return line_no, header_bytes, first_rec, n_quotes, n_seps
+
+
+def _parse_columns(path: Path, delimiter: str, header: list) -> pd.DataFrame | None:
+    """pandas' C parse of the file with ``header`` as names (None when pandas refuses it)."""
     try:
         with warnings.catch_warnings():  # mixed kinds in one column: read again as text below
             warnings.simplefilter("ignore")
-            frame = pd.read_csv(path, sep=delimiter, header=0, names=header, encoding="utf-8-sig",
-                                na_values=sorted(MISSING_TOKENS), keep_default_na=False, skip_blank_lines=True,
-                                engine="c", skipinitialspace=False)
+            return pd.read_csv(path, sep=delimiter, header=0, names=header, encoding="utf-8-sig",
+                               na_values=sorted(MISSING_TOKENS), keep_default_na=False, skip_blank_lines=True,
+                               engine="c", skipinitialspace=False)
     except Exception:  # noqa: BLE001 - any parser complaint: the line-by-line parse words it
         return None
-    if len(frame) != len(rows):
-        return None
+
+
+def _columnar_table(path: Path, delimiter: str, header: list, frame: pd.DataFrame,
+                    rows: np.ndarray) -> RawTable | None:
+    """The RawTable of a parsed frame: text columns read again as text cells and converted."""
     text_cols = [c for c in header if frame[c].dtype.kind not in "iuf"]
     texts = None
     if text_cols:
@@ -328,7 +443,11 @@ def _read_delimited_columnar(path: Path, delimiter: str | None) -> RawTable | No
     del frame, texts
     # one block per column (no copy into one 2-D block of all columns)
     out = pd.DataFrame(columns, index=pd.RangeIndex(len(rows)), copy=False)
-    return RawTable(path=path, frame=out, rows=rows.astype(np.int64), format="csv")
+    return RawTable(path=path, frame=out, rows=rows.astype(np.int64, copy=False), format="csv")
+
+
+#: values looked at first when deciding whether a float column holds whole numbers only
+_HEAD_VALUES = 4096
 
 
 def _typed_numbers(values: np.ndarray) -> np.ndarray:
@@ -336,6 +455,9 @@ def _typed_numbers(values: np.ndarray) -> np.ndarray:
     if values.dtype == np.int64 and len(values) and max(-int(values.min()), int(values.max())) < 2**53:
         return values
     v = values.astype(float, copy=False)
+    head = v[:_HEAD_VALUES]  # a gap or a fraction among the first values settles it without a pass over all
+    if not (np.isfinite(head).all() and np.all(head == np.round(head))):
+        return v
     if len(v) and np.isfinite(v).all() and np.all(v == np.round(v)) and np.abs(v).max() < 2**53:
         return v.astype(np.int64)
     return v
