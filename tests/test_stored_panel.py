@@ -236,8 +236,9 @@ def test_refuses_a_stored_panel_of_another_codebook(tmp_path):
     changed = parse_codebook(CODEBOOK.replace("{1: low, 2: mid, 3: high}", "{1: low, 2: mid, 3: high, 4: top}"))
     with pytest.raises(DataError, match="levels of 'grade'"):
         read_stored_panel(path, changed)
-    more = parse_codebook(CODEBOOK.replace("      - {name: email", "      - {name: extra, type: number}\n"
-                                                                     "      - {name: email"))
+    more = CODEBOOK.replace("  - {name: email", "  - {name: extra, type: number}\n  - {name: email")
+    assert more != CODEBOOK
+    more = parse_codebook(more)
     with pytest.raises(DataError, match="lacks the codebook variable"):
         read_stored_panel(path, more)
 

@@ -48,8 +48,13 @@ from wavetrail.codebook import Codebook, load_codebook
 from wavetrail.errors import DataError
 from wavetrail.panel import Panel
 
-__all__ = ["META_KEY", "FORMAT", "StoredPanel", "panel_frame", "write_stored_panel", "read_stored_panel"]
+__all__ = ["META_KEY", "FORMAT", "STORED_PANEL", "WITHHELD_REASON", "stored_columns", "StoredPanel", "panel_frame", "write_stored_panel", "read_stored_panel"]
 
+#: where a project's check step writes the stored panel (relative to the project)
+STORED_PANEL = "results/checks/panel.parquet"
+#: why an archive without the raw data leaves it out (its ``withheld`` reason)
+WITHHELD_REASON = ("row-level copy of the raw data (the typed panel the check step writes for the later "
+                   "steps); kept by the authors like the raw data, rebuilt from them by the check step")
 #: key of wavetrail's entry in the Parquet key-value metadata
 META_KEY = b"wavetrail.stored_panel"
 #: format version of that entry
@@ -180,7 +185,7 @@ def _plain(value):
     return value
 
 
-def read_stored_panel(path, codebook) -> StoredPanel:
+def read_stored_panel(path, codebook, codebook_path=None) -> StoredPanel:
     """Read the stored panel written by :func:`write_stored_panel`.
 
     Parameters
@@ -190,6 +195,9 @@ def read_stored_panel(path, codebook) -> StoredPanel:
     codebook : Codebook or path
         The project's codebook. Given as a path, its sha256 must equal the one
         the file was written with.
+    codebook_path : path, optional
+        The file ``codebook`` was read from, when it is given as a Codebook
+        (the same sha256 test).
 
     Raises
     ------
@@ -202,7 +210,6 @@ def read_stored_panel(path, codebook) -> StoredPanel:
 
     path = Path(path)
     hint = "run the check step again (`wavetrail build` reruns it when the data or the codebook change)"
-    codebook_path = None
     if not isinstance(codebook, Codebook):
         codebook_path = Path(codebook)
         codebook = load_codebook(codebook_path)
@@ -282,3 +289,13 @@ def read_stored_panel(path, codebook) -> StoredPanel:
     if len(long) != meta.get("rows"):
         raise DataError(f"{path}: {len(long)} rows, its description says {meta.get('rows')}", hint=hint)
     return StoredPanel(codebook, long)
+
+
+def stored_columns(path) -> list[str] | None:
+    """The column names of a Parquet file (its schema only; None when it is not readable Parquet)."""
+    try:
+        import pyarrow.parquet as pq
+
+        return list(pq.read_schema(path).names)
+    except Exception:
+        return None
