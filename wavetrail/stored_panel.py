@@ -7,10 +7,11 @@ forest summary) reads this file instead of the raw files again.
 
 What the file holds
 -------------------
-One Parquet file, one row per (id, wave), the columns of :attr:`Panel.long` in
+One Parquet file (snappy, dictionary pages, row groups of 2^20 rows, no
+statistics), one row per (id, wave), the columns of :attr:`Panel.long` in
 their order: the id column, the wave column and every codebook variable
 (derived ones included), with their types: numbers as float64 (missing codes
-already NaN), categories as 16-bit codes into the codebook's levels (null =
+already NaN, stored as NaN), categories as 16-bit codes into the codebook's levels (null =
 missing; the levels and whether they are ordered are in the metadata), text as
 strings, dates as timestamps. Never a variable marked
 ``identifier: true``: those are dropped before writing (no later step reads
@@ -152,6 +153,9 @@ def write_stored_panel(panel: Panel, path, codebook_path=None) -> Path:
             values = [None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)
                       for v in col.to_numpy(dtype=object)]
             columns[str(name)] = pa.array(values, type=pa.string())
+        elif col.dtype.kind in "iufb":
+            # numbers as they are: NaN stays NaN (not a null), so reading them back is one copy
+            columns[str(name)] = pa.array(col.to_numpy(), from_pandas=False)
         else:
             columns[str(name)] = pa.Array.from_pandas(col)
     table = pa.table(columns)
@@ -163,7 +167,7 @@ def write_stored_panel(panel: Panel, path, codebook_path=None) -> Path:
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as fh:
-            pq.write_table(table, fh, compression="zstd", row_group_size=ROW_GROUP, write_statistics=False,
+            pq.write_table(table, fh, compression="snappy", row_group_size=ROW_GROUP, write_statistics=False,
                            use_dictionary=True, store_schema=True)
             fh.flush()
             os.fsync(fh.fileno())
@@ -206,6 +210,7 @@ def read_stored_panel(path, codebook, codebook_path=None) -> StoredPanel:
         codebook, or its columns or types do not fit the codebook.
     """
     import pyarrow as pa
+    import pyarrow.compute as pc
     import pyarrow.parquet as pq
 
     path = Path(path)
@@ -263,9 +268,7 @@ def read_stored_panel(path, codebook, codebook_path=None) -> StoredPanel:
             if said.get("levels") != [_plain(c) for c in dtype.categories] or said.get("ordered") != dtype.ordered:
                 raise DataError(f"{path}: the levels of {name!r} differ from the codebook's; "
                                 "the stored panel is stale", hint=hint)
-            codes = col.to_numpy(zero_copy_only=False)
-            codes = np.where(np.isnan(codes), -1, codes).astype(np.int16) if codes.dtype.kind == "f" \
-                else codes.astype(np.int16)
+            codes = pc.fill_null(col, -1).to_numpy().astype(np.int16, copy=False)
             if len(codes) and (codes.max() >= len(dtype.categories) or codes.min() < -1):
                 raise DataError(f"{path}: column {name!r} holds codes outside its levels", hint=hint)
             columns[name] = pd.Categorical.from_codes(codes, dtype=dtype)
