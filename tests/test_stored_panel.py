@@ -253,3 +253,117 @@ def test_refuses_missing_or_foreign_files(tmp_path):
     pd.DataFrame({"pid": ["a"], "wave": [1]}).to_parquet(tmp_path / "plain.parquet")
     with pytest.raises(DataError, match="not a stored panel"):
         read_stored_panel(tmp_path / "plain.parquet", cb)
+
+
+# --------------------------------------------------------------------------- the workflow steps
+
+
+def _step_project(tmp_path):
+    """A small project folder: raw data, codebook, and the check step run on them."""
+    import shutil
+
+    from test_archive_helpers import CODEBOOK as ARCHIVE_CODEBOOK, make_panel
+    from wavetrail._io import write_table
+    from wavetrail.stages.checks import check_data
+    from wavetrail.stages.runner import Job
+
+    root = tmp_path / "proj"
+    (root / "config").mkdir(parents=True)
+    (root / "config/codebook.yaml").write_text(ARCHIVE_CODEBOOK, encoding="utf-8")
+    write_table(root / "data/raw/panel.csv", make_panel(160, seed=3))
+    check_data(Job(step="check_data", project=root,
+                   input={"data": ["data/raw/panel.csv"], "codebook": "config/codebook.yaml"},
+                   output={"findings": "results/checks/findings.csv", "descriptives": "results/checks/d.csv",
+                           "attrition": "results/checks/a.csv", "panel": "results/checks/panel.parquet"}))
+    assert (root / "results/checks/panel.parquet").is_file()
+    return root, shutil
+
+
+def test_every_step_writes_the_same_bytes_from_the_stored_panel_as_from_the_raw_files(tmp_path):
+    """score_scales, assess_reliability, test_invariance, fit_growth (with growth.predictors),
+    grow_forest_shard and summarise_forest, each run once on the raw files and once on the
+    stored panel: every output file byte-identical."""
+    from wavetrail.config import validate_config
+    from wavetrail.stages.forest import grow_forest_shard, merge_forest, summarise_forest
+    from wavetrail.stages.growth import fit_growth
+    from wavetrail.stages.runner import Job, job_seed
+    from wavetrail.stages.scores import assess_reliability, score_scales, test_invariance
+
+    root, _ = _step_project(tmp_path)
+    config = validate_config({"data": ["data/raw/panel.csv"], "codebook": "config/codebook.yaml", "seed": 7,
+                              "growth": {"outcomes": ["sd"], "shapes": ["linear"], "predictors": ["screen", "start"]},
+                              "forest": {"outcome": "sd", "trees": 4, "shards": 1, "top": 2, "min_size": 20}})
+    routes = {"raw": {"data": ["data/raw/panel.csv"]}, "stored": {"panel": "results/checks/panel.parquet"}}
+
+    def job(step, inputs, outputs, wildcards=None, params=None):
+        wildcards = wildcards or {}
+        return Job(step=step, project=root, input={**inputs, "codebook": "config/codebook.yaml"}, output=outputs,
+                   config=config, wildcards=wildcards, params=params or {}, seed=job_seed(7, step, wildcards))
+
+    written = {}
+    for route, source in routes.items():
+        out = f"results/{route}"
+        gate = {**source, "findings": "results/checks/findings.csv"}
+        score_scales(job("score_scales", gate, {"scores": f"{out}/scores.csv"},
+                         params={"settings": {"outcomes": ["sd"], "forest_outcome": "sd", "forest_enabled": True}}))
+        assess_reliability(job("assess_reliability", gate, {"reliability": f"{out}/reliability.csv"}))
+        test_invariance(job("test_invariance", gate, {"invariance": f"{out}/invariance.csv"}))
+        scores = {"scores": f"{out}/scores.csv"}
+        fit_growth(job("fit_growth", {**source, **scores},
+                       {n: f"{out}/growth-{n}.csv" for n in ("fit", "estimates", "comparison", "conditional",
+                                                              "conditional_tests")}
+                       | {"figure": f"{out}/growth.png"}, params={"settings": config["growth"]}))
+        grow_forest_shard(job("grow_forest_shard", {**source, **scores}, {"shard": f"{out}/shard-1.json"},
+                              wildcards={"shard": "1"}, params={"settings": config["forest"], "n_jobs": 1}))
+        merge_forest(job("merge_forest", {"shards": [f"{out}/shard-1.json"]}, {"forest": f"{out}/forest.json"}))
+        summarise_forest(job("summarise_forest", {**source, **scores, "forest": f"{out}/forest.json"},
+                             {n: f"{out}/forest-{n}.csv" for n in ("importance", "dependence", "interactions")}
+                             | {"importance_figure": f"{out}/importance.png",
+                                "trajectories_figure": f"{out}/trajectories.png"},
+                             params={"settings": config["forest"]}))
+        written[route] = {p.name: p.read_bytes() for p in sorted((root / out).iterdir()) if p.is_file()}
+    assert set(written["raw"]) == set(written["stored"]) and len(written["raw"]) >= 14
+    differ = [name for name in written["raw"] if written["raw"][name] != written["stored"][name]]
+    assert differ == []
+    conditional = pd.read_csv(root / "results/stored/growth-conditional_tests.csv")
+    assert set(conditional["predictor"]) == {"screen", "start"}  # the predictors came from the stored panel
+
+
+def test_steps_after_the_checks_never_open_the_raw_files_and_refuse_a_stale_stored_panel(tmp_path):
+    from wavetrail.stages.checks import load_job_panel
+    from wavetrail.stages.runner import Job
+
+    root, _ = _step_project(tmp_path)
+    (root / "data/raw/panel.csv").unlink()  # gone: the stored panel alone must do
+    job = Job(step="score_scales", project=root,
+              input={"panel": "results/checks/panel.parquet", "codebook": "config/codebook.yaml"}, output={})
+    codebook, panel = load_job_panel(job)
+    assert len(panel.long) > 300 and "email" not in panel.long.columns
+    cb = root / "config/codebook.yaml"
+    cb.write_text(cb.read_text().replace("Invented test panel", "Invented test panel, renamed"), encoding="utf-8")
+    with pytest.raises(DataError, match="another codebook"):
+        load_job_panel(job)
+
+
+def test_rules_read_the_stored_panel_and_only_the_check_step_reads_raw_files():
+    """The rule modules: the stored panel is check_data's output and the data input of every later
+    step; only confirm_raw_hashes and check_data list the raw files (so a changed raw file or
+    codebook reruns check_data, after the registered-hash step, before anything reads the data)."""
+    import re
+
+    from wavetrail.resources import rules_dir
+
+    rules = {}
+    for smk in sorted(rules_dir().glob("*.smk")):
+        for name, body in re.findall(r"^rule (\w+):\n((?:[ \t]+.*\n|\n)*)", smk.read_text(), flags=re.M):
+            rules[name] = body
+    inputs = {n: b.split("output:")[0] for n, b in rules.items()}
+    raw_readers = sorted(n for n, i in inputs.items() if "data_files()" in i)
+    assert raw_readers == ["check_data", "confirm_raw_hashes"]
+    assert 'panel="results/checks/panel.parquet"' in rules["check_data"].split("output:")[1]
+    for name in ("codebook=codebook_file()", 'registry="results/checks/data_registry.csv"'):
+        assert name in inputs["check_data"]
+    readers = sorted(n for n, i in inputs.items() if 'panel="results/checks/panel.parquet"' in i)
+    assert readers == ["assess_reliability", "fit_growth", "grow_forest_shard", "score_scales",
+                       "summarise_forest", "test_invariance"]
+    assert all("codebook=codebook_file()" in inputs[n] for n in readers)
