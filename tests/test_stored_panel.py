@@ -260,8 +260,6 @@ def test_refuses_missing_or_foreign_files(tmp_path):
 
 def _step_project(tmp_path):
     """A small project folder: raw data, codebook, and the check step run on them."""
-    import shutil
-
     from test_archive_helpers import CODEBOOK as ARCHIVE_CODEBOOK, make_panel
     from wavetrail._io import write_table
     from wavetrail.stages.checks import check_data
@@ -276,7 +274,7 @@ def _step_project(tmp_path):
                    output={"findings": "results/checks/findings.csv", "descriptives": "results/checks/d.csv",
                            "attrition": "results/checks/a.csv", "panel": "results/checks/panel.parquet"}))
     assert (root / "results/checks/panel.parquet").is_file()
-    return root, shutil
+    return root
 
 
 def test_every_step_writes_the_same_bytes_from_the_stored_panel_as_from_the_raw_files(tmp_path):
@@ -289,7 +287,7 @@ def test_every_step_writes_the_same_bytes_from_the_stored_panel_as_from_the_raw_
     from wavetrail.stages.runner import Job, job_seed
     from wavetrail.stages.scores import assess_reliability, score_scales, test_invariance
 
-    root, _ = _step_project(tmp_path)
+    root = _step_project(tmp_path)
     config = validate_config({"data": ["data/raw/panel.csv"], "codebook": "config/codebook.yaml", "seed": 7,
                               "growth": {"outcomes": ["sd"], "shapes": ["linear"], "predictors": ["screen", "start"]},
                               "forest": {"outcome": "sd", "trees": 4, "shards": 1, "top": 2, "min_size": 20}})
@@ -333,7 +331,7 @@ def test_steps_after_the_checks_never_open_the_raw_files_and_refuse_a_stale_stor
     from wavetrail.stages.checks import load_job_panel
     from wavetrail.stages.runner import Job
 
-    root, _ = _step_project(tmp_path)
+    root = _step_project(tmp_path)
     (root / "data/raw/panel.csv").unlink()  # gone: the stored panel alone must do
     job = Job(step="score_scales", project=root,
               input={"panel": "results/checks/panel.parquet", "codebook": "config/codebook.yaml"}, output={})
