@@ -10,8 +10,9 @@ Each workflow step is run in this process through its own step function
 (``wavetrail.stages``) with a :class:`wavetrail.stages.runner.Job` holding the
 same inputs, outputs and config a Snakemake job would pass, so the timings are
 those of the library code of each step without the workflow engine around it.
-Every step reads its inputs from files, as in a build (the data file is read
-again by each step that needs it). Peak memory is ``ru_maxrss`` of this process
+Every step reads its inputs from files, as in a build: the check step reads the
+data file and writes the stored panel (``results/checks/panel.parquet``), which
+every later step that needs the data reads instead of the data file. Peak memory is ``ru_maxrss`` of this process
 (and of children, none here) after each step: it only grows, so the last line is
 the peak of the whole run.
 
@@ -143,22 +144,22 @@ def run(n: int, trees: int, shards: int, workdir: Path, until: str = STEPS[-1]) 
                    wildcards=wildcards, params=params or {}, seed=job_seed(SEED, step, wildcards))
 
     data = {"data": ["data/panel.csv"], "codebook": "config/codebook.yaml"}
-    gated = {**data, "findings": "results/checks/findings.csv"}
+    stored = {"panel": "results/checks/panel.parquet", "codebook": "config/codebook.yaml"}
+    gated = {**stored, "findings": "results/checks/findings.csv"}
     clock("simulate + write csv", write_inputs)
     clock("check_data", check_data, job("check_data", data, {
         "findings": "results/checks/findings.csv", "descriptives": "results/checks/descriptives.csv",
-        "attrition": "results/checks/attrition.csv"}))
+        "attrition": "results/checks/attrition.csv", "panel": "results/checks/panel.parquet"}))
     clock("score_scales", score_scales, job("score_scales", gated, {"scores": "results/scores/scores.csv"}))
     clock("assess_reliability", assess_reliability,
           job("assess_reliability", gated, {"reliability": "results/scores/reliability.csv"}))
     clock("test_invariance", test_invariance,
           job("test_invariance", gated, {"invariance": "results/scores/invariance.csv"}))
-    clock("fit_growth", fit_growth, job("fit_growth", {"scores": "results/scores/scores.csv",
-                                                       "codebook": "config/codebook.yaml"},
+    clock("fit_growth", fit_growth, job("fit_growth", {**stored, "scores": "results/scores/scores.csv"},
                                         {"fit": "results/growth/fit.csv", "estimates": "results/growth/est.csv",
                                          "comparison": "results/growth/comparison.csv",
                                          "figure": "results/growth/trajectories.png"}))
-    forest_in = {**data, "scores": "results/scores/scores.csv"}
+    forest_in = {**stored, "scores": "results/scores/scores.csv"}
     for k in range(1, shards + 1):
         clock(f"grow_forest_shard {k}/{shards}", grow_forest_shard,
               job("grow_forest_shard", forest_in, {"shard": f"results/forest/shard-{k}.json"},

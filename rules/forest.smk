@@ -8,7 +8,7 @@ wildcard_constraints:
 rule grow_forest_shard:
     input:
         scores="results/scores/scores.csv",
-        data=data_files(),
+        panel="results/checks/panel.parquet",
         codebook=codebook_file(),
     output:
         shard="results/forest/shards/shard-{shard}.json",
@@ -44,7 +44,7 @@ rule summarise_forest:
     input:
         forest="results/forest/forest.json",
         scores="results/scores/scores.csv",
-        data=data_files(),
+        panel="results/checks/panel.parquet",
         codebook=codebook_file(),
     output:
         importance="results/forest/importance.csv",

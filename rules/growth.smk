@@ -5,7 +5,7 @@ rule fit_growth:
     input:
         scores="results/scores/scores.csv",
         codebook=codebook_file(),
-        data=data_files(),
+        panel="results/checks/panel.parquet",
     output:
         fit="results/growth/fit.csv",
         estimates="results/growth/estimates.csv",

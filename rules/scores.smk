@@ -3,7 +3,7 @@
 
 rule score_scales:
     input:
-        data=data_files(),
+        panel="results/checks/panel.parquet",
         codebook=codebook_file(),
         findings="results/checks/findings.csv",
     output:
@@ -25,7 +25,7 @@ rule score_scales:
 
 rule assess_reliability:
     input:
-        data=data_files(),
+        panel="results/checks/panel.parquet",
         codebook=codebook_file(),
         findings="results/checks/findings.csv",
     output:
@@ -41,7 +41,7 @@ rule assess_reliability:
 
 rule test_invariance:
     input:
-        data=data_files(),
+        panel="results/checks/panel.parquet",
         codebook=codebook_file(),
         findings="results/checks/findings.csv",
     output:

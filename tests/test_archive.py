@@ -61,6 +61,21 @@ def test_every_mode_verifies(archives, mode):
     # person-level scores go out only with the raw data
     assert (f"proj-{mode}/data/results/scores/scores.csv" in names) == (mode == "include")
     assert f"proj-{mode}/data/results/ledger/score_scales.json" in names
+    # the stored panel is a row-level copy of the raw data: it goes where they go
+    stored = "results/checks/panel.parquet"
+    assert (f"proj-{mode}/data/{stored}" in names) == (mode == "include")
+    manifest = json.loads(_members(archives[mode])[f"proj-{mode}/data/wavetrail-archive.json"])
+    ledger_rows = report.table[(report.table["check"] == "ledger") & (report.table["target"] == stored)]
+    if mode == "include":
+        assert stored not in manifest["withheld"]
+        assert ledger_rows.empty  # matched with the others: no row of its own
+    else:
+        assert manifest["withheld"][stored]["reason"].startswith("row-level copy of the raw data")
+        assert ledger_rows["status"].tolist() == ["withheld"]
+        readme = _members(archives[mode])[f"proj-{mode}/data/ARCHIVE-README.md"].decode()
+        assert f"`{stored}`: row-level copy of the raw data" in readme
+    # no disclosure finding names it (it holds no identifier column)
+    assert all(f["file"] != stored for f in manifest["disclosure"]["findings"])
 
 
 def test_bag_is_valid_to_bagit_and_carries_project_facts(archives, project, tmp_path):
@@ -103,8 +118,8 @@ def test_crate_describes_every_record(archives):
     assert "ComputationalWorkflow" in by_id["workflow/Snakefile"]["@type"]
     actions = [e for e in graph if e["@type"] == "CreateAction"]
     steps = sorted(a["@id"] for a in actions)
-    assert steps == ["#run/confirm_raw_hashes", "#run/describe--outcome=sd", "#run/lock_environment",
-                     "#run/score_scales", "#run/workflow"]
+    assert steps == ["#run/check_data", "#run/confirm_raw_hashes", "#run/describe--outcome=sd",
+                     "#run/lock_environment", "#run/score_scales", "#run/workflow"]
     assert sorted(m["@id"] for m in root["mentions"]) == steps
     score = by_id["#run/score_scales"]
     assert score["startTime"] == "2026-12-01T10:00:00+00:00" and score["endTime"] == "2026-12-01T10:00:05+00:00"
@@ -338,3 +353,52 @@ def test_public_surface():
     assert set(archive.__all__) == {"pack_project", "verify_archive", "VerifyReport", "REBUILD_WARNING",
                                     "safe_extract", "Limits", "synthesize", "check_outputs", "compare_files"}
     assert all(hasattr(archive, name) for name in archive.__all__)
+
+
+# ----------------------------------------------------------------------------- the stored panel
+
+
+def test_stored_panel_with_an_identifier_column_blocks_include(tmp_path):
+    """A stored panel never holds an identifier column; one that does (written by hand) blocks
+    --raw include, and stays out (hash only) in exclude mode, where nothing of it goes out."""
+    import pandas as pd
+
+    from wavetrail import ledger
+    from wavetrail._io import sha256_file, write_json
+
+    root = make_project(tmp_path / "proj", n=60, email=True)
+    stored = root / "results/checks/panel.parquet"
+    pd.DataFrame({"pid": [1, 2], "wave": [1, 1], "email": ["a@x.example", "b@x.example"]}).to_parquet(stored)
+    rec_path = root / ledger.LEDGER_DIR / ledger.record_name("check_data", {})
+    rec = json.loads(rec_path.read_text())
+    rec["outputs"] = ledger.file_entries(root, ["results/checks/panel.parquet"])
+    write_json(rec_path, rec)
+    desc = root / ledger.LEDGER_DIR / ledger.record_name("describe", {"outcome": "sd"})
+    rec = json.loads(desc.read_text())
+    for e in rec["inputs"]:
+        if e["path"] == "results/checks/panel.parquet":
+            e["sha256"], e["size"] = sha256_file(stored), stored.stat().st_size
+    write_json(desc, rec)
+    with pytest.raises(ArchiveError) as err:
+        pack_project(root, raw="include", output=tmp_path / "inc.zip")
+    assert "stored panel column 'email' is an identifier" in str(err.value)
+    out = pack_project(root, raw="exclude", output=tmp_path / "exc.zip")
+    assert not any(n.endswith("panel.parquet") for n in _members(out))
+    assert verify_archive(out).ok
+
+
+def test_parquet_outputs_compare_by_content(tmp_path):
+    import numpy as np
+    import pandas as pd
+
+    frame = pd.DataFrame({"pid": np.arange(50), "x": np.linspace(0, 1, 50), "c": pd.array(["a", "b"] * 25)})
+    frame.to_parquet(tmp_path / "a.parquet", compression="zstd")
+    frame.to_parquet(tmp_path / "b.parquet", compression="snappy")
+    assert compare_files(tmp_path / "a.parquet", tmp_path / "b.parquet").status == WITHIN
+    assert compare_files(tmp_path / "a.parquet", tmp_path / "a.parquet").status == IDENTICAL
+    frame.loc[7, "x"] += 0.5
+    frame.to_parquet(tmp_path / "c.parquet")
+    far = compare_files(tmp_path / "a.parquet", tmp_path / "c.parquet")
+    assert far.status == DIFFERENT and far.detail.startswith("x: row 8")
+    frame.drop(columns=["c"]).to_parquet(tmp_path / "d.parquet")
+    assert "columns differ" in compare_files(tmp_path / "a.parquet", tmp_path / "d.parquet").detail

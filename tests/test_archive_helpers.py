@@ -3,7 +3,8 @@
 The project is what a build leaves behind, made by hand so that packing and
 verification can be tested without running the workflow: settings, codebook,
 raw data registered in data/SHA256SUMS, a git commit, result tables computed
-from the data, an environment lock and one ledger record per "job".
+from the data, the stored panel (results/checks/panel.parquet, read by a later
+"job" as in a build), an environment lock and one ledger record per "job".
 """
 
 from __future__ import annotations
@@ -112,6 +113,9 @@ def write_results(root: Path, commit: str, extra_outputs: dict | None = None) ->
     cb = load_codebook(root / "config/codebook.yaml")
     panel = load_panel([root / data_file], cb)
     long = panel.long
+    from wavetrail.stored_panel import STORED_PANEL, write_stored_panel
+
+    write_stored_panel(panel, root / STORED_PANEL, codebook_path=root / "config/codebook.yaml")
     atomic_write_text(root / "environment/requirements.lock", _lock_text())
     write_table(root / "results/checks/data_registry.csv",
                 pd.DataFrame({"file": [data_file], "state": ["registered"]}))
@@ -136,11 +140,14 @@ def write_results(root: Path, commit: str, extra_outputs: dict | None = None) ->
                                     commit=commit),
         "confirm_raw_hashes": _record(root, "confirm_raw_hashes", [data_file, "data/SHA256SUMS"],
                                ["results/checks/data_registry.csv"], commit=commit),
+        "check_data": _record(root, "check_data", [data_file, "config/codebook.yaml",
+                                                   "results/checks/data_registry.csv"],
+                              [STORED_PANEL], commit=commit),
         "score_scales": _record(root, "score_scales", [data_file, "config/codebook.yaml",
                                                        "results/checks/data_registry.csv"],
                                 ["results/scores/scores.csv"], params={"scales": ["sd"]}, seed=11,
                                 commit=commit),
-        "describe": _record(root, "describe", ["results/scores/scores.csv"],
+        "describe": _record(root, "describe", ["results/scores/scores.csv", STORED_PANEL],
                             ["results/checks/descriptives.csv", "results/growth/fit.csv",
                              "results/growth/summary.json", *(extra_outputs or {})],
                             params={"settings": {"shape": "linear"}}, wildcards={"outcome": "sd"}, seed=12,

@@ -32,7 +32,8 @@ def test_include_rebuild_is_identical(project, tmp_path):
     statuses = _statuses(report)
     assert statuses.pop("workflow") == "ok"
     assert set(statuses) == {"environment/requirements.lock", "results/checks/data_registry.csv",
-                             "results/checks/descriptives.csv", "results/growth/fit.csv",
+                             "results/checks/descriptives.csv", "results/checks/panel.parquet",
+                             "results/growth/fit.csv",
                              "results/growth/summary.json", "results/scores/scores.csv"}
     assert set(statuses.values()) == {"identical"}
     assert "isolated environment" in report.summary
@@ -77,3 +78,4 @@ def test_stand_in_archive_rebuilds_on_stand_in_rows(project, tmp_path):
     assert "STAND-IN" in report.table.loc[report.table["target"] == "workflow", "detail"].iloc[0]
     assert set(statuses.values()) == {"rebuilt on stand-in"}
     assert "results/growth/fit.csv" in statuses
+    assert statuses["results/checks/panel.parquet"] == "rebuilt on stand-in"  # regenerated, not compared

@@ -254,11 +254,16 @@ def test_changed_raw_byte_stops_the_build_until_registered(reference_build, tmp_
     # now the registry check passes (only it is rebuilt here, to keep the test short) ...
     build_project(copy, cores=2, extra=["results/checks/data_registry.csv"])
     # ... and the ledger says exactly what the new bytes make out of date: nothing is
-    # changed or missing, everything computed from the raw file is stale
+    # changed or missing, everything computed from the raw file is stale: the check step's
+    # outputs, the stored panel among them (the later steps read the stored panel, which the
+    # next build rewrites first, so they are behind it rather than behind the raw file)
     drift = ledger.drift_table(copy)
     assert set(drift["problem"]) == {"stale"}
     assert "results/checks/data_registry.csv" not in set(drift["file"])
-    assert {"results/checks/findings.csv", "results/scores/scores.csv"} <= set(drift["file"])
+    assert {"results/checks/findings.csv", "results/checks/panel.parquet"} <= set(drift["file"])
+    scores = {r["step"]: r for r in ledger.read_records(copy)}["score_scales"]
+    assert "results/checks/panel.parquet" in {i["path"] for i in scores["inputs"]}
+    assert raw not in {i["path"] for i in scores["inputs"]}
     rec = {r["step"]: r for r in ledger.read_records(copy)}["confirm_raw_hashes"]
     assert {i["path"]: i["sha256"] for i in rec["inputs"]}[raw] != {
         i["path"]: i["sha256"] for i in {r["step"]: r for r in ledger.read_records(built_1core)}["confirm_raw_hashes"]["inputs"]

@@ -121,6 +121,8 @@ def test_gitignore_keeps_private_raw_data_out_and_says_how_to_track_it(tmp_path,
     assert "data/raw/" in text.splitlines()
     assert "kept private" in text and "shareable" in text and "!data/raw/" in text
     assert ".snakemake/" in text.splitlines()
+    # the stored panel is a row-level copy of the raw data: out of git with them
+    assert "results/checks/panel.parquet" in text.splitlines()
 
 
 def test_find_project_walks_up_and_refuses_other_folders(tmp_path, no_git_identity):

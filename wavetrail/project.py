@@ -53,6 +53,11 @@ logs/
 # Intermediate forest shards; the merged results/forest/forest.json is kept.
 results/forest/shards/
 
+# The stored panel: the check step's typed copy of the raw rows, read by the later steps.
+# It is row-level data like data/raw/, so it stays out of git with them (its hash is in
+# the ledger; `wavetrail build` writes it again from the raw files).
+results/checks/panel.parquet
+
 # Python and notebook leftovers.
 __pycache__/
 *.pyc

@@ -2,7 +2,8 @@
 
 Three verdicts: ``identical`` (same bytes), ``within tolerance`` (a CSV table
 or JSON document whose text cells are equal and whose numbers agree within a
-relative tolerance) and ``different`` (with what differs). Only CSV and JSON
+relative tolerance, or a Parquet table, the stored panel, with the same columns,
+types and rows) and ``different`` (with what differs). Only CSV, JSON and Parquet
 are parsed, as data; nothing is unpickled or run.
 """
 
@@ -137,6 +138,55 @@ def compare_json(old: Path, new: Path, rtol: float = 1e-6, atol: float = 0.0) ->
                       worst[0])
 
 
+def compare_parquet(old: Path, new: Path, rtol: float = 1e-6, atol: float = 0.0) -> Comparison:
+    """Compare two Parquet tables (the stored panel) by content: the same columns, types and rows,
+    numbers within ``rtol``. The bytes of the same table may differ between versions of the
+    Parquet writer (it names itself in the file). Only the data are read; nothing is run."""
+    try:
+        import pyarrow.parquet as pq
+
+        a, b = pq.read_table(old), pq.read_table(new)
+    except Exception as err:  # not Parquet: no table to compare
+        return Comparison(DIFFERENT, f"bytes differ and the Parquet table cannot be read ({type(err).__name__})")
+    if a.column_names != b.column_names:
+        gone = [c for c in a.column_names if c not in b.column_names]
+        new_cols = [c for c in b.column_names if c not in a.column_names]
+        return Comparison(DIFFERENT, f"columns differ (only archived: {gone}; only rebuilt: {new_cols})")
+    if a.num_rows != b.num_rows:
+        return Comparison(DIFFERENT, f"{a.num_rows} rows archived, {b.num_rows} rebuilt")
+    worst = 0.0
+    for name in a.column_names:
+        x, y = a.column(name), b.column(name)
+        if x.type != y.type:
+            return Comparison(DIFFERENT, f"{name}: type {x.type} archived, {y.type} rebuilt")
+        if pa_numeric(x.type):
+            xv = x.to_numpy(zero_copy_only=False).astype(float)
+            yv = y.to_numpy(zero_copy_only=False).astype(float)
+            nan_x, nan_y = np.isnan(xv), np.isnan(yv)
+            if (nan_x != nan_y).any():
+                row = int(np.flatnonzero(nan_x != nan_y)[0])
+                return Comparison(DIFFERENT, f"{name}: missing in one table only (row {row + 1})")
+            ok = ~nan_x
+            bad = np.abs(xv[ok] - yv[ok]) > atol + rtol * np.maximum(np.abs(xv[ok]), np.abs(yv[ok]))
+            if bad.any():
+                row = int(np.flatnonzero(ok)[int(np.flatnonzero(bad)[0])])
+                return Comparison(DIFFERENT, f"{name}: row {row + 1}: {xv[row]} archived vs {yv[row]} rebuilt")
+            rel = _rel(xv[ok], yv[ok])
+            if rel.size:
+                worst = max(worst, float(rel.max()))
+        elif not x.equals(y):
+            return Comparison(DIFFERENT, f"{name}: values differ")
+    return Comparison(WITHIN, f"same columns, types and rows (bytes differ; largest relative difference "
+                              f"{worst:.2g})", worst)
+
+
+def pa_numeric(t) -> bool:
+    """True for Parquet/Arrow integer and floating types."""
+    import pyarrow.types as pt
+
+    return pt.is_integer(t) or pt.is_floating(t)
+
+
 def compare_files(old: str | Path, new: str | Path, rtol: float = 1e-6) -> Comparison:
     """The verdict on one output file (``old`` archived, ``new`` rebuilt)."""
     old, new = Path(old), Path(new)
@@ -150,5 +200,7 @@ def compare_files(old: str | Path, new: str | Path, rtol: float = 1e-6) -> Compa
         return compare_tables(old, new, rtol)
     if suffix == ".json":
         return compare_json(old, new, rtol)
+    if suffix == ".parquet":
+        return compare_parquet(old, new, rtol)
     return Comparison(DIFFERENT, f"bytes differ ({len(a)} archived vs {len(b)} rebuilt; "
                                  "not a table, so no tolerance applies)")

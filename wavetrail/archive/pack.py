@@ -20,7 +20,13 @@ Raw data modes
     kept in ``wavetrail-archive.json``.
 
 In ``exclude`` and ``stand-in`` mode, output tables keyed by the real person
-ids are person-level data as well and are withheld (hash only).
+ids are person-level data as well and are withheld (hash only), and so is the
+stored panel (``results/checks/panel.parquet``, :mod:`wavetrail.stored_panel`):
+it is a row-level copy of the raw data, so it goes wherever they go. Its
+ledger record stays, and ``wavetrail verify`` traces it to the registered raw
+data through the check step's record; a rebuild writes it again (from the
+stand-in rows in stand-in mode). With ``include`` it is packed beside the raw
+files, after a look at its columns (never an identifier column).
 
 Packing refuses a project whose committed state does not match its results
 (uncommitted changes, outputs whose bytes differ from their ledger record,
@@ -46,6 +52,7 @@ from wavetrail.archive.bag import make_bag, write_archive
 from wavetrail.archive.crate import build_crate
 from wavetrail.archive.disclosure import BLOCK, check_outputs, check_raw_files
 from wavetrail.archive.schema import STAND_IN_LABEL
+from wavetrail.stored_panel import STORED_PANEL, WITHHELD_REASON
 
 MODES = ("include", "exclude", "stand-in")
 MANIFEST = "wavetrail-archive.json"
@@ -323,6 +330,8 @@ def pack_project(path=".", raw: str = "exclude", output=None, allow_dirty: bool 
             del files[rel]  # tracked but deleted (allowed only with --allow-dirty)
     for rel in raw_paths:
         files.pop(rel, None)
+    # the stored panel: row-level data like the raw files, so it follows them (see the module notes)
+    stored = {rel: files.pop(rel) for rel in [STORED_PANEL] if rel in files}
     withheld: dict[str, dict] = {}
     if data == "include":
         for rel in raw_paths:
@@ -364,6 +373,12 @@ def pack_project(path=".", raw: str = "exclude", output=None, allow_dirty: bool 
         for rel in raw_paths:
             tables[rel] = _raw_frame(root / rel)
         findings += check_raw_files({r: root / r for r in raw_paths}, codebook, tables)
+    if data == "include":
+        findings += _stored_panel_findings(stored, codebook)
+        files.update(stored)
+    else:
+        for rel, f in stored.items():
+            withheld[rel] = {"sha256": sha256_file(f), "size": f.stat().st_size, "reason": WITHHELD_REASON}
     if data != "include":
         for rel in report.person_level:
             rec_hash = sha256_file(files[rel])
@@ -439,6 +454,27 @@ def pack_project(path=".", raw: str = "exclude", output=None, allow_dirty: bool 
         output = Path(output)
         top = f"{root.name}-{data}"
         return write_archive(staging, output, top, int(when.timestamp()))
+
+
+def _stored_panel_findings(stored: dict, codebook) -> list[dict]:
+    """A stored panel going out with the raw data never holds an identifier column (it is written
+    without them); one that does, or that cannot be read as Parquet, blocks like raw data would."""
+    from wavetrail.archive.disclosure import _finding
+    from wavetrail.stored_panel import stored_columns
+
+    out = []
+    for rel, f in sorted(stored.items()):
+        names = stored_columns(f)
+        if names is None:
+            out.append(_finding("identifier column", BLOCK, rel, "", "", f"{rel}: the stored panel cannot be "
+                                "read as Parquet, so its columns cannot be checked; run `wavetrail build` again"))
+            continue
+        for name in codebook.identifiers:
+            if name in names:
+                out.append(_finding("identifier column", BLOCK, rel, name, "",
+                                    f"{rel}: stored panel column {name!r} is an identifier; run `wavetrail "
+                                    "build` again (the check step writes it without identifiers)"))
+    return out
 
 
 def _load_panel(root: Path, config: dict, codebook):

@@ -26,8 +26,19 @@ def data_paths(job) -> list[Path]:
 
 
 def load_job_panel(job):
-    """Codebook and panel of a job (inputs ``codebook`` and ``data``)."""
-    codebook = load_codebook(job.path(job.input["codebook"]))
+    """Codebook and panel of a job.
+
+    With a ``panel`` input (the stored panel the check step writes, as every rule after the
+    checks has) the panel is read from it (:func:`wavetrail.stored_panel.read_stored_panel`,
+    which refuses one written with another codebook); otherwise it is built from the ``data``
+    input (the raw files).
+    """
+    codebook_path = job.path(job.input["codebook"])
+    codebook = load_codebook(codebook_path)
+    if job.input.get("panel"):
+        from wavetrail.stored_panel import read_stored_panel
+
+        return codebook, read_stored_panel(job.path(job.input["panel"]), codebook, codebook_path=codebook_path)
     return codebook, load_panel(data_paths(job), codebook)
 
 
@@ -66,7 +77,9 @@ def check_data(job) -> None:
     """Rule ``check_data``: findings, descriptives and attrition of the raw data.
 
     Inputs ``data`` (list), ``codebook``, ``registry``; outputs ``findings``,
-    ``descriptives``, ``attrition``. The step always succeeds once the tables are
+    ``descriptives``, ``attrition`` and ``panel``, the stored panel every later step
+    reads instead of the raw files (:mod:`wavetrail.stored_panel`; written even when a
+    finding has severity ``error``, since those steps refuse to run then anyway). The step always succeeds once the tables are
     written, so Snakemake keeps them; when a finding has severity ``error`` the
     steps that read the findings refuse to run (:func:`refuse_failed_checks`),
     which stops the build before scoring with a message naming the findings file.
@@ -80,6 +93,10 @@ def check_data(job) -> None:
     write_table(job.path(job.output["descriptives"]), describe(panel))
     write_table(job.path(job.output["attrition"]), attrition(panel))
     write_table(job.path(job.output["findings"]), findings)
+    if job.output.get("panel"):
+        from wavetrail.stored_panel import write_stored_panel
+
+        write_stored_panel(panel, job.path(job.output["panel"]), codebook_path=job.path(job.input["codebook"]))
     message = failed_checks_message(findings, job.output["findings"])
     if message:
         # Not raised here: a failed job loses its outputs, and the user needs this table.

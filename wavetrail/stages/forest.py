@@ -89,14 +89,10 @@ def _split(job, cfg, wide, predictors):
 
 def _inputs(job, cfg):
     """(wide outcome, predictors, time scores) of the forest, on the same people."""
-    from wavetrail.codebook import load_codebook
-    from wavetrail.panel import load_panel
     from wavetrail.scoring import wide_scores
+    from wavetrail.stages.checks import load_job_panel
 
-    codebook = load_codebook(job.path(job.input["codebook"]))
-    data = job.input["data"]
-    data = [data] if isinstance(data, str) else list(data)
-    panel = load_panel([job.path(p) for p in data], codebook)
+    codebook, panel = load_job_panel(job)  # the stored panel (input ``panel``), else the raw files
     outcome = _outcome(job, cfg, codebook)
     predictors = panel.predictors(cfg.get("predictors", "wave1"), outcome=outcome)
     scores = pd.read_csv(job.path(job.input["scores"]))

@@ -255,10 +255,15 @@ def fit_conditional_models(scores, predictors, waves, time_scores, outcomes, sha
 def _person_predictors(job, codebook, names) -> pd.DataFrame:
     """The named time-invariant predictors (first-wave values), index = person id as text."""
     from wavetrail.panel import load_panel
+    from wavetrail.stages.checks import data_paths
 
-    data = job.input["data"]
-    data = [data] if isinstance(data, str) else list(data)
-    panel = load_panel([job.path(p) for p in data], codebook)
+    if job.input.get("panel"):  # the stored panel the check step wrote
+        from wavetrail.stored_panel import read_stored_panel
+
+        panel = read_stored_panel(job.path(job.input["panel"]), codebook,
+                                  codebook_path=job.path(job.input["codebook"]))
+    else:
+        panel = load_panel(data_paths(job), codebook)
     pred = panel.predictors(list(names)).copy()
     pred.index = pred.index.map(str)
     return pred
