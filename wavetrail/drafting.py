@@ -412,6 +412,52 @@ def find_wide(frame: pd.DataFrame, id: str | None = None) -> Layout | None:
     return lay
 
 
+def _repeated_person(frame: pd.DataFrame, exclude: set):
+    """A person id that repeats over the rows of a file without a wave column, or None.
+
+    Returns ``(column, fewest rows, most rows, numeric columns that change within persons)``
+    for a column named like an id (or, failing that, the one with the most distinct
+    values) whose values mostly come 2 to ``MAX_WAVES`` times each.
+    """
+    found = []
+    for c in frame.columns:
+        if c in exclude or frame[c].isna().any():
+            continue
+        col = frame[c]
+        if pd.api.types.is_float_dtype(col) and not np.all(col.to_numpy(dtype=float) % 1 == 0):
+            continue
+        counts = col.value_counts()
+        if len(counts) < 5 or counts.max() > MAX_WAVES or (counts >= 2).mean() < 0.5:
+            continue
+        named = _norm(c) in _ID_NAMES or _norm(c).endswith("id")
+        found.append((not named, -len(counts), c, int(counts.min()), int(counts.max())))
+    if not found:
+        return None
+    _, _, person, lo, hi = min(found)
+    times = [c for c in frame.columns if c != person and c not in exclude
+             and pd.api.types.is_numeric_dtype(frame[c]) and _norm(c) in _WAVE_NAMES
+             and frame.groupby(person, sort=False)[c].nunique().max() > 1]
+    return person, lo, hi, times
+
+
+def _time_column_means(frame: pd.DataFrame, lay: Layout, ordered) -> tuple[str, list] | None:
+    """A numeric column named like time (age, days, ...) that changes within persons and grows
+    over the waves: (name, its mean at each wave, rounded), or None."""
+    if lay.wave not in frame.columns:
+        return None
+    key = frame[lay.wave].map(lambda v: _label_value(str(v)) if isinstance(v, str) else _num(v))
+    for c in frame.columns:
+        if c in (lay.id, lay.wave) or _norm(c) not in _WAVE_NAMES or not pd.api.types.is_numeric_dtype(frame[c]):
+            continue
+        means = frame[c].groupby(key).mean()
+        if not all(w in means.index for w in ordered):
+            continue
+        m = [round(float(means[w]), 3) for w in ordered]
+        if len(m) >= 2 and all(np.isfinite(m)) and all(b > a for a, b in zip(m, m[1:])):
+            return str(c), m
+    return None
+
+
 def _choose_single_id(frame: pd.DataFrame, lay: Layout, exclude: set, id: str | None) -> None:
     """The id of a wide file or of per-wave files: a column unique in every row."""
     if id is not None:
@@ -509,10 +555,22 @@ def draft_text(tables, *, id=None, wave=None, waves=None) -> str:
                                 "twice at one wave", hint="name the id column, or fix the repeated rows")
         lay = Layout(kind="single", id="", wave="wave", waves=[1])
         lay.row_numbers = [c for c in columns if _norm(c) in _ROW_NAMES and _is_row_number(frames[0][c])]
-        _choose_single_id(frames[0], lay, exclude=set(), id=id)
+        repeated = _repeated_person(frames[0], exclude=set(lay.row_numbers)) if id is None else None
         lay.wave_guess = True
         lay.wave_note = ("no wave column and no repeated column names were found: the file is drafted as "
                          "one wave; name the wave column or the naming pattern")
+        if repeated is not None:
+            person, lo, hi, times = repeated
+            lay.id, lay.id_guess = person, True
+            lay.id_note = f"repeats over rows ({lo} to {hi} rows per value): taken as the person id"
+            changing = f", and {', '.join(map(repr, times))} changes within persons (it may hold the time)" \
+                if times else ""
+            lay.wave_note = (f"no wave column was found, but the rows look like repeated measures of {person!r} "
+                             f"({lo} to {hi} rows per value){changing}: add a column to the data that numbers "
+                             "each person's occasions (1, 2, ...), then draft again or name it here with its "
+                             "waves and time scores")
+        else:
+            _choose_single_id(frames[0], lay, exclude=set(), id=id)
 
     # wave labels and time scores
     if lay.kind == "long":
@@ -527,6 +585,12 @@ def draft_text(tables, *, id=None, wave=None, waves=None) -> str:
         time_guess = not all(_is_number(w) for w in ordered)
         time_note = "the given wave labels" if not time_guess else "occasions 0, 1, 2, ... in the given order"
     first = ordered[0]
+    if lay.kind == "long" and waves is None and not time_guess:
+        clock = _time_column_means(allrows, lay, ordered)
+        if clock is not None:
+            name, means = clock
+            time_note += (f"; {name!r} averages {_y(means)} at these waves: to count time in its units from the "
+                          f"first wave use {_y([round(m - means[0], 3) for m in means])}")
 
     out = ["# Draft codebook written by wavetrail from: " + ", ".join(t.name for t in tables),
            f"# Check every line that carries a `{GUESS_MARK}` comment, then delete that comment:",
