@@ -53,7 +53,8 @@ def test_which_source_changes_rerun_which_steps(tmp_path):
     cfg = root / "config/config.yaml"
     cfg.write_text(cfg.read_text().replace("seed: 20261202", "seed: 7"))
     steps = [s for s, _ in ledger.rerun_targets(root)]
-    assert steps == sorted(["describe", "lock_environment", "render_report", "score_scales", "confirm_raw_hashes"])
+    assert steps == sorted(["describe", "lock_environment", "render_report", "score_scales", "confirm_raw_hashes",
+                            "check_data"])
 
 
 def test_hand_edited_output_reruns_its_step(tmp_path):
@@ -88,5 +89,6 @@ def test_records_without_sources_fall_back_on_the_commit(tmp_path):
         repo.git.commit("-q", "-m", "settings", "--no-gpg-sign")
     changes = ledger.source_changes(root, ledger.read_records(root), repo)
     assert set(changes) == {f"results/ledger/{n}.json" for n in
-                            ("describe--outcome=sd", "lock_environment", "score_scales", "confirm_raw_hashes")}
+                            ("describe--outcome=sd", "lock_environment", "score_scales", "confirm_raw_hashes",
+                             "check_data")}
     assert all(v == ["config/config.yaml"] for v in changes.values())
