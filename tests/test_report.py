@@ -237,6 +237,11 @@ def test_finding_messages_lose_the_ids_they_quote():
         "12 people gave the same answer to all 8 items of sleep_difficulty"
     assert _without_ids("id 10186 appears twice at wave 2", "10186") == "id \u2026 appears twice at wave 2"
     assert _without_ids("2 values outside [1, 5]", "17;88") == "2 values outside [1, 5]"
+    # row positions are not ids: wave labels equal to row numbers stay (carData Blackmore drafted
+    # with group measured once: its repeats sit at rows 3, 4, 5 of the file)
+    msg = "714 value(s) at wave(s) 2, 3, 4, 5 repeat the value at wave 1; group is used as measured at wave 1 only"
+    assert _without_ids(msg, "blackmore2.csv:3; blackmore2.csv:4; blackmore2.csv:5; blackmore2.csv:6") == msg
+    assert _without_ids("bad line blackmore2.csv:3", "blackmore2.csv:3") == "bad line \u2026"
 
 
 def check_report_against_tables(root: Path, page: str) -> None:

@@ -1320,7 +1320,14 @@ def _without_ids(message, rows) -> str:
         return MISSING
     text = re.sub(r"\s*\((?:e\.g\.|(?:rows?|ids?)\b)[^)]*\)", "", str(message))
     if isinstance(rows, str) and rows.strip():
-        for token in sorted(set(re.findall(r"[A-Za-z0-9_.-]+", rows)), key=len, reverse=True):
+        entries = [e.strip() for e in re.split(r"[;,]", rows) if e.strip()]
+        # a `file:row` entry is a position in a file: hidden where quoted whole, but its bare row
+        # number is not an id (a message's wave labels 3, 4 must survive rows 3 and 4)
+        places = [e for e in entries if re.fullmatch(r".+:\d+", e)]
+        for place in sorted(set(places), key=len, reverse=True):
+            text = text.replace(place, "\u2026")
+        ids = " ".join(e for e in entries if e not in places)
+        for token in sorted(set(re.findall(r"[A-Za-z0-9_.-]+", ids)), key=len, reverse=True):
             if any(ch.isdigit() for ch in token):
                 text = re.sub(rf"(?<![A-Za-z0-9_.-]){re.escape(token)}(?![A-Za-z0-9_-])", "\u2026", text)
     return text
