@@ -24,12 +24,18 @@ FLOAT_FORMAT = "%.10g"
 
 def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to ``path`` through a temporary file and an atomic rename."""
+    return atomic_write_with(path, lambda fh: fh.write(data))
+
+
+def atomic_write_with(path: str | os.PathLike, write) -> Path:
+    """Call ``write(fh)`` on a temporary binary file beside ``path``, then rename it to ``path``
+    (for writers that stream, e.g. Parquet); the temporary file is removed on any error."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
+            write(fh)
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, path)

@@ -445,7 +445,12 @@ def _time_column_means(frame: pd.DataFrame, lay: Layout, ordered) -> tuple[str, 
     over the waves: (name, its mean at each wave, rounded), or None."""
     if lay.wave not in frame.columns:
         return None
-    key = frame[lay.wave].map(lambda v: _label_value(str(v)) if isinstance(v, str) else _num(v))
+    codes, uniq = pd.factorize(frame[lay.wave])  # each distinct wave value read once, not each row
+    if len(uniq) == 0:
+        return None
+    labels = np.empty(len(uniq), dtype=object)
+    labels[:] = [_label_value(str(v)) if isinstance(v, str) else _num(v) for v in uniq]
+    key = pd.Series(np.where(codes >= 0, labels[np.maximum(codes, 0)], None), index=frame.index)
     for c in frame.columns:
         if c in (lay.id, lay.wave) or _norm(c) not in _WAVE_NAMES or not pd.api.types.is_numeric_dtype(frame[c]):
             continue

@@ -15,6 +15,8 @@ predict every growth factor.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from wavetrail.errors import ModelError
@@ -126,6 +128,7 @@ class GrowthFit:
         self.implied_cov = np.asarray(sem.implied_cov)[:T, :T]
         self.theta = sem.theta
         self.unrestricted = None  # with bounded=True: the unrestricted fit when it differs
+        self.bounded_search = None  # with bounded=True and an inadmissible unrestricted maximum: its search
 
     def __repr__(self) -> str:
         return (f"GrowthFit(shape={self.shape!r}, residuals={self.residuals!r}, n={self.fit.get('n')}, "
@@ -249,7 +252,7 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     # time scores far from (0, 1, 2, ...) (days, ages) make the search badly scaled: the model is
     # fitted first on time counted from the first wave in steps of the mean spacing, and its
     # estimates, carried back to these time scores (the same model, reparametrised), start the fit
-    start, retimed_bounded = None, None
+    start, known = None, None
     shift = standard_time(time_scores, shape)
     if shift is not None:
         a, b = shift
@@ -260,8 +263,11 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
         start = retime(spec.param_names, free_fit.theta, a, b, shape)
         if starts:
             starts = [start] + list(starts)
-        if standard.fit.get("estimation") == "bounded" and standard.unrestricted is not None:
-            retimed_bounded = standard
+        if standard.bounded_search is not None:
+            # the admissible set is the same on both time scales (A Psi A' is PSD when Psi is), so the
+            # admissible maximum found on the standard scale, carried back, is the one on this scale
+            known = replace(standard.bounded_search,
+                            theta=retime(spec.param_names, standard.bounded_search.theta, a, b, shape))
     res = sem_fit(spec, data[wave_cols + cov_names], se_from=se_from, where=where, max_iter=max_iter,
                   search=search, starts=starts, seed=seed, robust=robust, start=start)
     g = GrowthFit(res, shape, residuals, time_scores, wave_cols)
@@ -274,20 +280,10 @@ def fit_growth(wide, time_scores, shape="linear", residuals="free", covariates=N
     g.fit["unrestricted_loglik"] = g.fit["loglik"]
     if res.admissible and res.converged:
         return g  # the unrestricted maximum is admissible: it is the bounded maximum too
-    known = None
-    if retimed_bounded is not None:
-        # the admissible set is the same on both time scales (A Psi A' is PSD when Psi is), so the
-        # admissible maximum found on the standard scale, carried back, is the one on this scale
-        from wavetrail.sem.bounded import BoundedResult
-
-        sf = retimed_bounded.fit
-        known = BoundedResult(theta=retime(spec.param_names, retimed_bounded.theta, *shift, shape),
-                              loglik=float(sf["loglik"]), converged=bool(sf["converged"]),
-                              boundary=[x for x in str(sf.get("boundary") or "").split("; ") if x],
-                              pgrad=float("nan"), n_starts=int(sf.get("starts") or 1),
-                              maxima=[float(sf["loglik"])] * max(1, int(sf.get("maxima") or 1)))
-    b = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, se_from, where, robust, known=known)
+    b, search_result = _fit_bounded(spec, data[wave_cols + cov_names], res, starts, seed, se_from, where, robust,
+                                    known=known)
     out = GrowthFit(b, shape, residuals, time_scores, wave_cols)
+    out.bounded_search = search_result
     out.fit["estimation"] = "bounded"
     out.fit["boundary"] = b.fit["boundary"]
     out.fit["unrestricted_loglik"] = g.fit["loglik"]
@@ -355,7 +351,7 @@ def retime(names, theta_s, a, b, shape) -> np.ndarray:
 
 
 def _fit_bounded(spec, data, unrestricted, starts, seed, se_from, where, robust=False, known=None):
-    """Admissible maximum (variances >= 0, growth-factor covariance PSD) as a SemFit.
+    """Admissible maximum (variances >= 0, growth-factor covariance PSD): (SemFit, BoundedResult).
 
     ``known``: a :class:`wavetrail.sem.bounded.BoundedResult` already found (on another
     time scale), summarised here instead of searching again.
@@ -390,7 +386,7 @@ def _fit_bounded(spec, data, unrestricted, starts, seed, se_from, where, robust=
     fit.fit["se_type"] = se_from
     if robust:
         robust_errors(fit, stats, Y, at_bound=at)
-    return fit
+    return fit, r
 
 
 def nested_starts(spec, data, time_scores, shape, residuals, cov_names, wave_cols):

@@ -271,13 +271,17 @@ class Panel:
     """
 
     def __init__(self, codebook: Codebook, sources: list[Source], records: pd.DataFrame):
+        self._set_study(codebook, sources, records)
+        self.long, self.missing_reasons, self.origin = _clean(self)
+
+    def _set_study(self, codebook: Codebook, sources, records) -> None:
+        """The codebook, the files and records as read, and the study's id, wave and waves."""
         self.codebook = codebook
         self.sources = sources
         self.records = records
         self.id = codebook.study.id
         self.wave = codebook.study.wave or "wave"
         self.waves = list(codebook.study.waves)
-        self.long, self.missing_reasons, self.origin = _clean(self)
 
     # -- views ------------------------------------------------------------
 

@@ -38,13 +38,12 @@ types no longer fit the codebook, naming the file and what to do.
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from wavetrail._io import atomic_write_with
 from wavetrail.codebook import Codebook, load_codebook
 from wavetrail.errors import DataError
 from wavetrail.panel import Panel
@@ -75,14 +74,9 @@ class StoredPanel(Panel):
     """
 
     def __init__(self, codebook: Codebook, long: pd.DataFrame):  # noqa: D107 (no raw files to read)
-        self.codebook = codebook
-        self.sources = None
-        self.records = None
+        self._set_study(codebook, sources=None, records=None)
         self.origin = None
         self.missing_reasons = None
-        self.id = codebook.study.id
-        self.wave = codebook.study.wave or "wave"
-        self.waves = list(codebook.study.waves)
         self.long = long
 
 
@@ -162,23 +156,9 @@ def write_stored_panel(panel: Panel, path, codebook_path=None) -> Path:
     meta = {"format": FORMAT, "id": panel.id, "wave": panel.wave, "waves": [_plain(w) for w in panel.waves],
             "columns": [[n, k] for n, k in kinds.items()], "levels": levels, "codebook_sha256": _codebook_hash(codebook_path), "rows": int(len(frame))}
     table = table.replace_schema_metadata({META_KEY: json.dumps(meta, sort_keys=True).encode("utf-8")})
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            pq.write_table(table, fh, compression="snappy", row_group_size=ROW_GROUP, write_statistics=False,
-                           use_dictionary=True, store_schema=True)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-    return path
+    return atomic_write_with(path, lambda fh: pq.write_table(
+        table, fh, compression="snappy", row_group_size=ROW_GROUP, write_statistics=False, use_dictionary=True,
+        store_schema=True))
 
 
 def _plain(value):
